@@ -1,0 +1,41 @@
+"""probe: test a trained binary classifier before it is released.
+
+The Python API mirrors the command line: load data and a model, then ask where it fails
+(:func:`find_slices`), how groups fare (:func:`group_metrics`), whether decisions move with a protected
+attribute (:func:`flip_test`, :func:`find_proxies`), whether a candidate is worse than production
+(:func:`compare_models`), and run a whole plan with :func:`run_plan`. Every result is a frozen object
+with ``to_dict()`` (the report section) and ``to_frame()``.
+
+A statistical screen, not a legal finding; the four-fifths rule is a rule of thumb; defer to counsel,
+local law and licensed practice.
+"""
+
+__version__ = "0.1.0"
+
+from .adapters import Model, load_model
+from .data import Holdout, prepare_holdout, read_table
+from .errors import DataError, DegenerateWarning, ModelError, PlanError, ProbeError, TrustError
+from .groups import GroupMetrics, group_metrics
+from .plan import Plan, load_plan, plan_from_dict
+from .stats import Estimate
+
+__all__ = [
+    "__version__",
+    "DataError",
+    "DegenerateWarning",
+    "Estimate",
+    "GroupMetrics",
+    "Holdout",
+    "Model",
+    "ModelError",
+    "Plan",
+    "PlanError",
+    "ProbeError",
+    "TrustError",
+    "group_metrics",
+    "load_model",
+    "load_plan",
+    "plan_from_dict",
+    "prepare_holdout",
+    "read_table",
+]

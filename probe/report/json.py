@@ -1,0 +1,41 @@
+"""The canonical JSON text of a report: plain types, NaN as null, stable key order."""
+
+from __future__ import annotations
+
+import json
+import math
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+__all__ = ["SCHEMA", "plain", "to_json", "read_report"]
+
+SCHEMA = "probe.report/1"
+
+
+def plain(obj: Any) -> Any:
+    """Turn numpy scalars and arrays, tuples, paths and NaN/inf into JSON-ready values."""
+    if isinstance(obj, dict):
+        return {str(k): plain(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [plain(v) for v in obj]
+    if isinstance(obj, np.ndarray):
+        return [plain(v) for v in obj.tolist()]
+    if isinstance(obj, np.generic):
+        obj = obj.item()
+    if isinstance(obj, float) and (math.isnan(obj) or math.isinf(obj)):
+        return None
+    if isinstance(obj, Path):
+        return str(obj)
+    return obj
+
+
+def to_json(report: dict) -> str:
+    """The report as indented JSON text; the same report always gives the same bytes."""
+    return json.dumps(plain(report), indent=2, ensure_ascii=False, allow_nan=False) + "\n"
+
+
+def read_report(path: str | Path) -> dict:
+    """Load a saved ``report.json`` (for re-rendering)."""
+    return json.loads(Path(path).read_text(encoding="utf-8"))

@@ -1,0 +1,415 @@
+"""Intervals, tests, multiple-testing control and the bootstrap, as pure vectorised functions.
+
+Every rate probe reports travels with its interval as an :class:`Estimate`. The closed forms used:
+
+- a single proportion: the Wilson score interval (Newcombe 1998a, method 3);
+- a difference of two independent proportions: Newcombe's hybrid score interval, built from the two
+  Wilson intervals (Newcombe 1998b, method 10);
+- a ratio of two independent proportions (the impact ratio): the MOVER-R interval of Donner & Zou
+  (2012), also built from the two Wilson intervals, so the three agree with each other;
+- two independent proportions compared: the pooled two-proportion z test; paired 0/1 outcomes: the
+  exact McNemar test;
+- many p-values: the Benjamini–Hochberg step-up adjustment (q-values);
+- anything else: a seeded, vectorised bootstrap (percentile, or BCa with the jackknife acceleration).
+
+Degenerate inputs (an empty group, a zero reference rate) give NaN with a :class:`DegenerateWarning`.
+
+References
+----------
+Newcombe, R. G. (1998a). Two-sided confidence intervals for the single proportion: comparison of seven
+methods. Statistics in Medicine 17, 857-872.
+Newcombe, R. G. (1998b). Interval estimation for the difference between independent proportions:
+comparison of eleven methods. Statistics in Medicine 17, 873-890.
+Donner, A. & Zou, G. Y. (2012). Closed-form confidence intervals for functions of the normal mean and
+standard deviation. Statistical Methods in Medical Research 21, 347-359.
+Benjamini, Y. & Hochberg, Y. (1995). Controlling the false discovery rate. JRSS-B 57, 289-300.
+Efron, B. & Tibshirani, R. (1993). An Introduction to the Bootstrap, ch. 14 (BCa).
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+from dataclasses import dataclass
+from typing import Callable, Sequence
+
+import numpy as np
+from scipy import special
+from scipy import stats as _sps
+
+from .errors import DegenerateWarning
+
+__all__ = [
+    "Estimate",
+    "z_value",
+    "wilson_interval",
+    "wilson",
+    "newcombe_interval",
+    "newcombe",
+    "ratio_interval",
+    "impact_ratio",
+    "two_proportion_pvalue",
+    "mcnemar_pvalue",
+    "bh_adjust",
+    "bootstrap",
+    "BootstrapResult",
+]
+
+
+@dataclass(frozen=True)
+class Estimate:
+    """A point estimate with its confidence interval and the method that made it.
+
+    Attributes
+    ----------
+    value : float
+        The point estimate (NaN when undefined).
+    low, high : float
+        The interval's ends (NaN when undefined).
+    method : str
+        How the interval was computed, e.g. ``"wilson"``, ``"newcombe"``, ``"mover-wilson"``,
+        ``"bootstrap-percentile"``, ``"bootstrap-bca"``.
+    """
+
+    value: float
+    low: float
+    high: float
+    method: str
+
+    def to_dict(self) -> dict:
+        """The report's estimate object; NaN becomes ``None`` (JSON null)."""
+        return {
+            "value": _json_float(self.value),
+            "low": _json_float(self.low),
+            "high": _json_float(self.high),
+            "method": self.method,
+        }
+
+    def excludes(self, bound: float) -> bool:
+        """True when the whole interval lies strictly on one side of ``bound``."""
+        return bool(self.low > bound or self.high < bound)
+
+
+def _json_float(x: float) -> float | None:
+    x = float(x)
+    return None if math.isnan(x) or math.isinf(x) else x
+
+
+def z_value(confidence_level: float = 0.95) -> float:
+    """The two-sided standard normal quantile for ``confidence_level`` (1.959964 for 0.95)."""
+    if not 0.0 < confidence_level < 1.0:
+        raise ValueError(
+            f"`confidence_level` must lie strictly between 0 and 1, got {confidence_level!r}"
+        )
+    return float(special.ndtri(0.5 + confidence_level / 2.0))
+
+
+def _as_counts(x, n):
+    x = np.asarray(x, dtype=float)
+    n = np.asarray(n, dtype=float)
+    if np.any(x < 0) or np.any(x > n):
+        raise ValueError("counts must satisfy 0 <= x <= n")
+    return x, n
+
+
+def wilson_interval(x, n, *, confidence_level: float = 0.95):
+    """Wilson score interval for the proportion ``x / n``, vectorised.
+
+    Parameters
+    ----------
+    x, n : array_like
+        Successes and trials; broadcast together.
+    confidence_level : float, default=0.95
+
+    Returns
+    -------
+    low, high : ndarray
+        NaN where ``n == 0``.
+
+    Notes
+    -----
+    ``(p + z²/2n ± z sqrt(p(1-p)/n + z²/4n²)) / (1 + z²/n)`` (Newcombe 1998a, method 3).
+    """
+    x, n = _as_counts(x, n)
+    z = z_value(confidence_level)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        p = x / n
+        denom = 1.0 + z * z / n
+        centre = (p + z * z / (2.0 * n)) / denom
+        half = z * np.sqrt(p * (1.0 - p) / n + z * z / (4.0 * n * n)) / denom
+        low = np.where(x == 0, 0.0, centre - half)
+        high = np.where(x == n, 1.0, centre + half)
+    empty = n == 0
+    low = np.where(empty, np.nan, low)
+    high = np.where(empty, np.nan, high)
+    return low, high
+
+
+def wilson(x: float, n: float, *, confidence_level: float = 0.95) -> Estimate:
+    """The proportion ``x / n`` with its Wilson interval; NaN with a warning when ``n == 0``."""
+    if n == 0:
+        warnings.warn("proportion of an empty group is undefined", DegenerateWarning, stacklevel=2)
+        return Estimate(math.nan, math.nan, math.nan, "wilson")
+    low, high = wilson_interval(x, n, confidence_level=confidence_level)
+    return Estimate(float(x) / float(n), float(low), float(high), "wilson")
+
+
+def newcombe_interval(x1, n1, x2, n2, *, confidence_level: float = 0.95):
+    """Newcombe's hybrid score interval for ``x1/n1 - x2/n2``, vectorised.
+
+    Returns ``(low, high)``; NaN where either group is empty.
+
+    Notes
+    -----
+    With Wilson limits ``(l1, u1)`` and ``(l2, u2)``:
+    ``low = d - sqrt((p1 - l1)² + (u2 - p2)²)``, ``high = d + sqrt((u1 - p1)² + (p2 - l2)²)``
+    (Newcombe 1998b, method 10).
+    """
+    x1, n1 = _as_counts(x1, n1)
+    x2, n2 = _as_counts(x2, n2)
+    l1, u1 = wilson_interval(x1, n1, confidence_level=confidence_level)
+    l2, u2 = wilson_interval(x2, n2, confidence_level=confidence_level)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        p1 = x1 / n1
+        p2 = x2 / n2
+        d = p1 - p2
+        low = d - np.sqrt((p1 - l1) ** 2 + (u2 - p2) ** 2)
+        high = d + np.sqrt((u1 - p1) ** 2 + (p2 - l2) ** 2)
+    return low, high
+
+
+def newcombe(x1, n1, x2, n2, *, confidence_level: float = 0.95) -> Estimate:
+    """The difference ``x1/n1 - x2/n2`` with Newcombe's interval; NaN if a group is empty."""
+    if n1 == 0 or n2 == 0:
+        warnings.warn("difference with an empty group is undefined", DegenerateWarning, stacklevel=2)
+        return Estimate(math.nan, math.nan, math.nan, "newcombe")
+    low, high = newcombe_interval(x1, n1, x2, n2, confidence_level=confidence_level)
+    return Estimate(x1 / n1 - x2 / n2, float(low), float(high), "newcombe")
+
+
+def ratio_interval(x1, n1, x2, n2, *, confidence_level: float = 0.95):
+    """MOVER-R interval for the ratio of proportions ``(x1/n1) / (x2/n2)``, vectorised.
+
+    Returns ``(low, high)``; NaN where a group is empty or the denominator rate is zero.
+    ``high`` is ``inf`` when the denominator's lower Wilson limit is zero.
+
+    Notes
+    -----
+    Donner & Zou (2012), eq. for a ratio of two parameters with limits ``(l1, u1)``, ``(l2, u2)``::
+
+        low  = (p1 p2 - sqrt((p1 p2)² - l1 u2 (2 p1 - l1)(2 p2 - u2))) / (u2 (2 p2 - u2))
+        high = (p1 p2 + sqrt((p1 p2)² - u1 l2 (2 p1 - u1)(2 p2 - l2))) / (l2 (2 p2 - l2))
+    """
+    x1, n1 = _as_counts(x1, n1)
+    x2, n2 = _as_counts(x2, n2)
+    l1, u1 = wilson_interval(x1, n1, confidence_level=confidence_level)
+    l2, u2 = wilson_interval(x2, n2, confidence_level=confidence_level)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        p1 = x1 / n1
+        p2 = x2 / n2
+        pp = p1 * p2
+        low_disc = np.maximum(pp * pp - l1 * u2 * (2 * p1 - l1) * (2 * p2 - u2), 0.0)
+        high_disc = np.maximum(pp * pp - u1 * l2 * (2 * p1 - u1) * (2 * p2 - l2), 0.0)
+        low = (pp - np.sqrt(low_disc)) / (u2 * (2 * p2 - u2))
+        high_den = l2 * (2 * p2 - l2)
+        high = np.where(high_den > 0, (pp + np.sqrt(high_disc)) / np.where(high_den > 0, high_den, 1), np.inf)
+        low = np.maximum(low, 0.0)
+    bad = (n1 == 0) | (n2 == 0) | (x2 == 0)
+    return np.where(bad, np.nan, low), np.where(bad, np.nan, high)
+
+
+def impact_ratio(x1, n1, x2, n2, *, confidence_level: float = 0.95) -> Estimate:
+    """The ratio of rates ``(x1/n1) / (x2/n2)`` with its MOVER-R (Wilson) interval.
+
+    NaN with a :class:`DegenerateWarning` when a group is empty or the reference rate is zero.
+    """
+    if n1 == 0 or n2 == 0 or x2 == 0:
+        warnings.warn(
+            "impact ratio is undefined: empty group or zero reference rate",
+            DegenerateWarning,
+            stacklevel=2,
+        )
+        return Estimate(math.nan, math.nan, math.nan, "mover-wilson")
+    low, high = ratio_interval(x1, n1, x2, n2, confidence_level=confidence_level)
+    return Estimate((x1 / n1) / (x2 / n2), float(low), float(high), "mover-wilson")
+
+
+def two_proportion_pvalue(x1, n1, x2, n2, *, alternative: str = "two-sided"):
+    """Pooled two-proportion z test of ``p1 = p2``, vectorised.
+
+    ``alternative`` is ``"two-sided"``, ``"greater"`` (p1 > p2) or ``"less"``. Where the pooled rate is
+    0 or 1 (no variation at all) the p-value is 1.
+    """
+    if alternative not in ("two-sided", "greater", "less"):
+        raise ValueError(
+            f"`alternative` must be 'two-sided', 'greater' or 'less', got {alternative!r}"
+        )
+    x1, n1 = _as_counts(x1, n1)
+    x2, n2 = _as_counts(x2, n2)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        pooled = (x1 + x2) / (n1 + n2)
+        se = np.sqrt(pooled * (1 - pooled) * (1 / n1 + 1 / n2))
+        z = (x1 / n1 - x2 / n2) / se
+    if alternative == "two-sided":
+        p = 2 * special.ndtr(-np.abs(z))
+    elif alternative == "greater":
+        p = special.ndtr(-z)
+    else:
+        p = special.ndtr(z)
+    p = np.where(se > 0, p, 1.0)
+    p = np.where((n1 == 0) | (n2 == 0), np.nan, p)
+    return np.clip(p, 0.0, 1.0)
+
+
+def mcnemar_pvalue(b: int, c: int) -> float:
+    """Exact (binomial) McNemar test on the discordant counts ``b`` and ``c``; two-sided."""
+    b, c = int(b), int(c)
+    if b + c == 0:
+        return 1.0
+    return float(_sps.binomtest(b, b + c, 0.5).pvalue)
+
+
+def bh_adjust(p_values) -> np.ndarray:
+    """Benjamini–Hochberg adjusted p-values (q-values), in the input's order.
+
+    ``q_(i) = min_{j >= i} m p_(j) / j``, capped at 1. NaN p-values are left NaN and do not count
+    towards ``m``.
+    """
+    p = np.asarray(p_values, dtype=float)
+    q = np.full(p.shape, np.nan)
+    ok = ~np.isnan(p)
+    m = int(ok.sum())
+    if m == 0:
+        return q
+    pv = p[ok]
+    order = np.argsort(pv, kind="stable")
+    ranked = pv[order] * m / np.arange(1, m + 1)
+    adjusted = np.minimum.accumulate(ranked[::-1])[::-1]
+    out = np.empty(m)
+    out[order] = np.minimum(adjusted, 1.0)
+    q[ok] = out
+    return q
+
+
+@dataclass(frozen=True)
+class BootstrapResult:
+    """A bootstrap estimate and the raw material behind it.
+
+    Attributes
+    ----------
+    estimate : Estimate
+        The statistic on the data with its interval (method ``bootstrap-bca`` or
+        ``bootstrap-percentile``).
+    distribution : ndarray
+        The statistic on each resample (read-only), so a user can re-derive.
+    standard_error : float
+        The standard deviation of ``distribution``.
+    """
+
+    estimate: Estimate
+    distribution: np.ndarray
+    standard_error: float
+
+
+def bootstrap(
+    data: Sequence[np.ndarray],
+    statistic: Callable[..., np.ndarray],
+    *,
+    n_resamples: int = 2000,
+    method: str = "bca",
+    confidence_level: float = 0.95,
+    rng=None,
+    batch: int | None = None,
+) -> BootstrapResult:
+    """Seeded, vectorised nonparametric bootstrap of a statistic of paired samples.
+
+    Parameters
+    ----------
+    data : sequence of 1-d arrays of equal length
+        Resampled together (paired): row ``i`` of every array moves as one.
+    statistic : callable
+        ``statistic(*arrays, axis=-1)`` returning the statistic along the last axis, so a whole batch of
+        resamples is evaluated in one call.
+    n_resamples : int, default=2000
+    method : {"bca", "percentile"}, default="bca"
+        BCa falls back to percentile (with a :class:`DegenerateWarning`) when it is not defined: a
+        degenerate bootstrap distribution or a jackknife with no spread.
+    confidence_level : float, default=0.95
+    rng : None, int or numpy.random.Generator
+    batch : int, optional
+        Resamples evaluated per call, to bound memory (default: all at once up to ~2e7 cells).
+
+    Returns
+    -------
+    BootstrapResult
+    """
+    if method not in ("bca", "percentile"):
+        raise ValueError(f"`method` must be 'bca' or 'percentile', got {method!r}")
+    arrays = [np.asarray(a) for a in data]
+    n = len(arrays[0])
+    if n == 0 or any(len(a) != n for a in arrays):
+        raise ValueError("`data` must be non-empty arrays of equal length")
+    rng = np.random.default_rng(rng)
+    z = z_value(confidence_level)
+    observed = float(statistic(*arrays, axis=-1))
+    if batch is None:
+        batch = max(1, min(n_resamples, int(2e7 // max(n, 1))))
+    dist = np.empty(n_resamples)
+    for start in range(0, n_resamples, batch):
+        stop = min(start + batch, n_resamples)
+        idx = rng.integers(0, n, size=(stop - start, n))
+        dist[start:stop] = statistic(*(a[idx] for a in arrays), axis=-1)
+    alpha = (1 - confidence_level) / 2
+    used = "bootstrap-percentile"
+    lo_q, hi_q = alpha, 1 - alpha
+    if method == "bca":
+        bca = _bca_quantiles(arrays, statistic, observed, dist, z)
+        if bca is None:
+            warnings.warn(
+                "BCa interval is not defined here (degenerate bootstrap or jackknife); "
+                "using the percentile interval",
+                DegenerateWarning,
+                stacklevel=2,
+            )
+        else:
+            lo_q, hi_q = bca
+            used = "bootstrap-bca"
+    low, high = np.quantile(dist, [lo_q, hi_q])
+    dist.setflags(write=False)
+    return BootstrapResult(
+        Estimate(observed, float(low), float(high), used), dist, float(np.std(dist, ddof=1))
+    )
+
+
+def _bca_quantiles(arrays, statistic, observed, dist, z):
+    below = np.mean(dist < observed) + 0.5 * np.mean(dist == observed)
+    if not 0.0 < below < 1.0:
+        return None
+    z0 = special.ndtri(below)
+    theta_jack = jackknife_values(arrays, statistic)
+    d = theta_jack.mean() - theta_jack
+    denom = 6.0 * np.sum(d * d) ** 1.5
+    if denom == 0 or not np.isfinite(denom):
+        return None
+    a = np.sum(d**3) / denom
+    out = []
+    for zq in (-z, z):
+        adj = z0 + (z0 + zq) / (1 - a * (z0 + zq))
+        out.append(float(special.ndtr(adj)))
+    return tuple(out)
+
+
+def jackknife_values(arrays: Sequence[np.ndarray], statistic) -> np.ndarray:
+    """The statistic with each row left out in turn (vectorised in blocks of rows)."""
+    n = len(arrays[0])
+    out = np.empty(n)
+    block = max(1, int(2e7 // max(n, 1)))
+    base = np.arange(n)
+    for start in range(0, n, block):
+        stop = min(start + block, n)
+        rows = np.arange(start, stop)
+        # row r of `idx` is 0..n-1 without r: take base[:n-1], shift by one from position r on
+        idx = np.broadcast_to(base[: n - 1], (stop - start, n - 1)).copy()
+        idx += idx >= rows[:, None]
+        out[start:stop] = statistic(*(a[idx] for a in arrays), axis=-1)
+    return out
