@@ -37,8 +37,8 @@ def fmt_estimate(est: dict | None, *, percent: bool = True) -> str:
     if percent:
         low = "–" if est.get("low") is None else f"{100 * est['low']:.1f}"
         high = "–" if est.get("high") is None else f"{100 * est['high']:.1f}"
-        return f"{100 * est['value']:.1f}% [{low}, {high}]"
-    return f"{est['value']:.3f} [{_num(est.get('low'), 2)}, {_num(est.get('high'), 2)}]"
+        return f"{100 * est['value']:.1f} [{low}–{high}]"
+    return f"{est['value']:.2f} [{_num(est.get('low'), 2)}–{_num(est.get('high'), 2)}]"
 
 
 def _q(q) -> str:
@@ -51,36 +51,52 @@ def _verdict_panel(verdict: dict) -> Panel:
     status = verdict.get("status", "no policy")
     counts = verdict.get("counts", {})
     head = Text(f"verdict: {status.upper()}", style=_STYLE.get(status, ""))
-    if verdict.get("rules"):
+    rules = verdict.get("rules", [])
+    if rules:
         head.append(f"   {counts.get('pass', 0)} pass · {counts.get('fail', 0)} fail · "
                     f"{counts.get('inconclusive', 0)} inconclusive", style="")
     lines = [head]
-    failing = [r for r in verdict.get("rules", []) if r["status"] != "pass"]
-    for rule in failing[:8]:
-        line = Text(f"{rule['status']:<12} ", style=_STYLE.get(rule["status"], ""))
-        line.append(f"{rule['name']}  {rule['message']}")
+    by_name: dict[str, list[dict]] = {}
+    for rule in rules:
+        by_name.setdefault(rule["name"], []).append(rule)
+    for name, group in by_name.items():
+        tally = {k: sum(r["status"] == k for r in group) for k in ("fail", "inconclusive", "pass")}
+        worst = next((r for k in ("fail", "inconclusive", "pass") for r in group if r["status"] == k))
+        line = Text(f"{worst['status']:<12} ", style=_STYLE.get(worst["status"], ""))
+        line.append(f"{name}: " + ", ".join(f"{v} {k}" for k, v in tally.items() if v))
+        line.append(f"; e.g. {worst['message']}", style="dim")
         lines.append(line)
-    if len(failing) > 8:
-        lines.append(Text(f"… and {len(failing) - 8} more (see report.md)"))
-    if not verdict.get("rules"):
+    if not rules:
         lines.append(Text("no policy rules: nothing was judged"))
     return Panel(Group(*lines), box=box.ROUNDED, title="probe", title_align="left")
 
 
 def _groups_table(groups: list[dict]) -> Table:
-    t = Table(title="Groups: selection rate and impact ratio (reference = most favoured)",
-              box=box.SIMPLE_HEAD, title_justify="left")
-    for col, just in (("attribute", "left"), ("group", "left"), ("rows", "right"),
-                      ("selection", "right"), ("impact ratio", "right"), ("4/5", "center"),
-                      ("error", "right"), ("FPR", "right"), ("FNR", "right")):
-        t.add_column(col, justify=just, overflow="fold")
+    t = Table(title="Groups: selection rate and impact ratio vs the most favoured group "
+                    "(95% intervals; error rates with intervals in the report files)",
+              box=box.SIMPLE_HEAD, title_justify="left", pad_edge=False)
+    for col, just in (("group", "left"), ("rows", "right"), ("selection %", "right"),
+                      ("impact ratio", "right"), ("4/5", "center"), ("FPR%", "right"),
+                      ("FNR%", "right")):
+        t.add_column(col, justify=just, overflow="fold", min_width=10 if col == "group" else None,
+                     no_wrap=col in ("selection %", "impact ratio"))
+    previous = None
     for g in groups:
-        flag = Text("below", style="bold red") if g["four_fifths_flag"] else Text("")
-        rows = f"{g['rows']}" + (" (<2%)" if g.get("small") else "")
-        t.add_row(Text(g["attribute"]), Text(g["group"]), rows, fmt_estimate(g["selection_rate"]),
+        if g["attribute"] != previous:
+            if previous is not None:
+                t.add_section()
+            t.add_row(Text(g["attribute"], style="bold"), *[""] * 6)
+            previous = g["attribute"]
+        flag = Text("<0.8", style="bold red") if g["four_fifths_flag"] else Text("")
+        rows = f"{g['rows']}" + (" <2%" if g.get("small") else "")
+        t.add_row(Text("  " + g["group"]), rows, fmt_estimate(g["selection_rate"]),
                   fmt_estimate(g["impact_ratio"], percent=False), flag,
-                  fmt_estimate(g["error_rate"]), fmt_estimate(g["fpr"]), fmt_estimate(g["fnr"]))
+                  _pct_plain(g["fpr"]), _pct_plain(g["fnr"]))
     return t
+
+
+def _pct_plain(est: dict | None) -> str:
+    return "–" if not est or est.get("value") is None else f"{100 * est['value']:.1f}"
 
 
 def _slices_table(slices: dict) -> Group:
@@ -88,7 +104,7 @@ def _slices_table(slices: dict) -> Group:
     t = Table(title=f"Slices where the {slices['metric']} rate is worst (overall {overall}; "
                     f"{slices.get('tested', 0)} tested)", box=box.SIMPLE_HEAD, title_justify="left")
     for col, just in (("#", "right"), ("slice", "left"), ("rows", "right"), ("share", "right"),
-                      ("rate [95% CI]", "right"), ("gap [95% CI]", "right"), ("q", "right")):
+                      ("rate % [95% CI]", "right"), ("gap pts [95% CI]", "right"), ("q", "right")):
         t.add_column(col, justify=just, overflow="fold")
     for s in slices["found"]:
         t.add_row(str(s["rank"]), Text(s["label"]), str(s["rows"]), _pct(s["share"]),

@@ -1,0 +1,265 @@
+"""The ``probe`` command line: parse arguments, build a plan, call the library, render, exit.
+
+``main(argv)`` returns the exit code (contract): 0 ran and the policy passed (or there was no policy),
+1 ran and the policy failed, 2 bad usage or bad input (one line on stderr; ``--debug`` shows the
+traceback). No computation happens here.
+"""
+
+from __future__ import annotations
+
+import argparse
+import shlex
+import sys
+import traceback
+from datetime import datetime
+from pathlib import Path
+from typing import Sequence
+
+from .errors import ProbeError
+
+__all__ = ["main", "EXIT_OK", "EXIT_POLICY_FAILED", "EXIT_BAD_INPUT"]
+
+EXIT_OK = 0
+EXIT_POLICY_FAILED = 1
+EXIT_BAD_INPUT = 2
+
+
+class _Parser(argparse.ArgumentParser):
+    """argparse that raises instead of exiting, so usage errors share the one error path."""
+
+    def error(self, message):  # noqa: D401 - argparse API
+        raise ProbeError(f"{self.prog}: {message}")
+
+
+def _list(text: str | None) -> list[str] | None:
+    if text is None:
+        return None
+    return [t.strip() for t in text.split(",") if t.strip()]
+
+
+def _common(p: argparse.ArgumentParser, *, model: bool = True, label: bool = True) -> None:
+    g = p.add_argument_group("data and model")
+    g.add_argument("--data", required=True, metavar="FILE", help="holdout table (CSV, Parquet, Feather)")
+    if label:
+        g.add_argument("--label", required=True, metavar="COL", help="the binary label column")
+        g.add_argument("--positive", metavar="VALUE", help="label value of the positive class")
+    if model:
+        g.add_argument("--model", required=True, metavar="SPEC",
+                       help="model file, py:module:attr, cmd:COMMAND, http://127.0.0.1:PORT/PATH "
+                            "or column:NAME")
+        g.add_argument("--threshold", type=float, default=0.5, help="decision = score >= T (0.5)")
+        g.add_argument("--favorable", choices=("positive", "negative"), default="positive",
+                       help="which decision is the favourable outcome (positive)")
+        g.add_argument("--features", metavar="A,B,...", help="the model's input columns, in order")
+        g.add_argument("--trust-pickle", action="store_true",
+                       help="allow loading pickle/joblib model files (this executes their code)")
+        g.add_argument("--trust-type", action="append", default=[], metavar="TYPE",
+                       help="a type to trust when loading a .skops file (repeatable)")
+    g.add_argument("--protected", metavar="A,B,...", help="protected attribute columns")
+    g.add_argument("--intersection", action="append", default=[], metavar="A,B",
+                   help="report the joint groups of these columns (repeatable)")
+    _output(p)
+
+
+def _output(p: argparse.ArgumentParser) -> None:
+    o = p.add_argument_group("output")
+    o.add_argument("--seed", type=int, default=0, help="random seed, written into the report (0)")
+    o.add_argument("--confidence-level", type=float, default=0.95, help="for every interval (0.95)")
+    o.add_argument("--out", metavar="DIR", help="report folder (default reports/<name>-<time>/)")
+    o.add_argument("--json", metavar="FILE", help="also write the report JSON to FILE")
+    o.add_argument("--quiet", action="store_true", help="print only the verdict line")
+    o.add_argument("--debug", action="store_true", help="show tracebacks")
+
+
+def _slice_options(p: argparse.ArgumentParser) -> None:
+    s = p.add_argument_group("slice search")
+    s.add_argument("--metric", choices=("error", "fpr", "fnr", "selection"), default="error")
+    s.add_argument("--depth", type=int, default=3, help="largest number of conditions (3)")
+    s.add_argument("--min-rows", type=int, help="smallest slice, in rows of the metric's population")
+    s.add_argument("--bins", type=int, default=5, help="quantile bins per numeric column (5)")
+    s.add_argument("--top", type=int, default=10, help="slices to report (10)")
+    s.add_argument("--columns", metavar="A,B,...", help="search only these columns")
+    s.add_argument("--exclude", metavar="A,B,...", help="never slice on these columns")
+    s.add_argument("--no-split", action="store_true",
+                   help="search and estimate on all rows (small data); multiplicity over all tested")
+    s.add_argument("--interval", choices=("wilson", "bootstrap"), default="wilson")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = _Parser(prog="probe", description="Test a trained binary classifier before release.")
+    from . import __version__
+
+    parser.add_argument("--version", action="version", version=f"probe {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+
+    p = sub.add_parser("demo", help="build an invented scenario (data + model) and probe it")
+    p.add_argument("scenario", nargs="?", default="lending", help="lending (default), hiring, claims")
+    p.add_argument("--rebuild", action="store_true", help="regenerate the scenario's data and model")
+    p.add_argument("--list", action="store_true", help="list the scenarios and exit")
+    _output(p)
+
+    p = sub.add_parser("run", help="everything a plan file asks for, then the verdict")
+    p.add_argument("plan", metavar="PLAN.toml")
+    p.add_argument("--fail-on-inconclusive", action="store_true",
+                   help="an inconclusive rule fails the run")
+    _output(p)
+
+    p = sub.add_parser("groups", help="rates, impact ratios and differences per protected group")
+    _common(p)
+
+    p = sub.add_parser("slices", help="the subgroups where the model fails, with honest intervals")
+    _common(p)
+    _slice_options(p)
+
+    p = sub.add_parser("flips", help="do decisions move when a protected attribute is changed?")
+    _common(p)
+    f = p.add_argument_group("flips")
+    f.add_argument("--mode", default="direct,transport,twins", metavar="M[,M]",
+                   help="direct, transport, twins (all three)")
+    f.add_argument("--reference", help="flip only into this value")
+    f.add_argument("--proxies", metavar="A,B,...", help="proxies to move in transport mode")
+    f.add_argument("--k", type=int, default=5, help="twins per person (5)")
+
+    p = sub.add_parser("proxies", help="which features stand in for a protected attribute (no model)")
+    _common(p, model=False, label=False)
+    p.add_argument("--label", metavar="COL", help="label column, left out of the features")
+    p.add_argument("--features", metavar="A,B,...", help="candidate features (default: all others)")
+
+    p = sub.add_parser("compare", help="candidate vs production on the same rows")
+    _common(p)
+    p.add_argument("--baseline", required=True, metavar="SPEC", help="the production model")
+    p.add_argument("--metric", choices=("error", "fpr", "fnr", "selection"), default="error")
+    p.add_argument("--depth", type=int, default=3)
+    p.add_argument("--min-rows", type=int)
+    return parser
+
+
+def _plan_dict(args) -> dict:
+    """The plan (as the TOML would hold it) from a subcommand's flags."""
+    data = {"path": str(Path(args.data).resolve())}
+    if getattr(args, "label", None):
+        data["label"] = args.label
+    if getattr(args, "positive", None) is not None:
+        data["positive"] = args.positive
+    if args.protected:
+        data["protected"] = _list(args.protected)
+    if args.intersection:
+        data["intersections"] = [_list(i) for i in args.intersection]
+    raw: dict = {"name": args.command, "seed": args.seed, "confidence_level": args.confidence_level,
+                 "data": data}
+    if getattr(args, "model", None):
+        if getattr(args, "features", None):
+            data["features"] = _list(args.features)
+        raw["model"] = {"spec": args.model, "threshold": args.threshold,
+                        "favorable": args.favorable, "trust_pickle": args.trust_pickle,
+                        "trusted_types": args.trust_type}
+    if args.command == "slices":
+        raw["slices"] = {"metric": args.metric, "depth": args.depth, "bins": args.bins,
+                         "top": args.top, "split": not args.no_split, "interval": args.interval,
+                         "exclude": _list(args.exclude) or []}
+        if args.min_rows is not None:
+            raw["slices"]["min_rows"] = args.min_rows
+        if args.columns:
+            raw["slices"]["columns"] = _list(args.columns)
+    elif args.command == "flips":
+        if not args.protected:
+            raise ProbeError("probe flips: --protected names the attribute to flip")
+        raw["flips"] = {"attributes": _list(args.protected), "modes": _list(args.mode), "k": args.k}
+        if args.reference is not None:
+            raw["flips"]["reference"] = args.reference
+        if args.proxies:
+            raw["flips"]["proxies"] = _list(args.proxies)
+    elif args.command == "proxies":
+        if not args.protected:
+            raise ProbeError("probe proxies: --protected names the attribute(s)")
+        raw["proxies"] = {"attributes": _list(args.protected)}
+        if args.features:
+            raw["proxies"]["features"] = _list(args.features)
+    elif args.command == "compare":
+        raw["compare"] = {"baseline": args.baseline, "metric": args.metric}
+        raw["slices"] = {"depth": args.depth}
+        if args.min_rows is not None:
+            raw["slices"]["min_rows"] = args.min_rows
+    return raw
+
+
+def _out_dir(args, plan) -> Path | None:
+    if args.out:
+        return Path(args.out)
+    if args.command in ("run", "demo"):
+        if plan.report.out:
+            return plan.resolve(plan.report.out)
+        stamp = datetime.now().strftime("%Y%m%d-%H%M%S")
+        return Path("reports") / f"{plan.name}-{stamp}"
+    return None
+
+
+def _execute(args, console) -> int:
+    from . import pipeline
+    from .plan import load_plan, plan_from_dict
+    from .report import terminal
+    from .report.files import write_report
+    from .report.json import to_json
+
+    if args.command == "demo":
+        from .scenarios import SCENARIOS, build_scenario
+
+        if args.list:
+            for name in SCENARIOS:
+                console.print(name)
+            return EXIT_OK
+        if not args.quiet:
+            console.print(f"building scenario [bold]{args.scenario}[/] (cached after the first run) …")
+        built = build_scenario(args.scenario, force=args.rebuild)
+        plan = load_plan(built.plan_path)
+        plan = plan.with_overrides(seed=args.seed, confidence_level=args.confidence_level,
+                                   name=f"demo-{args.scenario}")
+    elif args.command == "run":
+        plan = load_plan(args.plan)
+        if args.fail_on_inconclusive:
+            from dataclasses import replace
+
+            plan = plan.with_overrides(policy=replace(plan.policy, fail_on_inconclusive=True))
+    else:
+        plan = plan_from_dict(_plan_dict(args))
+
+    command = "probe " + " ".join(shlex.quote(a) for a in sys.argv[1:]) if args.argv is None else \
+        "probe " + " ".join(shlex.quote(a) for a in args.argv)
+    with terminal.progress(console, enabled=not args.quiet) as progress:
+        report = pipeline.run_plan(plan, command=command, progress=progress)
+
+    out = _out_dir(args, plan)
+    written = {}
+    if out is not None:
+        written = write_report(report, out, formats=plan.report.formats, json_text=to_json(report))
+    if args.json:
+        written["json-copy"] = write_report(report, Path(args.json).parent or Path("."),
+                                            formats=("json",), json_text=to_json(report),
+                                            names={"json": Path(args.json).name})["json"]
+    terminal.render(report, console, quiet=args.quiet, written=written)
+    return EXIT_POLICY_FAILED if report["verdict"]["passed"] is False else EXIT_OK
+
+
+def main(argv: Sequence[str] | None = None, *, console=None) -> int:
+    """Run the command line; return the exit code."""
+    from rich.console import Console
+
+    console = console or Console(highlight=False)
+    err = Console(stderr=True, highlight=False, soft_wrap=True)
+    debug = "--debug" in (argv if argv is not None else sys.argv[1:])
+    try:
+        parser = build_parser()
+        args = parser.parse_args(argv)
+        args.argv = None if argv is None else list(argv)
+        if args.command is None:
+            parser.print_help(console.file)
+            return EXIT_BAD_INPUT
+        return _execute(args, console)
+    except ProbeError as exc:
+        if debug:
+            traceback.print_exc()
+        err.print(f"error: {exc}", markup=False)
+        return EXIT_BAD_INPUT
+    except KeyboardInterrupt:
+        err.print("interrupted", markup=False)
+        return 130

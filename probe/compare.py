@@ -1,0 +1,211 @@
+"""Candidate against baseline on the same rows: paired differences, and where the candidate is worse.
+
+For each metric (error, FPR, FNR, selection) both models' rates get Wilson intervals and their paired
+difference (candidate minus baseline) an interval from a paired bootstrap. Because each row's pair of
+0/1 outcomes falls in one of four cells, resampling rows is exactly resampling the four cell counts
+from a multinomial, which is how it is done here (fast and exact, any number of rows). The p-value is
+the exact McNemar test on the discordant cells. Then the slice search runs on the per-row paired
+difference, oriented so that larger is worse for the candidate (``worse_slices``).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from .errors import DataError
+from .slices import METRICS, metric_outcome, search_slices
+from .stats import Estimate, mcnemar_pvalue, wilson, z_value
+
+__all__ = ["MetricComparison", "Comparison", "compare_models", "paired_difference"]
+
+_WORSE_IS_LOWER = {"selection"}
+
+
+@dataclass(frozen=True)
+class MetricComparison:
+    """One metric, candidate against baseline.
+
+    Attributes
+    ----------
+    metric : str
+    candidate, baseline : Estimate
+        Wilson intervals.
+    difference : Estimate
+        Candidate minus baseline, paired bootstrap percentile interval.
+    p_value : float
+        Exact McNemar test on the discordant rows.
+    discordant : tuple of int
+        (rows where only the candidate has the outcome, rows where only the baseline has it).
+    """
+
+    metric: str
+    candidate: Estimate
+    baseline: Estimate
+    difference: Estimate
+    p_value: float
+    discordant: tuple[int, int]
+
+    def to_dict(self) -> dict:
+        return {"metric": self.metric, "candidate": self.candidate.to_dict(),
+                "baseline": self.baseline.to_dict(), "difference": self.difference.to_dict(),
+                "p_value": self.p_value, "test": "mcnemar-exact",
+                "discordant": list(self.discordant),
+                "worse_if": "lower" if self.metric in _WORSE_IS_LOWER else "higher"}
+
+
+@dataclass(frozen=True)
+class Comparison:
+    """Candidate vs baseline.
+
+    Attributes
+    ----------
+    metric : str
+        The metric the slice search ran on.
+    metrics : tuple of MetricComparison
+        All four metrics; ``overall`` is the one for ``metric``.
+    worse_slices : SliceFindings
+        Slices where the candidate is worse (the paired difference oriented so larger is worse).
+    agreement : float
+        Share of rows where the two models' decisions agree.
+    """
+
+    metric: str
+    metrics: tuple[MetricComparison, ...]
+    worse_slices: object
+    agreement: float
+
+    @property
+    def overall(self) -> MetricComparison:
+        return next(m for m in self.metrics if m.metric == self.metric)
+
+    def to_dict(self) -> dict:
+        found = self.worse_slices.to_dict()
+        return {"metric": self.metric, "agreement": self.agreement,
+                "overall": self.overall.to_dict(),
+                "metrics": [m.to_dict() for m in self.metrics],
+                "worse_search": {k: v for k, v in found.items() if k != "found"},
+                "worse_slices": found["found"]}
+
+    def to_frame(self) -> pd.DataFrame:
+        return pd.DataFrame.from_records([
+            {"metric": m.metric, "candidate": m.candidate.value, "baseline": m.baseline.value,
+             "difference": m.difference.value, "difference_low": m.difference.low,
+             "difference_high": m.difference.high, "p_value": m.p_value}
+            for m in self.metrics
+        ])
+
+
+def paired_difference(cand, base, *, n_resamples: int = 4000, confidence_level: float = 0.95,
+                      rng=None) -> tuple[Estimate, float, tuple[int, int]]:
+    """Difference of two paired 0/1 rates with a paired-bootstrap interval and McNemar's p-value.
+
+    Parameters
+    ----------
+    cand, base : array_like of bool
+        Each row's outcome under the candidate and the baseline (same rows, same population).
+
+    Returns
+    -------
+    (Estimate, p_value, (b, c))
+        ``b`` rows where only the candidate has the outcome, ``c`` where only the baseline has it.
+    """
+    cand = np.asarray(cand, dtype=bool)
+    base = np.asarray(base, dtype=bool)
+    n = len(cand)
+    if n == 0:
+        nan = float("nan")
+        return Estimate(nan, nan, nan, "paired-bootstrap-percentile"), nan, (0, 0)
+    cells = np.array([np.sum(cand & base), np.sum(cand & ~base), np.sum(~cand & base),
+                      np.sum(~cand & ~base)], dtype=float)
+    rng = np.random.default_rng(rng)
+    draws = rng.multinomial(n, cells / n, size=n_resamples)
+    dist = (draws[:, 1] - draws[:, 2]) / n
+    alpha = (1 - confidence_level) / 2
+    low, high = np.quantile(dist, [alpha, 1 - alpha])
+    b, c = int(cells[1]), int(cells[2])
+    return (Estimate((b - c) / n, float(low), float(high), "paired-bootstrap-percentile"),
+            mcnemar_pvalue(b, c), (b, c))
+
+
+def compare_models(
+    X: pd.DataFrame,
+    y_true,
+    y_pred,
+    y_pred_baseline,
+    *,
+    metric: str = "error",
+    favorable: bool = True,
+    depth: int = 3,
+    min_rows: int | None = None,
+    columns=None,
+    exclude=(),
+    top: int = 10,
+    confidence_level: float = 0.95,
+    n_resamples: int = 4000,
+    rng=0,
+) -> Comparison:
+    """Compare a candidate's decisions with a baseline's on the same labelled rows.
+
+    Parameters
+    ----------
+    X : pandas.DataFrame
+        The rows (slice columns for the worse-slice search).
+    y_true : array_like of bool
+        Label-positive indicator.
+    y_pred, y_pred_baseline : array_like of bool
+        Positive decisions of the candidate and of the baseline (production) model.
+    metric : {"error", "fpr", "fnr", "selection"}, default="error"
+        The metric the worse-slice search runs on (all four are compared overall).
+    favorable : bool, default=True
+    depth, min_rows, columns, exclude, top
+        Passed to the slice search.
+    confidence_level : float, default=0.95
+    n_resamples : int, default=4000
+        Paired bootstrap resamples (of the four cell counts).
+    rng : None, int or numpy.random.Generator
+
+    Returns
+    -------
+    Comparison
+    """
+    if metric not in METRICS:
+        raise DataError(f"`metric` must be one of {', '.join(METRICS)}, got {metric!r}")
+    y_true = np.asarray(y_true, dtype=bool)
+    cand = np.asarray(y_pred, dtype=bool)
+    base = np.asarray(y_pred_baseline, dtype=bool)
+    if not (len(y_true) == len(cand) == len(base) == len(X)):
+        raise DataError(
+            f"candidate and baseline must be scored on the same rows: got {len(cand)} and "
+            f"{len(base)} decisions for {len(X)} rows"
+        )
+    z_value(confidence_level)
+    rng = np.random.default_rng(rng)
+    boot_seed, search_seed = rng.spawn(2)
+    results = []
+    for name in METRICS:
+        c_out, mask = metric_outcome(y_true, cand, name, favorable=favorable)
+        b_out, _ = metric_outcome(y_true, base, name, favorable=favorable)
+        c_out, b_out = c_out[mask].astype(bool), b_out[mask].astype(bool)
+        diff, p, disc = paired_difference(c_out, b_out, n_resamples=n_resamples,
+                                          confidence_level=confidence_level, rng=boot_seed)
+        m = int(mask.sum())
+        results.append(MetricComparison(
+            name,
+            wilson(int(c_out.sum()), m, confidence_level=confidence_level),
+            wilson(int(b_out.sum()), m, confidence_level=confidence_level),
+            diff, p, disc,
+        ))
+    c_out, mask = metric_outcome(y_true, cand, metric, favorable=favorable)
+    b_out, _ = metric_outcome(y_true, base, metric, favorable=favorable)
+    worse = c_out.astype(float) - b_out.astype(float)
+    if metric in _WORSE_IS_LOWER:
+        worse = -worse
+    found = search_slices(
+        X, worse, base=mask, depth=depth, min_rows=min_rows, columns=columns, exclude=exclude,
+        top=top, confidence_level=confidence_level, rng=search_seed,
+        metric=f"paired {metric} difference (candidate worse > 0)",
+    )
+    return Comparison(metric, tuple(results), found, float(np.mean(cand == base)))

@@ -1,0 +1,379 @@
+"""Turning data columns into small integer codes with readable predicate labels.
+
+Each candidate slice column becomes one array of small unsigned integers (``uint8`` up to 255 levels,
+``uint16`` beyond), and every code has a predicate ``{"column", "op", "value"}`` and a label a person
+can read:
+
+- **numeric** columns are cut at quantiles into ``bins`` intervals (default 5). Edges are data values,
+  so ties collapse bins instead of making empty ones, and each edge is then moved down to the
+  roundest number that still separates exactly the same rows (``25`` rather than ``24.83``). Bins are
+  ``[low, high)``: ``age in [25, 34)``, ``income >= 81,200``, ``utilisation < 0.21``. A numeric column
+  with no more distinct values than ``bins`` keeps its values as levels (``children = 2``).
+- **categorical** columns (strings, pandas categoricals, objects) keep their frequent levels (at
+  least ``min_level_share`` of the rows, at most ``max_levels`` of them, most frequent first); the rest
+  fall into one ``other`` level (predicate op ``"not in"`` with the named levels as its value).
+- **boolean** columns keep ``False`` and ``True``.
+- Any column with missing values gets a ``missing`` level (op ``"missing"``, ``x is missing``).
+
+Columns that cannot make a useful slice are left out with a note in :attr:`Encoding.notes`: a
+constant column; an identifier (a string column with a distinct value on nearly every row, or an
+integer column with a distinct value on every row spread over a dense range, like a row number);
+a date/time column.
+"""
+
+from __future__ import annotations
+
+import difflib
+import math
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from .errors import DataError, PlanError
+
+__all__ = ["EncodedColumn", "Encoding", "encode_columns"]
+
+_EDGE_WINDOW = 0.05  # an edge may move this share of a bin's rows (over the bins) to become round
+_NEAR_UNIQUE = 0.5  # a string column with distinct values on more than half its rows identifies rows
+
+
+@dataclass(frozen=True)
+class EncodedColumn:
+    """One column as integer codes.
+
+    Attributes
+    ----------
+    name : str
+        The column's name in the frame.
+    kind : str
+        ``"numeric"``, ``"categorical"`` or ``"boolean"``.
+    codes : ndarray of uint8 or uint16
+        The level of every row (read-only).
+    labels : tuple of str
+        A readable label per level, e.g. ``"age in [25, 34)"``.
+    predicates : tuple of dict
+        Per level ``{"column", "op", "value"}``; op ``"=="`` (a level), ``"in"`` (a numeric bin,
+        value ``[low, high)`` with ``None`` for an open end), ``"not in"`` (the ``other`` level,
+        value the named levels) or ``"missing"``.
+    """
+
+    name: str
+    kind: str
+    codes: np.ndarray
+    labels: tuple
+    predicates: tuple
+
+    @property
+    def n_levels(self) -> int:
+        """How many levels (codes ``0 .. n_levels - 1``)."""
+        return len(self.labels)
+
+
+@dataclass(frozen=True)
+class Encoding:
+    """The encoded slice columns of a frame.
+
+    Attributes
+    ----------
+    columns : tuple of EncodedColumn
+        In the frame's column order.
+    n_rows : int
+        Rows of the frame.
+    notes : tuple of str
+        One line per column left out, and why.
+    """
+
+    columns: tuple
+    n_rows: int
+    notes: tuple
+
+    @property
+    def names(self) -> tuple:
+        """The encoded columns' names."""
+        return tuple(c.name for c in self.columns)
+
+    def __getitem__(self, name: str) -> EncodedColumn:
+        for c in self.columns:
+            if c.name == name:
+                return c
+        raise KeyError(name)
+
+    def to_frame(self) -> pd.DataFrame:
+        """One row per level: column, code, label, op, value and how many rows it holds."""
+        rows = []
+        for c in self.columns:
+            counts = np.bincount(c.codes, minlength=c.n_levels)
+            for code, (label, pred) in enumerate(zip(c.labels, c.predicates)):
+                rows.append(
+                    {"column": c.name, "code": code, "label": label, "op": pred["op"],
+                     "value": pred["value"], "rows": int(counts[code])}
+                )
+        return pd.DataFrame(rows, columns=["column", "code", "label", "op", "value", "rows"])
+
+
+def encode_columns(
+    frame: pd.DataFrame,
+    *,
+    columns=None,
+    exclude=(),
+    bins: int = 5,
+    max_levels: int = 20,
+    min_level_share: float = 0.01,
+) -> Encoding:
+    """Encode the slice columns of ``frame`` as small integer codes with readable labels.
+
+    Parameters
+    ----------
+    frame : pandas.DataFrame
+        Not modified.
+    columns : sequence of str, optional
+        The columns to encode (default: all of them).
+    exclude : sequence of str, default=()
+        Columns never to encode (the label and score columns, for one).
+    bins : int, default=5
+        Quantile bins per numeric column (fewer when ties collapse them).
+    max_levels : int, default=20
+        Most named levels kept per categorical column; the rest go to ``other``.
+    min_level_share : float, default=0.01
+        A categorical level needs at least this share of the rows to be named.
+
+    Returns
+    -------
+    Encoding
+
+    Raises
+    ------
+    DataError
+        A name in ``columns`` or ``exclude`` is not a column (the message suggests close matches).
+    PlanError
+        An option is out of range.
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> frame = pd.DataFrame({"age": [20, 30, 40, 50, 60, 70] * 5, "ref": [f"r{i}" for i in range(30)]})
+    >>> enc = encode_columns(frame, bins=2)
+    >>> enc["age"].labels
+    ('age < 50', 'age >= 50')
+    >>> enc.notes
+    ('`ref` left out: it identifies rows (30 distinct values in 30 rows)',)
+    """
+    if not isinstance(frame, pd.DataFrame):
+        raise DataError(f"slice columns must come as a pandas DataFrame, got {type(frame).__name__}")
+    if not (isinstance(bins, (int, np.integer)) and bins >= 2):
+        raise PlanError(f"`bins` must be an integer of at least 2, got {bins!r}")
+    if not (isinstance(max_levels, (int, np.integer)) and 1 <= max_levels <= 250):
+        raise PlanError(f"`max_levels` must be an integer from 1 to 250, got {max_levels!r}")
+    if not 0.0 <= min_level_share < 1.0:
+        raise PlanError(f"`min_level_share` must lie in [0, 1), got {min_level_share!r}")
+    names = [str(c) for c in frame.columns]
+    lookup = dict(zip(names, frame.columns))
+    exclude = [exclude] if isinstance(exclude, str) else list(exclude)
+    _check_known(exclude, names, "exclude")
+    if columns is None:
+        wanted = names
+    else:
+        wanted = [columns] if isinstance(columns, str) else list(columns)
+        _check_known(wanted, names, "columns")
+        wanted = list(dict.fromkeys(str(c) for c in wanted))
+    dropped = {str(c) for c in exclude}
+    encoded, notes = [], []
+    for name in wanted:
+        if name in dropped:
+            continue
+        col, note = _encode_one(name, frame[lookup[name]], bins, max_levels, min_level_share)
+        if col is None:
+            notes.append(note)
+        else:
+            encoded.append(col)
+    return Encoding(tuple(encoded), len(frame), tuple(notes))
+
+
+def _check_known(asked, names, option):
+    unknown = [str(c) for c in asked if str(c) not in names]
+    if not unknown:
+        return
+    hints = []
+    for u in unknown:
+        close = difflib.get_close_matches(u, names, n=3, cutoff=0.6)
+        hints.append(f"`{u}`" + (f" (did you mean {', '.join(f'`{c}`' for c in close)}?)" if close else ""))
+    raise DataError(
+        f"`{option}` names {'a column' if len(unknown) == 1 else 'columns'} not in the data: "
+        f"{', '.join(hints)}; the columns are {', '.join(f'`{n}`' for n in names[:20])}"
+        + (" …" if len(names) > 20 else "")
+    )
+
+
+def _encode_one(name, series, bins, max_levels, min_level_share):
+    values = series.array if isinstance(series.dtype, pd.CategoricalDtype) else series.to_numpy()
+    missing = pd.isna(series).to_numpy()
+    n, n_missing = len(series), int(missing.sum())
+    present = series[~missing]
+    if pd.api.types.is_datetime64_any_dtype(series) or pd.api.types.is_timedelta64_dtype(series):
+        return None, f"`{name}` left out: date/time columns are not sliced (derive a feature from it)"
+    numeric = pd.api.types.is_numeric_dtype(series) and not pd.api.types.is_bool_dtype(series)
+    if numeric:  # one sort serves the distinct count, the quantiles and the edges
+        srt = np.sort(np.asarray(present, dtype=float))
+        uniq = srt[np.r_[True, srt[1:] != srt[:-1]]] if len(srt) else srt
+        n_unique = len(uniq)
+    else:
+        n_unique = int(present.nunique())
+    if n_unique + (n_missing > 0) <= 1:
+        return None, f"`{name}` left out: it is constant"
+    if pd.api.types.is_bool_dtype(series):
+        return _levels(name, "boolean", values, missing, [False, True]), None
+    if numeric:
+        if pd.api.types.is_integer_dtype(series) and n_unique == len(srt) and len(srt) >= 20:
+            span = float(srt[-1] - srt[0]) + 1.0
+            if span <= 2.0 * len(srt):
+                return None, (f"`{name}` left out: it identifies rows "
+                              f"({n_unique} distinct integers in {len(srt)} rows)")
+        if n_unique <= bins:
+            return _levels(name, "numeric", values, missing, uniq.tolist()), None
+        x = np.asarray(series.to_numpy(dtype=float, na_value=np.nan))
+        return _bin(name, x, missing, bins, srt, uniq), None
+    if n_unique > max_levels and n_unique > _NEAR_UNIQUE * len(present):
+        return None, f"`{name}` left out: it identifies rows ({n_unique} distinct values in {len(present)} rows)"
+    counts = present.value_counts(sort=True)
+    # most frequent first; ties broken by the level's text so the encoding is deterministic
+    order = sorted(counts.items(), key=lambda kv: (-kv[1], str(kv[0])))
+    named = [lv for lv, c in order[:max_levels] if c >= min_level_share * n]
+    if not named:
+        named = [order[0][0]]
+    return _levels(name, "categorical", values, missing, named, other=len(named) < n_unique), None
+
+
+def _py(v):
+    return v.item() if isinstance(v, np.generic) else v
+
+
+def _levels(name, kind, values, missing, levels, other=False):
+    """Codes for explicit levels (+ other + missing)."""
+    levels = [_py(v) for v in levels]
+    n_levels = len(levels) + bool(other) + bool(missing.any())
+    # one hashing pass: position among the named levels, -1 for the rest and for missing values
+    pos = _positions(values, levels)
+    pos[missing] = -1
+    codes = np.where(pos >= 0, pos, len(levels)).astype(np.uint8 if n_levels <= 255 else np.uint16)
+    labels, preds = [], []
+    for lv in levels:
+        labels.append(f"{name} = {_fmt_level(lv)}")
+        preds.append({"column": name, "op": "==", "value": lv})
+    if other:
+        labels.append(f"{name} = other")
+        preds.append({"column": name, "op": "not in", "value": list(levels)})
+    if missing.any():
+        codes[missing] = len(labels)
+        labels.append(f"{name} is missing")
+        preds.append({"column": name, "op": "missing", "value": None})
+    codes.setflags(write=False)
+    return EncodedColumn(name, kind, codes, tuple(labels), tuple(preds))
+
+
+def _positions(values, levels):
+    """Each value's position among ``levels`` (-1 if absent) by hashing or a sorted search."""
+    if isinstance(values, pd.Categorical):
+        lookup = pd.Index(levels, dtype=object).get_indexer(pd.Index(values.categories, dtype=object))
+        lookup = np.append(lookup, -1)  # code -1 (missing) indexes the last entry
+        return lookup[values.codes]
+    if values.dtype.kind in "biuf":
+        lv = np.asarray(levels, dtype=float)
+        order = np.argsort(lv)
+        xv = values.astype(float)
+        idx = np.minimum(np.searchsorted(lv[order], xv), len(lv) - 1)
+        return np.where(lv[order][idx] == xv, order[idx], -1)
+    return pd.Index(levels, dtype=object).get_indexer(pd.Index(values, dtype=object))
+
+
+def _fmt_level(v):
+    if isinstance(v, float):
+        return _fmt_number(v)
+    return str(v)
+
+
+def _bin(name, x, missing, bins, present, uniq):
+    """Quantile bins ``[e_j, e_{j+1})``; each edge the roundest number near its quantile.
+
+    Near means within ``_EDGE_WINDOW / bins`` of the quantile's rank on either side (1 % of the rows
+    with 5 bins), so bins stay close to equal-count; where that window holds a single tied value the
+    edge goes just above it, so a heavily tied value (70 % zeros) keeps a bin of its own. The codes are
+    cut at the rounded edges themselves, so every label states exactly the rows it holds.
+    """
+    probs = np.arange(1, bins) / bins
+    w = _EDGE_WINDOW / bins
+    q_mid, q_lo, q_hi = (np.quantile(present, p) for p in (probs, probs - w, probs + w))
+    edges = set()
+    for mid, lo, hi in zip(q_mid, q_lo, q_hi):
+        if hi <= lo:  # a tied value: the edge goes between it and the next value up
+            j = np.searchsorted(uniq, mid, side="right")
+            if j >= len(uniq):
+                continue
+            lo, hi = mid, uniq[j]
+        r = _round_edge(lo, hi)
+        if uniq[0] < r <= uniq[-1]:
+            edges.add(r)
+    if not edges:  # cannot happen with two distinct values, kept for safety
+        edges = {_round_edge(uniq[0], uniq[1])}
+    # two edges in the same gap between values would leave an empty bin: keep the first of them
+    below = np.searchsorted(present, sorted(edges), side="left")
+    kept, last = [], 0
+    for e, b in zip(sorted(edges), below):
+        if last < b < len(present):
+            kept.append(e)
+            last = b
+    edges = kept
+    edges_arr = np.asarray(edges, dtype=float)
+    codes_all = np.searchsorted(edges_arr, np.where(missing, 0.0, x), side="right")
+    n_levels = len(edges) + 1 + bool(missing.any())
+    codes = codes_all.astype(np.uint8 if n_levels <= 255 else np.uint16)
+    labels, preds = [], []
+    bounds = [None] + [int(e) if e == int(e) and abs(e) < 2**53 else e for e in edges] + [None]
+    for j in range(len(edges) + 1):
+        lo, hi = bounds[j], bounds[j + 1]
+        if lo is None:
+            labels.append(f"{name} < {_fmt_number(hi)}")
+        elif hi is None:
+            labels.append(f"{name} >= {_fmt_number(lo)}")
+        else:
+            labels.append(f"{name} in [{_fmt_number(lo)}, {_fmt_number(hi)})")
+        preds.append({"column": name, "op": "in", "value": [lo, hi]})
+    if missing.any():
+        codes[missing] = len(labels)
+        labels.append(f"{name} is missing")
+        preds.append({"column": name, "op": "missing", "value": None})
+    codes.setflags(write=False)
+    return EncodedColumn(name, "numeric", codes, tuple(labels), tuple(preds))
+
+
+def _round_edge(below: float, edge: float) -> float:
+    """The roundest number ``r`` with ``below < r <= edge``: any such ``r`` splits the rows alike.
+
+    Tries multiples of ``10**k`` (then ``5`` and ``2`` times that) from coarse to fine and keeps the first
+    that lands in ``(below, edge]``; the float actually returned is checked, not the decimal intended.
+    """
+    below, edge = float(below), float(edge)
+    if edge == 0.0:
+        return 0.0
+    top = math.floor(math.log10(max(abs(edge), abs(below), 1e-300))) + 1
+    for k in range(top, top - 18, -1):
+        for mult in (10, 5, 2, 1):
+            step = mult * 10.0 ** (k - 1)
+            r = math.floor(edge / step) * step
+            r = round(r, max(0, 2 - k))  # one digit more than the step needs, against float noise
+            if below < r <= edge:
+                return float(r) + 0.0
+    return edge
+
+
+def _fmt_number(v: float) -> str:
+    v = float(v)
+    if v != 0 and abs(v) < 1e-4:
+        return f"{v:.3g}"
+    if v == int(v) and abs(v) < 1e15:
+        return f"{int(v):,}"
+    text = np.format_float_positional(v, trim="-")
+    whole, _, frac = text.partition(".")
+    sign = "-" if whole.startswith("-") else ""
+    whole = f"{int(whole.lstrip('-') or 0):,}"
+    return f"{sign}{whole}.{frac}" if frac else f"{sign}{whole}"

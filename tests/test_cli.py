@@ -1,0 +1,119 @@
+"""The command line: exit codes, one-line errors, rendering, determinism of report.json."""
+
+import io
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+from rich.console import Console
+
+from probe.cli import EXIT_BAD_INPUT, EXIT_OK, EXIT_POLICY_FAILED, main
+
+
+def _console(width=120):
+    return Console(file=io.StringIO(), width=width, color_system=None, force_terminal=False)
+
+
+def _holdout(tmp_path, rate_b, n=2000, seed=0, name="h.csv"):
+    """Two groups; selection rate 0.5 in A and `rate_b` in B, decided by a score column."""
+    rng = np.random.default_rng(seed)
+    group = np.repeat(["A", "B"], n)
+    p = np.where(group == "A", 0.5, rate_b)
+    score = np.where(rng.uniform(size=2 * n) < p, 0.9, 0.1)
+    frame = pd.DataFrame({
+        "group": group,
+        "region[k]": rng.choice(["north", "south"], size=2 * n),  # brackets survive rendering
+        "income": rng.gamma(3.0, 10.0, size=2 * n).round(1),
+        "y": (rng.uniform(size=2 * n) < 0.5).astype(int),
+        "score": score,
+    })
+    path = tmp_path / name
+    frame.to_csv(path, index=False)
+    return path
+
+
+def _plan(tmp_path, data, *, policy="min_impact_ratio = 0.8", extra=""):
+    plan = tmp_path / "plan.toml"
+    plan.write_text(
+        f'[data]\npath = "{data.name}"\nlabel = "y"\nprotected = ["group"]\n'
+        f'[model]\nspec = "column:score"\n{extra}\n[policy]\n{policy}\n'
+        f'[report]\nout = "out"\n'
+    )
+    return plan
+
+
+@pytest.mark.parametrize("rate_b, n, code, status", [
+    (0.30, 2000, EXIT_POLICY_FAILED, "fail"),     # IR 0.6, interval well below 0.8
+    (0.50, 2000, EXIT_OK, "pass"),               # IR 1.0, interval well above 0.8
+    (0.40, 150, EXIT_OK, "inconclusive"),        # IR 0.8, small groups: straddles
+])
+def test_run_exit_codes_follow_the_verdict(tmp_path, rate_b, n, code, status):
+    plan = _plan(tmp_path, _holdout(tmp_path, rate_b, n=n))
+    console = _console()
+    assert main(["run", str(plan)], console=console) == code
+    report = json.loads((tmp_path / "out" / "report.json").read_text())
+    assert report["verdict"]["status"] == status
+    assert f"verdict: {status.upper()}" in console.file.getvalue()
+    if status == "inconclusive":
+        assert main(["run", str(plan), "--fail-on-inconclusive"], console=_console()) == EXIT_POLICY_FAILED
+
+
+def test_report_json_is_deterministic_apart_from_timings_and_dates(tmp_path):
+    data = _holdout(tmp_path, 0.35)
+    plan = _plan(tmp_path, data, extra="[slices]\nmetric = \"selection\"\ndepth = 2\n")
+    texts = []
+    for out in ("a", "b"):
+        assert main(["run", str(plan), "--out", str(tmp_path / out)], console=_console()) in (0, 1)
+        report = json.loads((tmp_path / out / "report.json").read_text())
+        del report["provenance"]["timings"], report["provenance"]["created"]
+        report["provenance"]["command"] = None
+        texts.append(json.dumps(report, sort_keys=True))
+    assert texts[0] == texts[1]
+    assert set(json.loads(texts[0])) >= {"schema", "provenance", "groups", "slices", "flips",
+                                         "comparison", "verdict"}
+
+
+def test_groups_command_renders_on_a_narrow_plain_console(tmp_path, capsys):
+    data = _holdout(tmp_path, 0.3)
+    argv = ["groups", "--model", "column:score", "--data", str(data), "--label", "y",
+            "--protected", "group,region[k]"]
+    for width in (100, 30):
+        console = _console(width=width)
+        assert main(argv, console=console) == EXIT_OK  # no policy: nothing to fail
+        text = console.file.getvalue()
+        assert "\x1b[" not in text and "legal finding" in text.replace("\n", " ")
+        assert width < 100 or "region[k]" in text
+
+
+@pytest.mark.parametrize("argv, needle", [
+    (["groups", "--model", "column:score", "--data", "MISSING.csv", "--label", "y"], "not found"),
+    (["groups", "--model", "column:score", "--data", "{data}", "--label", "yy"],
+     "label column `yy` is not in"),
+    (["groups", "--model", "column:scor", "--data", "{data}", "--label", "y"], "scor"),
+    (["groups", "--model", "column:score", "--data", "{data}", "--label", "income"], "not binary"),
+    (["groups", "--model", "column:score", "--data", "{data}", "--label", "y", "--positive", "7"],
+     "does not occur"),
+    (["groups", "--data", "{data}"], "required"),
+    (["frobnicate"], "invalid choice"),
+])
+def test_bad_input_is_one_line_and_exit_2(tmp_path, capsys, argv, needle):
+    data = _holdout(tmp_path, 0.3)
+    argv = [a.replace("{data}", str(data)) for a in argv]
+    assert main(argv, console=_console()) == EXIT_BAD_INPUT
+    err = capsys.readouterr().err.strip()
+    assert err.startswith("error: ") and needle in err
+    assert len(err.splitlines()) == 1 and "Traceback" not in err
+
+
+def test_unknown_plan_key_is_named(tmp_path, capsys):
+    plan = _plan(tmp_path, _holdout(tmp_path, 0.3), policy="min_impact_ration = 0.8")
+    assert main(["run", str(plan)], console=_console()) == EXIT_BAD_INPUT
+    assert "unknown key `min_impact_ration` in [policy]; did you mean `min_impact_ratio`" in capsys.readouterr().err
+
+
+def test_input_file_is_not_modified(tmp_path):
+    data = _holdout(tmp_path, 0.3)
+    before = data.read_bytes()
+    main(["run", str(_plan(tmp_path, data))], console=_console())
+    assert data.read_bytes() == before

