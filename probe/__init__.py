@@ -13,17 +13,28 @@ local law and licensed practice.
 __version__ = "0.1.0"
 
 from .adapters import Model, load_model
+from .compare import Comparison, compare_models
 from .data import Holdout, prepare_holdout, read_table
+from .encode import Encoding, encode_columns
 from .errors import DataError, DegenerateWarning, ModelError, PlanError, ProbeError, TrustError
+from .flips import FlipFindings, flip_test
 from .groups import GroupMetrics, group_metrics
+from .pipeline import run_plan
 from .plan import Plan, load_plan, plan_from_dict
+from .policy import Verdict, judge
+from .proxies import ProxyFindings, find_proxies
+from .scenarios import build_scenario
+from .slices import Slice, SliceFindings, find_slices, metric_outcome, search_slices
 from .stats import Estimate
 
 __all__ = [
     "__version__",
+    "Comparison",
     "DataError",
     "DegenerateWarning",
+    "Encoding",
     "Estimate",
+    "FlipFindings",
     "GroupMetrics",
     "Holdout",
     "Model",
@@ -31,11 +42,25 @@ __all__ = [
     "Plan",
     "PlanError",
     "ProbeError",
+    "ProxyFindings",
+    "Slice",
+    "SliceFindings",
     "TrustError",
+    "Verdict",
+    "build_scenario",
+    "compare_models",
+    "encode_columns",
+    "find_proxies",
+    "find_slices",
+    "flip_test",
     "group_metrics",
+    "judge",
     "load_model",
     "load_plan",
+    "metric_outcome",
     "plan_from_dict",
     "prepare_holdout",
     "read_table",
+    "run_plan",
+    "search_slices",
 ]

@@ -319,7 +319,9 @@ def direct_flips(model, X, attribute, *, reference=None, threshold=0.5, favorabl
         if ctx.unknown(dst):
             rows.append(_impossible_row(ctx, "direct", src, dst, notes))
             continue
-        cf = _set_column(X.iloc[idx], attribute, dst)
+        # a positional take is already a new frame; the shallow copy only drops pandas' "is a
+        # copy" flag, so setting a column never warns and never touches X
+        cf = _set_column(X.iloc[idx].copy(deep=False), attribute, dst)
         new = _scores(model, cf, f"the {len(idx)} rows of `{attribute}` = {src!r} set to {dst!r}")
         rows.append(_pair_row(ctx, "direct", src, dst, idx, base[idx], new, (attribute,)))
     return FlipFindings(attribute, "direct", tuple(rows), tuple(notes), caution, threshold,
@@ -342,6 +344,7 @@ def transport_flips(model, X, attribute, *, reference=None, proxies=None, n_prox
         return FlipFindings(attribute, "transport", (), tuple(notes), SCREEN_CAUTION, threshold,
                             favorable)
     moved = ((attribute,) if ctx.is_input else ()) + tuple(proxies)
+    prepared = {p: _prepare_proxy(X[p]) for p in proxies}
     base = _scores(model, X, "the original rows")
     rows = []
     for (src, dst), seed in zip(ctx.pairs, pair_seeds):
@@ -349,13 +352,13 @@ def transport_flips(model, X, attribute, *, reference=None, proxies=None, n_prox
         if ctx.is_input and ctx.unknown(dst):
             rows.append(_impossible_row(ctx, "transport", src, dst, notes, moved))
             continue
-        cf = X.iloc[idx].copy()
+        cf = X.iloc[idx].copy(deep=False)  # a new frame (see direct_flips); X is never touched
         if ctx.is_input:
-            cf = _set_column(cf, attribute, dst, copy=False)
+            cf = _set_column(cf, attribute, dst)
         tgt = ctx.group_rows[dst]
         pgen = np.random.default_rng(seed)
         for p in proxies:
-            cf[p] = _move_proxy(X[p], idx, tgt, pgen)
+            cf[p] = _move_proxy(X[p], prepared[p], idx, tgt, pgen)
         new = _scores(model, cf, f"the {len(idx)} rows of `{attribute}` = {src!r} transported "
                                  f"to {dst!r}")
         rows.append(_pair_row(ctx, "transport", src, dst, idx, base[idx], new, moved))
@@ -515,8 +518,8 @@ def _scores(model, frame, what) -> np.ndarray:
     return s
 
 
-def _set_column(frame, column, value, copy=True):
-    out = frame.copy() if copy else frame
+def _set_column(frame, column, value):
+    out = frame
     s = out[column]
     if isinstance(s.dtype, pd.CategoricalDtype):
         cats = s.cat.categories
@@ -676,31 +679,48 @@ def _largest_remainder(shares, total) -> np.ndarray:
     return base
 
 
-def _move_proxy(col: pd.Series, idx, tgt, gen):
-    src_vals = col.iloc[idx]
-    tgt_vals = col.iloc[tgt]
+def _prepare_proxy(col: pd.Series):
+    """Once per proxy: float values (numeric) or level codes in a fixed order plus, for each level,
+    one row holding it (categorical), so moved values are taken from the column itself and keep its
+    dtype exactly."""
     if is_numeric(col):
+        return ("numeric", col.to_numpy(dtype=float, na_value=np.nan))
+    codes, uniques = pd.factorize(col, sort=False, use_na_sentinel=True)
+    levels = list(uniques)
+    try:
+        order = sorted(range(len(levels)), key=lambda i: levels[i])
+    except TypeError:
+        order = sorted(range(len(levels)), key=lambda i: str(levels[i]))
+    rank = np.empty(len(levels), dtype=np.int64)
+    rank[order] = np.arange(len(levels))
+    codes = np.where(codes >= 0, rank[np.maximum(codes, 0)], -1)
+    first = np.full(len(levels), -1, dtype=np.int64)
+    ok = np.flatnonzero(codes >= 0)
+    first[codes[ok]] = ok  # some row holding each level (which one does not matter)
+    return ("categorical", codes, first)
+
+
+def _move_proxy(col: pd.Series, prepared, idx, tgt, gen):
+    if prepared[0] == "numeric":
+        v = prepared[1]
         integer = pd.api.types.is_integer_dtype(col.dtype)
-        mapped = quantile_map(src_vals.to_numpy(dtype=float, na_value=np.nan),
-                              tgt_vals.to_numpy(dtype=float, na_value=np.nan), integer=integer)
+        mapped = quantile_map(v[idx], v[tgt], integer=integer)
+        index = col.index[idx]
         if integer and not np.isnan(mapped).any():
-            return pd.Series(mapped, index=src_vals.index).astype(col.dtype)
-        return pd.Series(mapped, index=src_vals.index)
-    levels = list(attribute_levels(col))
-    cat = pd.Categorical(src_vals, categories=levels)
-    tgt_codes = pd.Categorical(tgt_vals, categories=levels).codes
-    tgt_counts = np.bincount(tgt_codes[tgt_codes >= 0], minlength=len(levels))
-    n_ok = int((cat.codes >= 0).sum())
+            return pd.Series(mapped, index=index).astype(col.dtype)
+        return pd.Series(mapped, index=index)
+    _, codes, first = prepared
+    src, tcodes = codes[idx], codes[tgt]
+    tgt_counts = np.bincount(tcodes[tcodes >= 0], minlength=len(first))
+    n_ok = int((src >= 0).sum())
     if tgt_counts.sum() == 0 or n_ok == 0:
-        return src_vals.copy()
+        return col.iloc[idx]
     need = _largest_remainder(tgt_counts / tgt_counts.sum(), n_ok)
-    new_codes = transport_categorical(cat.codes, need, gen)
-    if isinstance(col.dtype, pd.CategoricalDtype):
-        return pd.Series(pd.Categorical.from_codes(new_codes, dtype=col.dtype), index=src_vals.index)
-    arr = np.asarray(levels, dtype=object)[np.where(new_codes >= 0, new_codes, 0)]
-    out = pd.Series(arr, index=src_vals.index, dtype=object)
-    out[new_codes < 0] = src_vals[new_codes < 0]
-    return out.astype(col.dtype)
+    new_codes = transport_categorical(src, need, gen)
+    rows = np.where(new_codes >= 0, first[np.maximum(new_codes, 0)], idx)
+    out = col.iloc[rows]
+    out.index = col.index[idx]
+    return out
 
 
 def _choose_proxies(ctx, X, attribute, proxies, n_proxies, seed, notes):
@@ -773,14 +793,18 @@ def _encode_slice_column(s: pd.Series):
     if is_numeric(s):
         v = s.to_numpy(dtype=float, na_value=np.nan)
         ok = ~np.isnan(v)
-        uniq = np.unique(v[ok])
+        w = v[ok]
+        # quartile edges from an evenly strided sample of at most 50,000 rows: deterministic, and
+        # plenty for bin edges that only label where flips concentrate
+        w = w[:: max(1, len(w) // 50_000)]
+        edges = np.unique(np.quantile(w, [0.25, 0.5, 0.75])) if len(w) else np.empty(0)
+        uniq = np.unique(v[ok]) if len(edges) < 3 else edges  # only sort a column with few values
         codes = np.empty(len(v), dtype=np.int64)
         preds = []
-        if len(uniq) <= 4:
+        if len(uniq) <= 4 and len(edges) < 3:
             codes[ok] = np.searchsorted(uniq, v[ok])
             preds = [{"column": s.name, "op": "==", "value": _plain(u)} for u in uniq]
         else:
-            edges = np.unique(np.quantile(v[ok], [0.25, 0.5, 0.75]))
             codes[ok] = np.searchsorted(edges, v[ok], side="right")
             bounds = [None] + [float(e) for e in edges] + [None]
             preds = [{"column": s.name, "op": "in", "value": [bounds[i], bounds[i + 1]]}

@@ -112,7 +112,7 @@ def _fmt(x) -> str:
 def _judge(name, subject, threshold, est, *, upper: bool) -> RuleResult:
     if est is None or est.get("value") is None or est.get("low") is None or est.get("high") is None:
         return RuleResult(name, subject, threshold, est, "inconclusive",
-                          f"{subject}: not measured (undefined estimate)")
+                          "not measured (the estimate is undefined)")
     low, high, value = est["low"], est["high"], est["value"]
     shown = f"{_fmt(value)} [{_fmt(low)}, {_fmt(high)}]"
     if upper:
@@ -129,7 +129,7 @@ def _judge(name, subject, threshold, est, *, upper: bool) -> RuleResult:
             status, why = "fail", f"whole interval below the bound {threshold:g}"
         else:
             status, why = "inconclusive", f"interval straddles the bound {threshold:g}"
-    return RuleResult(name, subject, threshold, est, status, f"{subject}: {shown}; {why}")
+    return RuleResult(name, subject, threshold, est, status, f"{shown}: {why}")
 
 
 def _not_run(name, threshold, section) -> RuleResult:

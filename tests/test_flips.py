@@ -438,3 +438,27 @@ def test_bad_model_output_is_one_clear_error(fn, text):
     X = _credit(n=50)
     with pytest.raises(ModelError, match=text):
         flip_test(Wrapped(fn, ["sex", "income"]), X, "sex")
+
+
+def test_direct_flips_through_the_real_adapter_equal_brute_force():
+    from sklearn.compose import make_column_transformer
+    from sklearn.linear_model import LogisticRegression
+    from sklearn.pipeline import make_pipeline
+    from sklearn.preprocessing import OneHotEncoder
+
+    from probe.adapters import load_model
+
+    X = _credit(n=300, seed=8)[["sex", "income"]]
+    g = np.random.default_rng(8)
+    y = (X["income"] + 6 * (X["sex"] == "M") + g.normal(0, 6, len(X))) > 52
+    pipe = make_pipeline(make_column_transformer((OneHotEncoder(), ["sex"]), remainder="passthrough"),
+                         LogisticRegression()).fit(X, y)
+    model = load_model(pipe)
+    assert model.categories["sex"] == ("F", "M", "X")
+    res = flip_test(model, X, "sex", reference="M")
+    for row in res.rows:
+        src = X[X["sex"] == row.from_]
+        old = pipe.predict_proba(src)[:, 1] >= 0.5
+        new = pipe.predict_proba(src.assign(sex="M"))[:, 1] >= 0.5
+        assert row.flip_rate.value == (old != new).mean()
+        assert row.to_favorable.value == (~old & new).mean()

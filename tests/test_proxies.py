@@ -31,7 +31,7 @@ def _planted(n=3000, seed=1):
 
 @pytest.fixture(scope="module")
 def planted_findings():
-    return find_proxies(_planted(), "group", cv=3, n_repeats=3, rng=0)
+    return find_proxies(_planted(n=2000), "group", cv=3, n_repeats=2, rng=0)
 
 
 def test_planted_proxy_ranks_first_by_auc(planted_findings):
@@ -91,11 +91,12 @@ def test_identifier_does_not_win_by_overfitting():
 
 def test_multilevel_attribute_uses_macro_one_vs_rest():
     g = np.random.default_rng(3)
-    n = 3000
+    n = 1500
     region = g.choice(["n", "s", "e"], n)
     dialect = np.where(g.random(n) < 0.7, region, g.choice(["n", "s", "e"], n))
     X = pd.DataFrame({"region": region, "dialect": dialect, "noise": g.normal(size=n)})
-    f = find_proxies(X, "region", cv=3, n_repeats=2)
+    f = find_proxies(X, "region", cv=3, n_repeats=1)
+    assert f.multivariate_auc.value > 0.7 and f.rows[0].importance > 0.1
     assert f.top(1) == ("dialect",)
     # in-sample reference: per-level rates as scores, macro one-vs-rest (sklearn)
     rates = pd.crosstab(X["dialect"], X["region"], normalize="index")
@@ -186,3 +187,18 @@ def test_ucb_dept_is_a_proxy_for_gender_against_the_published_table():
     auc = roc_auc_score(y, s, sample_weight=w)
     assert auc > 0.7  # a strong proxy
     assert f.rows[0].auc == pytest.approx(auc, abs=0.01)  # cross-fitted vs in-sample: 6 levels
+
+
+# --- invented scenarios with documented planted proxies (scenarios/*/generate.py TRUTHS) ---------
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("name", ["lending", "hiring", "claims"])
+def test_scenario_planted_proxies_rank_first(name, built):
+    scenario = built(name)
+    truths = scenario.truths
+    frame = pd.read_parquet(scenario.data_path)
+    for attribute, proxy in truths["proxies"].items():
+        features = [c for c in truths["model_inputs"] if c != attribute]
+        found = find_proxies(frame, attribute, features=features, multivariate=False)
+        assert found.top(1) == (proxy,), (attribute, found.to_frame().head(3))

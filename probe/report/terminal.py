@@ -64,7 +64,7 @@ def _verdict_panel(verdict: dict) -> Panel:
         worst = next((r for k in ("fail", "inconclusive", "pass") for r in group if r["status"] == k))
         line = Text(f"{worst['status']:<12} ", style=_STYLE.get(worst["status"], ""))
         line.append(f"{name}: " + ", ".join(f"{v} {k}" for k, v in tally.items() if v))
-        line.append(f"; e.g. {worst['message']}", style="dim")
+        line.append(f"; e.g. {worst['subject']}: {worst['message']}", style="dim")
         lines.append(line)
     if not rules:
         lines.append(Text("no policy rules: nothing was judged"))
@@ -142,8 +142,7 @@ def _proxies_table(proxies: list[dict]) -> Group:
     parts = []
     for p in proxies:
         title = f"Proxies for {p.get('attribute')}"
-        multi = p.get("multivariate") or {}
-        auc = multi.get("auc")
+        auc = p.get("multivariate_auc")
         if auc:
             title += f" (all features together predict it with AUC {fmt_estimate(auc, percent=False)})"
         t = Table(title=title, box=box.SIMPLE_HEAD, title_justify="left")
