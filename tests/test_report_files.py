@@ -563,3 +563,25 @@ def test_number_formatting_helpers():
     assert fmt_p(0.0) == "< 1e-300" and fmt_p(0.00031) == "3.1e-04" and fmt_p(0.25) == "0.250"
     assert fmt_est({"value": 0.5, "low": None, "high": None, "method": "wilson"}) == "0.500"
     assert metric_name("fnr") == "false-negative rate" and metric_name("auc") == "auc rate"
+
+
+def test_proxies_section_renders_when_present():
+    from probe.report.html import render_html
+    from probe.report.markdown import render_markdown
+
+    report = example_report()
+    report["proxies"] = [{
+        "attribute": "sex", "multivariate_auc": {"value": 0.71, "low": 0.69, "high": 0.73,
+                                                 "method": "cv-fold-t"},
+        "features": [{"feature": "part_time|x", "mutual_information": 0.09, "auc": 0.68,
+                      "importance": 0.12},
+                     {"feature": "<b>income</b>", "mutual_information": 0.02, "auc": 0.55,
+                      "importance": 0.01}],
+    }]
+    md = render_markdown(report)
+    section = md[md.index("## Proxies"):]
+    assert "part\\_time\\|x" in section and "0.710 [0.690, 0.730]" in section
+    html_text = render_html(report)
+    assert 'id="proxies"' in html_text and "<b>income</b>" not in html_text
+    assert html_text.index('id="flips"') < html_text.index('id="proxies"') < html_text.index('id="comparison"')
+    assert "## Proxies" not in render_markdown(example_report())  # absent section: nothing rendered

@@ -349,6 +349,30 @@ def _flips(report: Mapping) -> str:
     return "".join(out) + "</section>"
 
 
+def _proxies(report: Mapping) -> str:
+    """Proxy rankings, one table per attribute; nothing when the section was not run."""
+    proxies = report.get("proxies")
+    if not proxies:
+        return ""
+    out = ['<section id="proxies"><h2>Proxies</h2>',
+           "<p>How well each feature alone stands in for the protected attribute (mutual "
+           "information, cross-fitted single-feature AUC) and how much the features together rely on "
+           "it (permutation importance in a model predicting the attribute).</p>"]
+    for p in proxies:
+        out.append(f"<h3>{_e(p.get('attribute'))}</h3>")
+        auc = p.get("multivariate_auc")
+        if auc:
+            out.append(f"<p>All features together predict it with AUC {_est(auc)}.</p>")
+        out.append(_table(
+            ["#", "feature", "mutual information", "AUC alone", "importance"],
+            ([str(i), _e(r.get("feature")), fmt_num(r.get("mutual_information")),
+              fmt_num(r.get("auc")), fmt_num(r.get("importance"))]
+             for i, r in enumerate(p.get("features") or [], start=1)),
+            num="rlrrr",
+        ))
+    return "".join(out) + "</section>"
+
+
 def _comparison(report: Mapping) -> str:
     c = report.get("comparison")
     out = ['<section id="comparison"><h2>Comparison with the baseline</h2>']
@@ -461,6 +485,7 @@ def render_html(report: Mapping) -> str:
             ("groups", "Groups"),
             ("slices", "Slices"),
             ("flips", "Flips"),
+            *((("proxies", "Proxies"),) if report.get("proxies") else ()),
             ("comparison", "Comparison"),
             ("provenance", "Provenance"),
         )
@@ -477,6 +502,7 @@ def render_html(report: Mapping) -> str:
         _groups(report),
         _slices(report),
         _flips(report),
+        _proxies(report),
         _comparison(report),
         _provenance(report),
         f"<footer><p><strong>Caution.</strong> {_e(caution_of(report))}</p></footer>",

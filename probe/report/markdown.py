@@ -445,6 +445,30 @@ def _flips(report: Mapping) -> list[str]:
     return out + _sentences(flips, numbered=False)
 
 
+def _proxies(report: Mapping) -> list[str]:
+    """Proxy rankings, one table per attribute; nothing when the section was not run."""
+    proxies = report.get("proxies")
+    if not proxies:
+        return []
+    out = ["## Proxies", "",
+           "How well each feature alone stands in for the protected attribute (mutual information, "
+           "cross-fitted single-feature AUC) and how much the features together rely on it "
+           "(permutation importance in a model predicting the attribute).", ""]
+    for p in proxies:
+        auc = p.get("multivariate_auc")
+        out += [f"### {md_escape(p.get('attribute'))}", ""]
+        if auc:
+            out += [f"All features together predict it with AUC {fmt_est(auc)}.", ""]
+        out += _table(
+            ["#", "feature", "mutual information", "AUC alone", "importance"],
+            ([str(i), md_escape(r.get("feature")), fmt_num(r.get("mutual_information")),
+              fmt_num(r.get("auc")), fmt_num(r.get("importance"))]
+             for i, r in enumerate(p.get("features") or [], start=1)),
+            "rlrrr",
+        )
+    return out
+
+
 def _comparison(report: Mapping) -> list[str]:
     c = report.get("comparison")
     out = ["## Comparison with the baseline", ""]
@@ -538,6 +562,6 @@ def render_markdown(report: Mapping) -> str:
         of cells.
     """
     lines = ["# probe report", "", f"> **Caution.** {md_escape(caution_of(report))}", ""]
-    for part in (_verdict, _groups, _slices, _flips, _comparison, _provenance):
+    for part in (_verdict, _groups, _slices, _flips, _proxies, _comparison, _provenance):
         lines += part(report)
     return "\n".join(lines).rstrip("\n") + "\n"
