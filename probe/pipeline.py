@@ -170,19 +170,25 @@ def run_plan(plan: Plan, *, command: str | None = None, progress: Progress | Non
         if not attributes:
             raise DataError("[flips] needs `attributes` (or protected attributes in [data])")
         rows: list = []
+        jobs = [(a, m) for a in attributes for m in plan.flips.modes]
+        tick = _bar(progress, "flip tests")
         with clock.step("flips"):
-            for attribute in attributes:
+            for done, (attribute, mode) in enumerate(jobs):
+                if tick:
+                    tick(done, len(jobs))
                 if attribute not in frame.columns:
-                    raise DataError(f"flip attribute `{attribute}` is not in the data")
-                for mode in plan.flips.modes:
-                    result = flip_test(
-                        model, frame, attribute, mode=mode, reference=plan.flips.reference,
-                        proxies=plan.flips.proxies, n_proxies=plan.flips.n_proxies,
-                        threshold=plan.model.threshold, favorable=favorable, k=plan.flips.k,
-                        confidence_level=cl, rng=seed,
-                    )
-                    rows.extend(result.to_dict())
-                    rows.extend(_note_rows(result, attribute, mode))
+                    raise DataError(f"flip attribute `{attribute}` is not in the data"
+                                    + close_names(attribute, list(frame.columns)))
+                result = flip_test(
+                    model, frame, attribute, mode=mode, reference=plan.flips.reference,
+                    proxies=plan.flips.proxies, n_proxies=plan.flips.n_proxies,
+                    threshold=plan.model.threshold, favorable=favorable, k=plan.flips.k,
+                    confidence_level=cl, rng=seed,
+                )
+                rows.extend(result.to_dict())
+                rows.extend(_note_rows(result, attribute, mode))
+            if tick:
+                tick(len(jobs), len(jobs))
         flips = rows
 
     proxies = None
