@@ -11,7 +11,8 @@ What each rule is measured on:
 - ``min_impact_ratio``: every group's impact ratio (groups and intersections), except the reference
   group and groups under 2 % of rows (the Uniform Guidelines' Q&A 11 compares groups above 2 %; NYC's
   rules allow leaving them out of impact ratios), which are listed as not judged.
-- ``max_flip_rate``: every applicable flip row's flip rate.
+- ``max_flip_rate``: every applicable flip row's flip rate; for twins, the excess of the cross-group
+  discordance over the own-group discordance (the part attributable to the group), when reported.
 - ``max_slice_gap``: every reported slice's gap to the rest of the data (estimate part).
 - ``max_regression``: the comparison's overall difference in its metric (candidate minus baseline),
   and each worse slice's mean paired difference.
@@ -171,7 +172,13 @@ def judge(report: dict, policy: PolicySection) -> Verdict:
             rules.append(_not_run("max_flip_rate", bound, "flip tests"))
         for row in applicable:
             subject = f"{row['mode']} flip of {row['attribute']}: {row['from']} -> {row['to']}"
-            rules.append(_judge("max_flip_rate", subject, bound, row["flip_rate"], upper=True))
+            measured = row["flip_rate"]
+            if row["mode"] == "twins" and row.get("excess") is not None:
+                # twins disagree with a person near the decision boundary whatever the group; only
+                # the excess over twins from the person's own group is attributable to the group
+                subject += " (excess over own-group twins)"
+                measured = row["excess"]
+            rules.append(_judge("max_flip_rate", subject, bound, measured, upper=True))
     if policy.max_slice_gap is not None:
         bound = policy.max_slice_gap
         slices = report.get("slices")

@@ -67,3 +67,12 @@ def test_no_rules_means_no_verdict():
 def test_boundaries_are_inclusive_for_pass(low, high, status):
     report = {"groups": [group("A", est(1, 1, 1)), group("B", est((low + high) / 2, low, high))]}
     assert judge(report, PolicySection(min_impact_ratio=0.8)).rules[0].status == status
+
+
+def test_twins_are_judged_on_their_excess_over_own_group_twins():
+    row = {"attribute": "sex", "mode": "twins", "from": "F", "to": "M",
+           "flip_rate": est(0.09, 0.085, 0.095), "excess": est(0.004, -0.002, 0.008, "wald")}
+    verdict = judge({"flips": [row]}, PolicySection(max_flip_rate=0.01))
+    (rule,) = verdict.rules
+    assert rule.status == "pass" and "excess" in rule.subject
+    assert rule.value["value"] == 0.004
