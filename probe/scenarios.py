@@ -143,9 +143,10 @@ def slice_mask(frame: pd.DataFrame, predicates: list[dict]) -> np.ndarray:
         The data.
     predicates : list of dict
         Each ``{"column", "op", "value"}`` with ``op`` one of ``"=="``, ``"!="``, ``">="``,
-        ``">"``, ``"<"``, ``"<="``, ``"missing"`` (value ignored) or ``"in"`` (value a list of
-        levels, or ``[low, high)`` for a numeric column with ``None`` for an open end).
-        Comparisons are false on missing values.
+        ``">"``, ``"<"``, ``"<="``, ``"missing"`` (value ignored), ``"in"`` (value a list of
+        levels, or ``[low, high)`` for a numeric column with ``None`` for an open end) or
+        ``"not in"`` (a present value outside the listed levels: the slice search's ``other``
+        level). Comparisons are false on missing values.
 
     Returns
     -------
@@ -191,9 +192,12 @@ def slice_mask(frame: pd.DataFrame, predicates: list[dict]) -> np.ndarray:
                 mask &= hit
             else:
                 mask &= series.isin(list(value)).to_numpy(dtype=bool)
+        elif op == "not in":
+            mask &= present & ~series.isin(list(value)).to_numpy(dtype=bool)
         else:
             raise DataError(
-                f"predicate op `{op}` on `{column}` is not one of ==, !=, >=, >, <, <=, in, missing"
+                f"predicate op `{op}` on `{column}` is not one of ==, !=, >=, >, <, <=, in, "
+                "not in, missing"
             )
     return mask
 

@@ -297,6 +297,8 @@ def test_slice_mask_agrees_with_direct_pandas_filters():
     assert slice_mask(frame, [{"column": "a", "op": "missing"}]).tolist() == [
         False, False, True, False, False,
     ]
+    other = [{"column": "a", "op": "not in", "value": ["x"]}]
+    assert slice_mask(frame, other).tolist() == [False, True, False, False, True]
     with pytest.raises(DataError, match="`nope`"):
         slice_mask(frame, [{"column": "nope", "op": "==", "value": 1}])
     with pytest.raises(DataError, match="op `~`"):

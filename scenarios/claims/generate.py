@@ -44,7 +44,7 @@ OCCUPATION_P = {
     "male": (0.40, 0.25, 0.05, 0.25, 0.05),
 }
 CLAIM_TYPES = ("collision", "theft", "glass", "weather", "fire")
-CLAIM_TYPE_P = (0.34, 0.12, 0.22, 0.24, 0.08)
+CLAIM_TYPE_P = (0.30, 0.10, 0.20, 0.32, 0.08)
 CHANNELS = ("phone", "app", "agent")
 
 CATEGORICAL_INPUTS = (

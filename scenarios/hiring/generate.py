@@ -46,12 +46,15 @@ CATEGORICAL_INPUTS = (
 )
 MODEL_INPUTS = CATEGORICAL_INPUTS + NUMERIC_INPUTS
 
-# Planted: experienced fast typists who were not referred were screened by a practice the data do
-# not record (an undisclosed no-poach list kept by one recruiter): advancement there is a coin,
-# P = 0.5, independent of every column. Elsewhere the label follows the recorded signals closely,
-# so the model's false-positive rate in the region is several times the rest.
-SLICE_ADVANCED_RATE = 0.5
-# 55 wpm is (about) the 80th percentile of typing speed (normal, mean 45, sd 12).
+# Planted: experienced fast typists were screened against a list the data do not record (an
+# undisclosed no-poach list of rival call centres kept by one recruiter): advancement there is a
+# coin, P = 0.6, independent of every column. Their recorded signals are the strongest there are
+# (call-centre experience and typing speed carry most of the label's weight elsewhere), so the
+# model advances (almost) all of them, including the 40% the list turned down: the false-positive
+# rate there is close to 1 and uniform, while elsewhere the label follows the recorded signals.
+SLICE_ADVANCED_RATE = 0.6
+# 55 wpm is (about) the 80th percentile of typing speed (normal, mean 45, sd 12; the column is an
+# integer, so a quantile-bin search may put the edge at 55 or 56).
 SEX_PENALTY = 1.2  # logit points the historical decisions took off for women (direct dependence)
 
 TRUTHS = {
@@ -67,10 +70,10 @@ TRUTHS = {
             "predicates": [
                 {"column": "previous_callcentre", "op": "==", "value": "yes"},
                 {"column": "typing_wpm", "op": ">=", "value": 55},
-                {"column": "referral", "op": "==", "value": "no"},
             ],
-            "mechanism": "labels in the region are a coin (P(advanced) = 0.5) set by an "
-            "unrecorded practice, while the recorded signals there look strong",
+            "mechanism": "labels in the region are a coin (P(advanced) = 0.6) set by an "
+            "unrecorded practice, while the recorded signals there are the strongest, so the "
+            "model advances (almost) the whole region",
         }
     ],
     "proxies": {"group": "home_area", "sex": "part_time", "age_band": "years_experience"},
@@ -138,10 +141,10 @@ def generate(n_rows: int = 24_000, *, seed: int = 0) -> pd.DataFrame:
     shift = rng.choice(len(SHIFTS), size=n, p=(0.45, 0.30, 0.25))
 
     logit = (
-        -1.6
-        + 0.14 * (assessment - 62.0)
-        + 0.11 * (wpm - 45.0)
-        + 1.6 * previous
+        -3.3
+        + 0.07 * (assessment - 62.0)
+        + 0.28 * (wpm - 45.0)
+        + 3.5 * previous
         + 1.4 * referral
         + 0.7 * (languages - 1)
         + 0.5 * (education == 2)
@@ -151,7 +154,7 @@ def generate(n_rows: int = 24_000, *, seed: int = 0) -> pd.DataFrame:
         - SEX_PENALTY * female
     )
     advanced = rng.random(n) < 1.0 / (1.0 + np.exp(-logit))
-    planted = previous & (wpm >= 55) & ~referral
+    planted = previous & (wpm >= 55)
     advanced = np.where(planted, rng.random(n) < SLICE_ADVANCED_RATE, advanced)
 
     # Missing values: education not recorded (3%), shift preference not stated (5%). The

@@ -27,7 +27,7 @@ DISTRICTS = (
     "Harrowmere", "Quillbeck", "Ashvane", "Dunmarrow", "Brackenholt", "Fernhollow",
     "Greywick", "Lantry Moss", "Sorrelby", "Wexcombe", "Corvane", "Millistow",
 )
-DISTRICT_SHARE = (0.22, 0.10, 0.09, 0.09, 0.08, 0.08, 0.07, 0.07, 0.06, 0.05, 0.05, 0.04)
+DISTRICT_SHARE = (0.30, 0.09, 0.08, 0.08, 0.07, 0.07, 0.06, 0.06, 0.05, 0.05, 0.05, 0.04)
 GROUPS = ("Aster", "Birch", "Cedar")
 # The group that dominates each district (80% of its residents); the rest split evenly.
 # This is what makes `district` the planted proxy for `group`.
@@ -53,9 +53,11 @@ MODEL_INPUTS = (
 
 # Planted: in this region the repayment outcome is set by a factor the model never sees (a
 # district-wide collections campaign aimed at highly utilised online borrowers): it is a coin
-# with P(repaid) = 0.40, independent of every column. The model can only learn the average, so it
-# declines most of them, including the 40% who repay: a high false-negative rate.
-SLICE_REPAID_RATE = 0.40
+# with P(repaid) = 0.20, independent of every column. The model learns the region's average,
+# well below the threshold, so it declines (almost) the whole region, including the 20% who
+# repay: the false-negative rate there is close to 1 and uniform, so no refinement of the region
+# and no natural slice comes near it.
+SLICE_REPAID_RATE = 0.20
 # 0.75 is (about) the 80th percentile of Beta(2.5, 2.05), so "the top quintile bin" expresses it.
 UTILISATION_BETA = (2.5, 2.05)
 
@@ -74,8 +76,8 @@ TRUTHS = {
                 {"column": "channel", "op": "==", "value": "online"},
                 {"column": "utilisation", "op": ">=", "value": 0.75},
             ],
-            "mechanism": "labels in the region are a coin (P(repaid) = 0.40) driven by a factor "
-            "that is not a column, so the model declines most of the region",
+            "mechanism": "labels in the region are a coin (P(repaid) = 0.20) driven by a factor "
+            "that is not a column, so the model declines (almost) the whole region",
         }
     ],
     "proxies": {"group": "district", "sex": "part_time", "age_band": "credit_history_years"},
@@ -132,7 +134,7 @@ def generate(n_rows: int = 24_000, *, seed: int = 0) -> pd.DataFrame:
     term = rng.choice(TERMS, size=n, p=(0.15, 0.25, 0.30, 0.15, 0.15))
     utilisation = np.round(rng.beta(*UTILISATION_BETA, size=n), 3)
     missed = rng.poisson(0.25 + 1.0 * utilisation**2)
-    channel = rng.choice(len(CHANNELS), size=n, p=(0.30, 0.50, 0.20))
+    channel = rng.choice(len(CHANNELS), size=n, p=(0.25, 0.55, 0.20))
     existing = rng.random(n) < 0.35
 
     burden = loan / income
