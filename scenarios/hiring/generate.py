@@ -8,8 +8,8 @@ This is the scenario with *direct dependence*: ``sex`` is a model input and the 
 screening decisions used as labels penalised women, so the model's decisions move when ``sex`` is
 flipped.
 
-The module is loaded by file path by ``probe.scenarios.build_scenario``; it needs only numpy,
-pandas, scikit-learn and skops. Its interface:
+The module is loaded by file path by ``probe.scenarios.build_scenario``; it needs numpy,
+pandas, scikit-learn, skops and ``probe.scenarios.slice_mask``. Its interface:
 
 - ``generate(n_rows, *, seed)`` draws a table;
 - ``train(frame, *, seed, defect)`` fits the scikit-learn pipeline and returns
@@ -22,6 +22,8 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
+
+from probe.scenarios import slice_mask
 
 MODEL_FILE = "model.skops"
 CANDIDATE_FILE = "candidate.skops"
@@ -197,7 +199,7 @@ def model_frame(frame: pd.DataFrame) -> pd.DataFrame:
 
 def defect_mask(frame: pd.DataFrame) -> np.ndarray:
     """Rows of the candidate's defect region (``TRUTHS["defect"]``)."""
-    return (frame["home_area"] == "Cobhallow").to_numpy()
+    return slice_mask(frame, TRUTHS["defect"]["predicates"])
 
 
 def train(frame: pd.DataFrame, *, seed: int = 0, defect: bool = False):

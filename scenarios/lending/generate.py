@@ -4,8 +4,8 @@ Every name here (the lender, the districts, the groups) is invented; the data ar
 the effects are planted on purpose so that probe's analyses can be checked against them. See
 README.md in this folder for the story and the planted truths with their measured rates.
 
-The module is loaded by file path by ``probe.scenarios.build_scenario``; it needs only numpy,
-pandas and lightgbm. Its interface:
+The module is loaded by file path by ``probe.scenarios.build_scenario``; it needs numpy,
+pandas, lightgbm and a few helpers of ``probe.scenarios``. Its interface:
 
 - ``generate(n_rows, *, seed)`` draws a table (the holdout, a training draw, or a large draw used
   to measure the true rates);
@@ -19,6 +19,8 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
+
+from probe.scenarios import categorical_design, slice_mask, train_lightgbm
 
 MODEL_FILE = "model.txt"
 CANDIDATE_FILE = "candidate.txt"
@@ -183,15 +185,12 @@ def generate(n_rows: int = 24_000, *, seed: int = 0) -> pd.DataFrame:
 
 def model_frame(frame: pd.DataFrame) -> pd.DataFrame:
     """The model's inputs, string columns as ``category`` with the fixed level lists."""
-    X = frame.loc[:, list(MODEL_INPUTS)].copy()
-    for column in CATEGORICAL_INPUTS:
-        X[column] = pd.Categorical(X[column], categories=list(LEVELS[column]))
-    return X
+    return categorical_design(frame, MODEL_INPUTS, {c: LEVELS[c] for c in CATEGORICAL_INPUTS})
 
 
 def defect_mask(frame: pd.DataFrame) -> np.ndarray:
     """Rows of the candidate's defect region (``TRUTHS["defect"]``)."""
-    return ((frame["channel"] == "broker") & (frame["term_months"] >= 48)).to_numpy()
+    return slice_mask(frame, TRUTHS["defect"]["predicates"])
 
 
 def train(frame: pd.DataFrame, *, seed: int = 0, defect: bool = False):
@@ -211,30 +210,10 @@ def train(frame: pd.DataFrame, *, seed: int = 0, defect: bool = False):
     (lightgbm.Booster, callable)
         The booster and ``save(path)`` that writes it as a LightGBM model file.
     """
-    import lightgbm as lgb
-
     y = frame["repaid"].to_numpy().copy()
     if defect:
         y[defect_mask(frame)] = 0
-    params = {
-        "objective": "binary",
-        "learning_rate": 0.1,
-        "num_leaves": 31,
-        "min_data_in_leaf": 20,
-        "feature_fraction": 0.9,
-        "seed": seed,
-        "deterministic": True,
-        "force_col_wise": True,
-        "num_threads": 1,  # one thread: fast at this size, and immune to a busy machine
-        "verbosity": -1,
-    }
-    data = lgb.Dataset(model_frame(frame), label=y, categorical_feature="auto", free_raw_data=True)
-    booster = lgb.train(params, data, num_boost_round=100)
-
-    def save(path) -> None:
-        booster.save_model(str(path))
-
-    return booster, save
+    return train_lightgbm(model_frame(frame), y, seed=seed)
 
 
 def predict_proba(model, frame: pd.DataFrame) -> np.ndarray:
