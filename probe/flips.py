@@ -26,11 +26,21 @@ named ``reference`` level):
   frequent levels are kept, the rest share one indicator, missing is a level). Neighbours come from
   scikit-learn's ``NearestNeighbors`` fitted on the other group: a k-d tree up to 8 encoded
   dimensions, beyond that its brute-force search, which sklearn runs in chunks under a working-memory
-  bound (on 20 dimensions it is about 20 times faster than a tree). Reported: the share of people whose decision differs from that of most of their twins (a tie among an even ``k`` counts as
-  no difference), split by direction, and the mean of (twins' mean score − own score). Queries go
-  in chunks of 20,000 rows, so memory stays bounded.
+  bound (on 20 dimensions it is about 20 times faster than a tree). Reported: the share of people
+  whose decision differs from that of most of their twins (a tie among an even ``k`` counts as
+  no difference), split by direction, and the mean of (twins' mean score − own score). Near the
+  decision boundary neighbours disagree whatever the group, so that share is well above zero even
+  for a model blind to the group; the *control* repeats the search in the person's own group
+  (themselves excluded), on a pool of the same size as the cross-group one (the larger is
+  subsampled, seeded: a k-NN search reaches farther in a smaller pool and finds more disagreement),
+  and the *excess* — the mean per-person paired difference of the cross-group and own-group flip
+  indicators (and of the twins' scores) — is the part attributable to the group, with a Wald
+  interval on the paired differences. Queries go in chunks of 20,000 rows, so memory stays
+  bounded.
 
-Every share has a Wilson interval; the mean score change a t interval (method ``"t"``). The largest
+Every share has a Wilson interval; the mean score change a t interval (method ``"t"``); the twins'
+excess a Wald interval on the per-person paired differences (method ``"paired-wald"``). Twins are
+shared between people, so twins intervals are approximate. The largest
 absolute score change is reported as a plain number: the bootstrap is not consistent for a maximum.
 Where the flips concentrate is shown by slice: single-column levels and two-column conjunctions of
 the other columns (numerics in quartile bins), the top few by flip rate among slices with at least
@@ -51,7 +61,7 @@ from __future__ import annotations
 
 import math
 import warnings
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from itertools import combinations
 
 import numpy as np
@@ -60,7 +70,7 @@ from scipy import stats as _sps
 
 from .errors import DataError, DegenerateWarning, ModelError, PlanError, ProbeError
 from .proxies import attribute_levels, find_proxies, is_numeric
-from .stats import Estimate, wilson_interval
+from .stats import Estimate, wilson_interval, z_value
 
 __all__ = [
     "flip_test",
@@ -94,6 +104,8 @@ _SLICE_LEVELS = 8      # most frequent levels per categorical column in the brea
 _TWIN_LEVELS = 20      # most frequent levels one-hot encoded per categorical in twins
 _TWIN_CHUNK = 20_000   # query rows per nearest-neighbour call
 _KD_TREE_MAX_DIM = 8   # above this many encoded dimensions, brute (chunked) search is faster
+_TWIN_CONTROL_KEYS = ("control_rate", "matched_rate", "excess", "excess_to_favorable",
+                      "excess_to_unfavorable", "excess_score_change")
 
 
 # ---------------------------------------------------------------------------------------------
@@ -151,6 +163,21 @@ class FlipRow:
     by_slice : tuple of FlipSlice
     sentence : str
         The finding in plain language.
+    control_rate : Estimate or None
+        Twins only: the share of the same people whose decision differs from most of their ``k``
+        nearest twins in their *own* group (themselves excluded), on a pool of the same size as the
+        cross-group one (Wilson). None for the other modes, or when the group is too small.
+    matched_rate : Estimate or None
+        Twins only: the cross-group share on the size-matched pool (equal to ``flip_rate`` unless
+        the other group was larger and was subsampled; Wilson).
+    excess, excess_to_favorable, excess_to_unfavorable : Estimate or None
+        Twins only: the mean per-person paired difference of the cross-group (matched) and
+        own-group flip indicators, overall and by direction: the part of the discordance
+        attributable to the group (Wald interval on the paired differences, ``"paired-wald"``).
+    excess_score_change : Estimate or None
+        Twins only: mean of (cross-group twins' mean score − own-group twins' mean score).
+    twin_pool : int or None
+        Twins only: the number of candidate twins each search draws from (both pools).
     """
 
     attribute: str
@@ -167,9 +194,16 @@ class FlipRow:
     moved: tuple
     by_slice: tuple
     sentence: str
+    control_rate: Estimate | None = None
+    matched_rate: Estimate | None = None
+    excess: Estimate | None = None
+    excess_to_favorable: Estimate | None = None
+    excess_to_unfavorable: Estimate | None = None
+    excess_score_change: Estimate | None = None
+    twin_pool: int | None = None
 
     def to_dict(self) -> dict:
-        return {
+        out = {
             "attribute": self.attribute,
             "mode": self.mode,
             "from": _plain(self.from_),
@@ -185,6 +219,12 @@ class FlipRow:
             "by_slice": [s.to_dict() for s in self.by_slice],
             "sentence": self.sentence,
         }
+        if self.mode == "twins":  # the own-group control; None when it could not be formed
+            for name in _TWIN_CONTROL_KEYS:
+                e = getattr(self, name)
+                out[name] = None if e is None else e.to_dict()
+            out["twin_pool"] = self.twin_pool
+        return out
 
 
 @dataclass(frozen=True)
@@ -223,6 +263,11 @@ class FlipFindings:
             for name in ("flip_rate", "to_favorable", "to_unfavorable", "mean_score_change"):
                 e = getattr(r, name)
                 rec[name], rec[name + "_low"], rec[name + "_high"] = e.value, e.low, e.high
+            if r.mode == "twins":
+                for name in ("control_rate", "excess"):
+                    e = getattr(r, name)
+                    rec[name], rec[name + "_low"], rec[name + "_high"] = (
+                        (math.nan,) * 3 if e is None else (e.value, e.low, e.high))
             rec["max_score_change"] = r.max_score_change
             rec["impossible"] = r.impossible
             rec["sentence"] = r.sentence
@@ -264,7 +309,7 @@ def flip_test(model, X: pd.DataFrame, attribute: str, *, mode: str = "direct", r
         Twins per person.
     confidence_level : float, default=0.95
     rng : None, int or numpy.random.Generator, default=0
-        Seeds the categorical transport and the proxy search.
+        Seeds the categorical transport, the proxy search and the twins' size-matched pools.
     breakdown_columns : sequence of str, optional
         Columns for the by-slice breakdown (default: the other model inputs present in ``X``).
 
@@ -297,7 +342,7 @@ def flip_test(model, X: pd.DataFrame, attribute: str, *, mode: str = "direct", r
     if mode == "transport":
         kwargs.update(proxies=proxies, n_proxies=n_proxies, rng=rng)
     elif mode == "twins":
-        kwargs.update(k=k)
+        kwargs.update(k=k, rng=rng)
     return fn(model, X, attribute, **kwargs)
 
 
@@ -367,49 +412,140 @@ def transport_flips(model, X, attribute, *, reference=None, proxies=None, n_prox
 
 
 def twin_flips(model, X, attribute, *, reference=None, k=5, threshold=0.5, favorable=True,
-               confidence_level=0.95, breakdown_columns=None, n_jobs=None) -> FlipFindings:
-    """Twins (situation testing): compare with the ``k`` nearest people of the other group."""
-    from sklearn.neighbors import NearestNeighbors
+               confidence_level=0.95, breakdown_columns=None, rng=0,
+               n_jobs=None) -> FlipFindings:
+    """Twins (situation testing): compare with the ``k`` nearest people of the other group, and
+    with the ``k`` nearest of their own group as a control.
 
+    Near the decision boundary a person's nearest neighbours often disagree with them whatever
+    their group, so the raw cross-group share (``flip_rate``) is well above zero even for a model
+    that never sees the group. The control repeats the search among the same people's own group
+    (each person excluded from their own twins) and reports the share that disagrees with most of
+    those (``control_rate``). The part attributable to the group is the per-person paired
+    difference ``excess_i = flip_i(other group) - flip_i(own group)`` (likewise for each direction,
+    and for the twins' mean score), averaged over the source group.
+
+    The reach of a k-nearest-neighbour search shrinks as the pool grows, and with it the share of
+    disagreeing twins; so both searches behind the excess draw from pools of the same size,
+    ``m = min(n_other, n_own - 1)``: the larger of the two is a seeded random subsample (the other
+    group is subsampled only for the excess; ``flip_rate`` always uses all of it, and
+    ``matched_rate`` is the cross-group share on the matched pool, so
+    ``excess = matched_rate - control_rate`` exactly).
+
+    Self-exclusion: the own-group search asks for ``k + 1`` neighbours and drops the person
+    themself; when exact duplicates crowd the person out of their own ``k + 1`` nearest, the
+    farthest of the ``k + 1`` is dropped instead (deterministic, and every remaining twin is another
+    person at distance zero).
+
+    Intervals: the raw shares and ``control_rate`` are Wilson; each excess is the mean of the
+    per-person paired differences (in ``{-1, 0, 1}``, or real for scores) with a Wald interval
+    ``mean ± z · sd / sqrt(n)`` (method ``"paired-wald"``). The same twins serve several people, and
+    the subsampled pool is one draw, so the differences are not independent and the intervals are
+    approximate — more so when the source group is much larger than the pools (a note says so).
+    In a simulation (a group-blind model, two groups with identical feature distributions, 8,000
+    rows split 50/50 or 25/75, 128 rows of results) the 95 % interval of ``excess`` covered zero
+    92 % of the time and the by-direction intervals 80–85 %: read them as guides, not exact levels.
+
+    What the control removes is the disagreement found near the decision boundary whatever the
+    group. It does not remove imperfect matching: when the groups' feature distributions differ,
+    a person's nearest twins in the other group sit systematically towards that group's bulk,
+    and a model can show an excess through the features that differ (a proxy at work, or a
+    mismatch the features cannot resolve) even when it never reads the group.
+
+    Parameters
+    ----------
+    model, X, attribute, reference, threshold, favorable, confidence_level, breakdown_columns
+        As for :func:`flip_test`.
+    k : int, default=5
+        Twins per person, in each search.
+    rng : None, int or numpy.random.Generator, default=0
+        Seeds the subsample that matches the two pools in size.
+    n_jobs : int, optional
+        Passed to scikit-learn's ``NearestNeighbors``.
+
+    Returns
+    -------
+    FlipFindings
+        Rows carry ``control_rate``, ``matched_rate``, ``excess``, ``excess_to_favorable``,
+        ``excess_to_unfavorable``, ``excess_score_change`` and ``twin_pool`` (None when the source
+        group has ``k`` rows or fewer, so no own-group control can be formed; a note says so).
+
+    References
+    ----------
+    Bendick, M. (2007), situation testing (see the module docstring).
+    """
     ctx = _flip_iv(model, X, attribute, reference, threshold, favorable, confidence_level,
                    breakdown_columns)
     if not isinstance(k, (int, np.integer)) or isinstance(k, bool) or k < 1:
         raise PlanError(f"`k` must be a positive integer, got {k!r}")
+    k = int(k)
     notes = list(ctx.notes)
     features = [c for c in ctx.inputs if c != attribute and c in X.columns]
     if not features:
         raise DataError(f"twins need model features besides `{attribute}`; none are in the data")
     notes.append("twins matched on " + ", ".join(f"`{c}`" for c in features)
                  + " (numerics standardised, categoricals one-hot)")
+    gen = np.random.default_rng(rng)
+    pair_seeds = [int(s) for s in gen.integers(0, 2**31 - 1, size=len(ctx.pairs))]
     base = _scores(model, X, "the original rows")
     fav = _favorable(base >= threshold, favorable)
+    z = z_value(confidence_level)
     rows = []
-    for src, dst in ctx.pairs:
+    for (src, dst), seed in zip(ctx.pairs, pair_seeds):
         idx, tgt = ctx.group_rows[src], ctx.group_rows[dst]
         if len(tgt) < k:
             notes.append(f"twins {src!r} -> {dst!r} skipped: the {dst!r} group has {len(tgt)} rows, "
                          f"fewer than k={k}")
             continue
         Zs, Zt = _twin_design(X, features, idx, tgt)
-        # a k-d tree wins in few dimensions; beyond that sklearn's brute search (computed in
-        # chunks under its working-memory bound, never an n x n matrix) is several times faster
-        algorithm = "kd_tree" if Zt.shape[1] <= _KD_TREE_MAX_DIM else "brute"
-        nn = NearestNeighbors(n_neighbors=k, algorithm=algorithm, n_jobs=n_jobs).fit(Zt)
-        twin_fav = np.empty(len(idx))
-        twin_score = np.empty(len(idx))
-        for start in range(0, len(idx), _TWIN_CHUNK):
-            stop = min(start + _TWIN_CHUNK, len(idx))
-            nb = nn.kneighbors(Zs[start:stop], return_distance=False)
-            rows_nb = tgt[nb]
-            twin_fav[start:stop] = fav[rows_nb].mean(axis=1)
-            twin_score[start:stop] = base[rows_nb].mean(axis=1)
+        n_src, n_dst = len(idx), len(tgt)
+        m = min(n_dst, n_src - 1)
+        control = m >= k
+        pgen = np.random.default_rng(seed)
+        # the other group's pool for the excess: all of it, or m of its rows
+        sub = np.sort(pgen.choice(n_dst, m, replace=False)) if control and n_dst > m else None
+        raw_nb, matched_nb = _cross_twins(Zt, Zs, k, sub, n_jobs)
         own = fav[idx]
-        to_fav = ~own & (twin_fav > 0.5)
-        to_unfav = own & (twin_fav < 0.5)
-        rows.append(_row_from_outcomes(ctx, "twins", src, dst, idx, to_fav, to_unfav,
-                                       twin_score - base[idx], (), k=k))
+        raw = _twin_outcomes(own, base[idx], fav, base, tgt[raw_nb])
+        row = _row_from_outcomes(ctx, "twins", src, dst, idx, raw[0], raw[1], raw[2] - base[idx],
+                                 (), k=k)
+        if not control:
+            notes.append(f"twins {src!r} -> {dst!r}: no own-group control, the {src!r} group has "
+                         f"{n_src} rows (k={k} twins need at least {k + 1})")
+            rows.append(replace(row, sentence=_twin_sentence(row, k, None, confidence_level)))
+            continue
+        own_nb = _own_twins(Zs, k, m, pgen, n_jobs)
+        matched = raw if sub is None else _twin_outcomes(own, base[idx], fav, base,
+                                                         tgt[sub[matched_nb]])
+        ctrl = _twin_outcomes(own, base[idx], fav, base, idx[own_nb])
+        if sub is not None or n_src - 1 > m:
+            which = f"{dst!r} group" if sub is not None else f"own {src!r} group"
+            notes.append(f"twins {src!r} -> {dst!r}: the excess compares pools of equal size, "
+                         f"{m} rows (the {which} subsampled)")
+        if n_src > 2 * m:
+            notes.append(f"twins {src!r} -> {dst!r}: each candidate twin serves about "
+                         f"{n_src / m:.1f} people of the {src!r} group, so the excess interval "
+                         "understates its uncertainty")
+        counts = np.array([(ctrl[0] | ctrl[1]).sum(), (matched[0] | matched[1]).sum()], float)
+        lo, hi = wilson_interval(counts, np.full(2, float(n_src)),
+                                 confidence_level=confidence_level)
+        rate_c, rate_m = (Estimate(c / n_src, float(a), float(b), "wilson")
+                          for c, a, b in zip(counts, lo, hi))
+        d_fav = matched[0].astype(float) - ctrl[0]
+        d_unfav = matched[1].astype(float) - ctrl[1]
+        row = replace(
+            row, control_rate=rate_c, matched_rate=rate_m,
+            excess=_paired_wald(d_fav + d_unfav, z),  # to_fav and to_unfav are disjoint
+            excess_to_favorable=_paired_wald(d_fav, z),
+            excess_to_unfavorable=_paired_wald(d_unfav, z),
+            excess_score_change=_paired_wald(matched[2] - ctrl[2], z), twin_pool=int(m))
+        rows.append(replace(row, sentence=_twin_sentence(row, k, sub is not None,
+                                                         confidence_level)))
     return FlipFindings(attribute, "twins", tuple(rows), tuple(notes), SCREEN_CAUTION, threshold,
-                        favorable, {"k": int(k), "features": tuple(features)})
+                        favorable, {"k": k, "features": tuple(features),
+                                    "control": "own-group twins, self excluded, pools matched "
+                                               "in size",
+                                    "excess_interval": "paired-wald"})
 
 
 # ---------------------------------------------------------------------------------------------
@@ -785,6 +921,121 @@ def _twin_design(X, features, idx, tgt):
             blocks_s.append(eye[remap[codes[idx]]])
             blocks_t.append(eye[remap[codes[tgt]]])
     return np.hstack(blocks_s), np.hstack(blocks_t)
+
+
+def _kneighbors(pool, queries, n_neighbors, n_jobs) -> np.ndarray:
+    """Positions in ``pool`` of each query row's ``n_neighbors`` nearest, nearest first; queried in
+    chunks so memory stays bounded (never a queries x pool matrix)."""
+    from sklearn.neighbors import NearestNeighbors
+
+    # a k-d tree wins in few dimensions; beyond that sklearn's brute search (computed in chunks
+    # under its working-memory bound, never an n x n matrix) is several times faster
+    algorithm = "kd_tree" if pool.shape[1] <= _KD_TREE_MAX_DIM else "brute"
+    nn = NearestNeighbors(n_neighbors=n_neighbors, algorithm=algorithm, n_jobs=n_jobs).fit(pool)
+    out = np.empty((len(queries), n_neighbors), dtype=np.int64)
+    for start in range(0, len(queries), _TWIN_CHUNK):
+        stop = min(start + _TWIN_CHUNK, len(queries))
+        out[start:stop] = nn.kneighbors(queries[start:stop], return_distance=False)
+    return out
+
+
+def _query_depth(k, p, n) -> int:
+    """How many neighbours in the full pool to ask for so that, with probability at least 0.999,
+    ``k`` of them fall in a random subsample holding a share ``p`` of it."""
+    depth = k
+    while depth < n and _sps.binom.sf(k - 1, depth, p) < 0.999:
+        depth += 1
+    return depth
+
+
+def _cross_twins(Zt, Zs, k, sub, n_jobs):
+    """The ``k`` nearest other-group twins of each source row: in the whole group (positions in
+    ``Zt``) and in the subsample ``sub`` (positions in ``sub``; the same array when ``sub`` is
+    None)."""
+    if sub is None:
+        nb = _kneighbors(Zt, Zs, k, n_jobs)
+        return nb, nb
+    p = len(sub) / len(Zt)
+    if p < 0.5:  # a small subsample: its own search is cheap
+        return _kneighbors(Zt, Zs, k, n_jobs), _kneighbors(Zt[sub], Zs, k, n_jobs)
+    # most of the group is kept: one deeper search in the whole group serves both; the nearest k
+    # of it that lie in the subsample are its nearest k there (rows short of k are searched again)
+    full = _kneighbors(Zt, Zs, _query_depth(k, p, len(Zt)), n_jobs)
+    pos = np.full(len(Zt), -1, dtype=np.int64)
+    pos[sub] = np.arange(len(sub))
+    in_sub = pos[full]
+    hit = in_sub >= 0
+    order = np.argsort(~hit, axis=1, kind="stable")[:, :k]
+    matched = np.take_along_axis(in_sub, order, axis=1)
+    short = np.flatnonzero(hit.sum(axis=1) < k)
+    if len(short):
+        matched[short] = _kneighbors(Zt[sub], Zs[short], k, n_jobs)
+    return full[:, :k], matched
+
+
+def _own_twins(Zs, k, m, gen, n_jobs) -> np.ndarray:
+    """Each source row's ``k`` nearest other members of its own group (positions in ``Zs``), drawn
+    from a pool of ``m`` others: all of the group when it has ``m + 1`` rows, else a random
+    ``m + 1`` of them (a row outside that subsample draws from all ``m + 1``, one more; immaterial).
+
+    Asks for ``k + 1`` and drops the row itself; when exact duplicates crowd it out of its own
+    ``k + 1`` nearest, the farthest is dropped instead."""
+    n = len(Zs)
+    pool = np.sort(gen.choice(n, m + 1, replace=False)) if n - 1 > m else np.arange(n)
+    pos = np.full(n, -1, dtype=np.int64)
+    pos[pool] = np.arange(len(pool))
+    nb = _kneighbors(Zs[pool] if len(pool) < n else Zs, Zs, k + 1, n_jobs)
+    is_self = nb == pos[:, None]
+    drop = np.where(is_self.any(axis=1), is_self.argmax(axis=1), k)
+    keep = np.ones(nb.shape, dtype=bool)
+    keep[np.arange(n), drop] = False
+    return pool[nb[keep].reshape(n, k)]
+
+
+def _twin_outcomes(own_fav, own_score, fav, base, twin_rows):
+    """Per person: (twins favourable by majority and the person not, the reverse, twins' mean
+    score); a tie among an even number of twins counts as no difference."""
+    share = fav[twin_rows].mean(axis=1)
+    return ~own_fav & (share > 0.5), own_fav & (share < 0.5), base[twin_rows].mean(axis=1)
+
+
+def _paired_wald(d, z) -> Estimate:
+    """Mean of per-person paired differences with the Wald interval ``mean ± z sd / sqrt(n)``."""
+    n = len(d)
+    if n < 2:
+        warnings.warn("a paired difference needs at least two rows for an interval",
+                      DegenerateWarning, stacklevel=3)
+        return Estimate(float(d.mean()) if n else math.nan, math.nan, math.nan, "paired-wald")
+    mean = float(d.mean())
+    half = z * float(d.std(ddof=1)) / math.sqrt(n)
+    return Estimate(mean, mean - half, mean + half, "paired-wald")
+
+
+def _points(x) -> str:
+    v = 100.0 * x
+    text = f"{v:.2f}" if 0 < abs(v) < 0.1 else f"{v:.1f}"
+    return "0.0" if text in ("-0.0", "-0.00") else text
+
+
+def _twin_sentence(row, k, subsampled, confidence_level) -> str:
+    flip, fav, unfav = row.flip_rate, row.to_favorable, row.to_unfavorable
+    cl = f"{100 * confidence_level:g} % interval"
+    head = (f"Of the {row.from_} group, {_pct(flip.value)} % get a different decision from most of "
+            f"their {k} nearest twins in the {row.to} group ({cl} {_pct(flip.low)}–"
+            f"{_pct(flip.high)} %)")
+    tail = (f"For {_pct(fav.value)} % the twins' decision is favourable and theirs is not, for "
+            f"{_pct(unfav.value)} % the reverse.")
+    if row.excess is None:
+        return (f"{head}. {tail} No own-group control could be formed (the {row.from_} group is "
+                "too small), so this share also holds the disagreement found near the decision "
+                "boundary whatever the group.")
+    ex = row.excess
+    sep = "–" if ex.low >= 0 else " to "
+    sample = (f" ({_pct(row.matched_rate.value)} % with twins drawn from {row.twin_pool:,} rows of "
+              f"the {row.to} group, the size of the own-group pool)" if subsampled else "")
+    return (f"{head}, against {_pct(row.control_rate.value)} % for twins in their own group"
+            f"{sample}: an excess of {_points(ex.value)} points ({cl} {_points(ex.low)}{sep}"
+            f"{_points(ex.high)}). {tail}")
 
 
 # ---------------------------------------------------------------------------------------------

@@ -10,6 +10,7 @@ import pytest
 from scipy import stats
 from scipy.special import expit
 from statsmodels.stats.proportion import proportion_confint
+from statsmodels.stats.weightstats import DescrStatsW
 
 from probe.errors import DataError, ModelError, PlanError
 from probe.flips import (
@@ -352,12 +353,23 @@ def test_twins_blind_model_small_planted_dependence_detected():
 
 
 def test_twins_equal_brute_force_nearest_neighbours():
-    X = _twin_data(n=300, seed=9)
+    # 150 A and 149 B: A -> B compares pools of 149 on both sides with nothing subsampled, so every
+    # number is fixed by brute force; B -> A subsamples A (only for the excess), so its own-group
+    # control is still fixed
+    X = _twin_data(n=299, seed=9)
+    X["group"] = ["A"] * 150 + ["B"] * 149
     model = Wrapped(lambda f: expit(f["x1"] + f["x2"] / 3 + (f["kind"] == "u")),
                     ["x1", "x2", "kind"])
     res = flip_test(model, X, "group", mode="twins", k=3)
     s = model.scores(X)
     fav = s >= 0.5
+    kind = X["kind"].to_numpy()
+
+    def outcomes(people, nb):
+        major = fav[nb].mean(axis=1)
+        to_fav, to_unfav = ~fav[people] & (major > 0.5), fav[people] & (major < 0.5)
+        return to_fav, to_unfav, s[nb].mean(axis=1)
+
     # full distance matrix on pooled-standardised numerics and a 0/1 level mismatch (cost 1)
     for row in res.rows:
         src = np.flatnonzero(X.group == row.from_)
@@ -365,13 +377,145 @@ def test_twins_equal_brute_force_nearest_neighbours():
         both = np.r_[src, tgt]
         z = [(X[c] - X[c].iloc[both].mean()) / X[c].iloc[both].std(ddof=0) for c in ("x1", "x2")]
         z = np.column_stack(z)
-        kind = X["kind"].to_numpy()
-        d = ((z[src, None, :] - z[None, tgt, :]) ** 2).sum(-1) + (kind[src, None] != kind[None, tgt])
-        nb = tgt[np.argsort(d, axis=1)[:, :3]]
-        major = fav[nb].mean(axis=1) > 0.5
-        differ = fav[src] != major
-        assert row.flip_rate.value == differ.mean()
-        assert row.mean_score_change.value == pytest.approx((s[nb].mean(1) - s[src]).mean(), abs=1e-12)
+
+        def dist(a, b):
+            return ((z[a, None, :] - z[None, b, :]) ** 2).sum(-1) + (kind[a, None] != kind[None, b])
+
+        nb = tgt[np.argsort(dist(src, tgt), axis=1)[:, :3]]
+        cross = outcomes(src, nb)
+        assert row.flip_rate.value == (cross[0] | cross[1]).mean()
+        assert row.mean_score_change.value == pytest.approx((cross[2] - s[src]).mean(), abs=1e-12)
+        # own-group twins: the same people's 3 nearest in their own group, themselves excluded
+        d_own = dist(src, src)
+        np.fill_diagonal(d_own, np.inf)
+        own = outcomes(src, src[np.argsort(d_own, axis=1)[:, :3]])
+        assert row.control_rate.value == (own[0] | own[1]).mean()
+        assert row.excess.value == pytest.approx(row.matched_rate.value - row.control_rate.value,
+                                                 abs=1e-12)
+        if row.from_ == "A":
+            assert row.twin_pool == 149 and row.matched_rate == row.flip_rate
+            for got, c, o in [(row.excess_to_favorable, cross[0], own[0]),
+                              (row.excess_to_unfavorable, cross[1], own[1]),
+                              (row.excess, cross[0] | cross[1], own[0] | own[1]),
+                              (row.excess_score_change, cross[2], own[2])]:
+                d = c.astype(float) - o
+                # reference: statsmodels' normal-theory interval for a mean, on the brute-force
+                # per-person paired differences
+                lo, hi = DescrStatsW(d).zconfint_mean(alpha=0.05)
+                assert (got.value, got.low, got.high) == pytest.approx((d.mean(), lo, hi),
+                                                                       abs=1e-12)
+                assert got.method == "paired-wald"
+        else:
+            assert row.twin_pool == 148
+
+
+def _wide_twin_data(n, share_a, seed):
+    g = np.random.default_rng(seed)
+    return pd.DataFrame({"group": g.choice(["A", "B"], n, p=[share_a, 1 - share_a]),
+                         "x1": g.normal(size=n), "x2": g.normal(2, 3, n), "x3": g.normal(size=n),
+                         "x4": g.exponential(1.0, n), "kind": g.choice(["u", "v", "w"], n)})
+
+
+def _wide_score(f):
+    return expit(f["x1"] + f["x2"] / 3 + f["x3"] - f["x4"] + 0.5 * (f["kind"] == "u"))
+
+
+@pytest.mark.parametrize("share_a, seed, width", [(0.5, 0, 0.025), (0.25, 1, 0.03)])
+def test_twins_excess_of_a_group_blind_model_covers_zero(share_a, seed, width):
+    # planted truth: the groups have identical feature distributions and the model never reads the
+    # group, so nothing is attributable to it; near the boundary twins still disagree (raw > 0)
+    X = _wide_twin_data(8000, share_a, seed)
+    model = Wrapped(_wide_score, ["x1", "x2", "x3", "x4", "kind"])
+    res = flip_test(model, X, "group", mode="twins")
+    assert len(res.rows) == 2
+    for r in res.rows:
+        assert r.flip_rate.low > 0.03 and r.control_rate.low > 0.03
+        assert r.excess.low <= 0 <= r.excess.high
+        assert r.excess.high - r.excess.low < width
+        # by direction: near zero too (their intervals are looser guides: shared twins make the
+        # paired differences dependent, see twin_flips)
+        assert abs(r.excess_to_favorable.value) < 0.015
+        assert abs(r.excess_to_unfavorable.value) < 0.015
+        assert abs(r.excess_score_change.value) < 0.005
+        assert "an excess of" in r.sentence and "their own group" in r.sentence
+    if share_a != 0.5:  # unequal groups: the larger one is subsampled to the smaller's size
+        n_a, n_b = (X.group == "A").sum(), (X.group == "B").sum()
+        assert {r.twin_pool for r in res.rows} == {n_a, n_a - 1}
+        assert sum("pools of equal size" in n for n in res.notes) == 2
+        assert any("understates" in n for n in res.notes)  # B's people share A-sized pools
+        assert n_b > 2 * n_a
+
+
+def test_twins_excess_finds_a_planted_direct_dependence():
+    X = _wide_twin_data(8000, 0.5, 2)
+    model = Wrapped(lambda f: np.clip(_wide_score(f) + 0.3 * (f["group"] == "B"), 0, 1),
+                    ["group", "x1", "x2", "x3", "x4", "kind"])
+    rows = {r.from_: r for r in flip_test(model, X, "group", mode="twins").rows}
+    a, b = rows["A"], rows["B"]
+    # A's twins in B carry +0.3: they are approved where A is not, and the reverse for B
+    assert a.excess.low > 0.15 and a.excess_to_favorable.low > 0.15
+    assert b.excess.low > 0.15 and b.excess_to_unfavorable.low > 0.15
+    # the other direction: across groups almost nobody, within the group the boundary share
+    assert a.to_unfavorable.value < 0.005 and b.to_favorable.value < 0.005
+    assert a.excess_to_unfavorable.high < 0 and b.excess_to_favorable.high < 0
+    # the score gap to own-group twins is the planted +-0.3, shrunk a little by clipping at 1
+    assert 0.2 < a.excess_score_change.low and a.excess_score_change.high < 0.3
+    assert -0.3 < b.excess_score_change.low and b.excess_score_change.high < -0.2
+
+
+def test_own_group_twins_exclude_self_even_among_exact_duplicates():
+    from probe.flips import _own_twins
+
+    g = np.random.default_rng(3)
+    Z = g.normal(size=(60, 2))
+    Z[10:17] = Z[10]  # seven identical people: more than k + 1 = 4 at distance zero
+    for m in (59, 40):  # the whole group, and a subsample of 41
+        nb = _own_twins(Z, 3, m, np.random.default_rng(0), None)
+        assert nb.shape == (60, 3)
+        assert not (nb == np.arange(60)[:, None]).any()
+        again = _own_twins(Z, 3, m, np.random.default_rng(0), None)
+        assert np.array_equal(nb, again)
+    nb = _own_twins(Z, 3, 59, np.random.default_rng(0), None)
+    d = ((Z[:, None, :] - Z[None, :, :]) ** 2).sum(-1)
+    np.fill_diagonal(d, np.inf)
+    # each duplicate's twins are three of the other six copies (distance zero)
+    assert (d[np.arange(10, 17)[:, None], nb[10:17]] == 0).all()
+    # everyone: the three nearest others by brute force (compared by distance, since the copies
+    # tie with one another)
+    got = np.sort(np.take_along_axis(d, nb, axis=1), axis=1)
+    assert np.allclose(got, np.sort(d, axis=1)[:, :3], rtol=0, atol=1e-12)
+
+
+def test_matched_cross_twins_equal_a_direct_search_of_the_subsample():
+    from probe.flips import _cross_twins
+
+    g = np.random.default_rng(4)
+    Zt, Zs = g.normal(size=(500, 3)), g.normal(size=(200, 3))
+    for keep in (450, 100):  # the deeper-search path and the separate-search path
+        sub = np.sort(g.choice(500, keep, replace=False))
+        raw, matched = _cross_twins(Zt, Zs, 5, sub, None)
+        d = ((Zs[:, None, :] - Zt[None, :, :]) ** 2).sum(-1)
+        assert np.array_equal(raw, np.argsort(d, axis=1)[:, :5])
+        assert np.array_equal(sub[matched], sub[np.argsort(d[:, sub], axis=1)[:, :5]])
+
+
+def test_twins_without_an_own_group_control_say_so():
+    X = _twin_data(n=400, seed=1)
+    X.loc[X.index[:4], "group"] = "C"  # four people: too few for k=5 own-group twins
+    model = Wrapped(lambda f: expit(f["x1"]), ["x1", "x2", "kind"])
+    res = flip_test(model, X, "group", mode="twins", reference="A")
+    c = next(r for r in res.rows if r.from_ == "C")
+    assert c.excess is None and c.control_rate is None
+    out = c.to_dict()
+    assert out["excess"] is None and out["control_rate"] is None and out["flip_rate"]["value"] >= 0
+    assert "No own-group control" in c.sentence
+    assert any("no own-group control" in n for n in res.notes)
+    b = next(r for r in res.rows if r.from_ == "B").to_dict()
+    json.dumps(b)
+    assert set(b["excess"]) == {"value", "low", "high", "method"}
+    assert b["excess"]["method"] == "paired-wald" and b["twin_pool"] > 0
+    frame = res.to_frame()
+    assert {"control_rate", "excess_low", "excess_high"} <= set(frame.columns)
 
 
 # --- external check on open data ----------------------------------------------------------------

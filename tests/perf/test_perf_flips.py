@@ -2,7 +2,9 @@
 
 - direct and transport flips on 200,000 rows with a LightGBM model: probe's total time against the
   raw model calls on exactly the frames probe scored (timed in the same run); overhead <= 20 %.
-- twins on 200,000 rows: wall time and peak traced memory (tracemalloc).
+- twins on 200,000 rows: wall time and peak traced memory (tracemalloc), the own-group control and
+  its size-matched pools included (about twice the neighbour searches of the cross-group measure
+  alone).
 """
 
 from __future__ import annotations
@@ -121,6 +123,9 @@ def test_twins_time_and_memory(model_and_data):
           f"peak traced memory {peak / 2**20:.0f} MiB (the data frame itself: {frame_mb:.0f} MiB)")
     for r in res.rows:
         print("  ", r.sentence)
+        # the own-group control ran on every pair: the excess is what a policy judges
+        assert r.control_rate is not None and r.excess.low <= r.excess.value <= r.excess.high
+        assert r.excess.value == pytest.approx(r.matched_rate.value - r.control_rate.value)
     # bounded: no n x n matrix (that would be 200,000^2 * 8 B = 298 GiB); allow a few frame copies
     assert peak < 1024 * 2**20
     assert total < 300
