@@ -206,19 +206,28 @@ def _check_known(asked, names, option):
 
 
 def _encode_one(name, series, bins, max_levels, min_level_share):
+    if pd.api.types.is_datetime64_any_dtype(series) or pd.api.types.is_timedelta64_dtype(series):
+        return None, f"`{name}` left out: date/time columns are not sliced (derive a feature from it)"
     values = series.array if isinstance(series.dtype, pd.CategoricalDtype) else series.to_numpy()
     missing = pd.isna(series).to_numpy()
     n, n_missing = len(series), int(missing.sum())
-    present = series[~missing]
-    if pd.api.types.is_datetime64_any_dtype(series) or pd.api.types.is_timedelta64_dtype(series):
-        return None, f"`{name}` left out: date/time columns are not sliced (derive a feature from it)"
     numeric = pd.api.types.is_numeric_dtype(series) and not pd.api.types.is_bool_dtype(series)
     if numeric:  # one sort serves the distinct count, the quantiles and the edges
-        srt = np.sort(np.asarray(present, dtype=float))
-        uniq = srt[np.r_[True, srt[1:] != srt[:-1]]] if len(srt) else srt
-        n_unique = len(uniq)
+        if isinstance(values, np.ndarray) and values.dtype.kind in "iuf":
+            x = values  # no copy: only read
+        else:  # nullable extension dtypes
+            x = np.asarray(series.to_numpy(dtype=float, na_value=np.nan))
+        srt = (x[~missing] if n_missing else x).astype(float)  # a copy, sorted in place
+        srt.sort()
+        n_unique = int(np.count_nonzero(srt[1:] != srt[:-1])) + 1 if len(srt) else 0
+    elif isinstance(values, pd.Categorical):  # counted on the codes, every category (even unused)
+        cat_counts = _category_counts(values.codes, len(values.categories))
+        n_unique = int(np.count_nonzero(cat_counts))
+        n_present = n - n_missing
     else:
+        present = series[~missing] if n_missing else series
         n_unique = int(present.nunique())
+        n_present = len(present)
     if n_unique + (n_missing > 0) <= 1:
         return None, f"`{name}` left out: it is constant"
     if pd.api.types.is_bool_dtype(series):
@@ -230,14 +239,18 @@ def _encode_one(name, series, bins, max_levels, min_level_share):
                 return None, (f"`{name}` left out: it identifies rows "
                               f"({n_unique} distinct integers in {len(srt)} rows)")
         if n_unique <= bins:
-            return _levels(name, "numeric", values, missing, uniq.tolist()), None
-        x = np.asarray(series.to_numpy(dtype=float, na_value=np.nan))
-        return _bin(name, x, missing, bins, srt, uniq), None
-    if n_unique > max_levels and n_unique > _NEAR_UNIQUE * len(present):
-        return None, f"`{name}` left out: it identifies rows ({n_unique} distinct values in {len(present)} rows)"
-    counts = present.value_counts(sort=True)
+            uniq = srt[np.r_[True, srt[1:] != srt[:-1]]]
+            return _levels(name, "numeric", x, missing, uniq.tolist()), None
+        return _bin(name, x, missing, bins, srt), None
+    if n_unique > max_levels and n_unique > _NEAR_UNIQUE * n_present:
+        return None, (f"`{name}` left out: it identifies rows "
+                      f"({n_unique} distinct values in {n_present} rows)")
+    if isinstance(values, pd.Categorical):
+        counts = list(zip(values.categories, cat_counts.tolist()))
+    else:
+        counts = list(present.value_counts(sort=True).items())
     # most frequent first; ties broken by the level's text so the encoding is deterministic
-    order = sorted(counts.items(), key=lambda kv: (-kv[1], str(kv[0])))
+    order = sorted(counts, key=lambda kv: (-kv[1], str(kv[0])))
     named = [lv for lv, c in order[:max_levels] if c >= min_level_share * n]
     if not named:
         named = [order[0][0]]
@@ -248,14 +261,17 @@ def _py(v):
     return v.item() if isinstance(v, np.generic) else v
 
 
+def _code_dtype(n_levels):
+    return np.uint8 if n_levels <= 255 else np.uint16
+
+
 def _levels(name, kind, values, missing, levels, other=False):
     """Codes for explicit levels (+ other + missing)."""
     levels = [_py(v) for v in levels]
-    n_levels = len(levels) + bool(other) + bool(missing.any())
-    # one hashing pass: position among the named levels, -1 for the rest and for missing values
-    pos = _positions(values, levels)
-    pos[missing] = -1
-    codes = np.where(pos >= 0, pos, len(levels)).astype(np.uint8 if n_levels <= 255 else np.uint16)
+    has_missing = bool(missing.any())
+    n_levels = len(levels) + bool(other) + has_missing
+    # one pass: position among the named levels, len(levels) for the rest and for missing values
+    codes = _positions(values, levels, _code_dtype(n_levels))
     labels, preds = [], []
     for lv in levels:
         labels.append(f"{name} = {_fmt_level(lv)}")
@@ -263,7 +279,7 @@ def _levels(name, kind, values, missing, levels, other=False):
     if other:
         labels.append(f"{name} = other")
         preds.append({"column": name, "op": "not in", "value": list(levels)})
-    if missing.any():
+    if has_missing:
         codes[missing] = len(labels)
         labels.append(f"{name} is missing")
         preds.append({"column": name, "op": "missing", "value": None})
@@ -271,19 +287,54 @@ def _levels(name, kind, values, missing, levels, other=False):
     return EncodedColumn(name, kind, codes, tuple(labels), tuple(preds))
 
 
-def _positions(values, levels):
-    """Each value's position among ``levels`` (-1 if absent) by hashing or a sorted search."""
+def _positions(values, levels, dtype):
+    """Each value's position among ``levels`` (``len(levels)`` if absent), as ``dtype``.
+
+    Categoricals map their categories once and index by code; booleans and a few numeric levels are
+    compared directly (no float copy); other values are hashed.
+    """
+    absent = len(levels)
     if isinstance(values, pd.Categorical):
         lookup = pd.Index(levels, dtype=object).get_indexer(pd.Index(values.categories, dtype=object))
-        lookup = np.append(lookup, -1)  # code -1 (missing) indexes the last entry
-        return lookup[values.codes]
+        lookup = np.append(np.where(lookup >= 0, lookup, absent), absent).astype(dtype)
+        return _chunked_take(lookup, values.codes)  # code -1 (missing) wraps to the last entry
+    if values.dtype.kind == "b" and levels == [False, True]:
+        return values.astype(dtype)
+    if values.dtype.kind in "biuf" and len(levels) <= 16:
+        codes = np.full(len(values), absent, dtype=dtype)
+        for j, lv in enumerate(levels):
+            codes[values == lv] = j
+        return codes
     if values.dtype.kind in "biuf":
         lv = np.asarray(levels, dtype=float)
         order = np.argsort(lv)
         xv = values.astype(float)
         idx = np.minimum(np.searchsorted(lv[order], xv), len(lv) - 1)
-        return np.where(lv[order][idx] == xv, order[idx], -1)
-    return pd.Index(levels, dtype=object).get_indexer(pd.Index(values, dtype=object))
+        pos = np.where(lv[order][idx] == xv, order[idx], absent)
+    else:
+        pos = pd.Index(levels, dtype=object).get_indexer(pd.Index(values, dtype=object))
+        pos[pos < 0] = absent
+    return pos.astype(dtype)
+
+
+_CHUNK = 1 << 16  # rows at a time where a full-length temporary index would fall out of cache
+
+
+def _chunked_take(table, idx):
+    """``table[idx]`` (negative indices from the end) a chunk at a time."""
+    out = np.empty(len(idx), dtype=table.dtype)
+    for start in range(0, len(idx), _CHUNK):
+        part = idx[start: start + _CHUNK]
+        table.take(part, out=out[start: start + len(part)], mode="wrap")
+    return out
+
+
+def _category_counts(codes, k):
+    """Rows per category from categorical codes (-1 = missing, not counted)."""
+    counts = np.zeros(k + 1, dtype=np.int64)
+    for start in range(0, len(codes), _CHUNK):
+        counts += np.bincount(codes[start: start + _CHUNK].astype(np.intp) + 1, minlength=k + 1)
+    return counts[1:]
 
 
 def _fmt_level(v):
@@ -292,41 +343,49 @@ def _fmt_level(v):
     return str(v)
 
 
-def _bin(name, x, missing, bins, present, uniq):
+def _bin(name, x, missing, bins, srt):
     """Quantile bins ``[e_j, e_{j+1})``; each edge the roundest number near its quantile.
 
     Near means within ``_EDGE_WINDOW / bins`` of the quantile's rank on either side (1 % of the rows
     with 5 bins), so bins stay close to equal-count; where that window holds a single tied value the
     edge goes just above it, so a heavily tied value (70 % zeros) keeps a bin of its own. The codes are
     cut at the rounded edges themselves, so every label states exactly the rows it holds.
+
+    ``x`` holds the values (NaN or anything where ``missing``), ``srt`` the present ones sorted.
     """
     probs = np.arange(1, bins) / bins
     w = _EDGE_WINDOW / bins
-    q_mid, q_lo, q_hi = (np.quantile(present, p) for p in (probs, probs - w, probs + w))
+    q = _sorted_quantile(srt, np.concatenate([probs, probs - w, probs + w]))
+    q_mid, q_lo, q_hi = q.reshape(3, -1)
     edges = set()
     for mid, lo, hi in zip(q_mid, q_lo, q_hi):
         if hi <= lo:  # a tied value: the edge goes between it and the next value up
-            j = np.searchsorted(uniq, mid, side="right")
-            if j >= len(uniq):
+            j = np.searchsorted(srt, mid, side="right")
+            if j >= len(srt):
                 continue
-            lo, hi = mid, uniq[j]
+            lo, hi = mid, srt[j]
         r = _round_edge(lo, hi)
-        if uniq[0] < r <= uniq[-1]:
+        if srt[0] < r <= srt[-1]:
             edges.add(r)
     if not edges:  # cannot happen with two distinct values, kept for safety
-        edges = {_round_edge(uniq[0], uniq[1])}
+        edges = {_round_edge(srt[0], srt[np.searchsorted(srt, srt[0], side="right")])}
     # two edges in the same gap between values would leave an empty bin: keep the first of them
-    below = np.searchsorted(present, sorted(edges), side="left")
+    below = np.searchsorted(srt, sorted(edges), side="left")
     kept, last = [], 0
     for e, b in zip(sorted(edges), below):
-        if last < b < len(present):
+        if last < b < len(srt):
             kept.append(e)
             last = b
     edges = kept
-    edges_arr = np.asarray(edges, dtype=float)
-    codes_all = np.searchsorted(edges_arr, np.where(missing, 0.0, x), side="right")
-    n_levels = len(edges) + 1 + bool(missing.any())
-    codes = codes_all.astype(np.uint8 if n_levels <= 255 else np.uint16)
+    has_missing = bool(missing.any())
+    dtype = _code_dtype(len(edges) + 1 + has_missing)
+    if len(edges) <= 16:  # the code is the number of edges at or below the value (NaN: none)
+        codes = np.zeros(len(x), dtype=dtype)
+        for e in edges:
+            codes += x >= e
+    else:
+        codes = np.searchsorted(np.asarray(edges, dtype=float), np.where(missing, 0.0, x),
+                                side="right").astype(dtype)
     labels, preds = [], []
     bounds = [None] + [int(e) if e == int(e) and abs(e) < 2**53 else e for e in edges] + [None]
     for j in range(len(edges) + 1):
@@ -338,12 +397,33 @@ def _bin(name, x, missing, bins, present, uniq):
         else:
             labels.append(f"{name} in [{_fmt_number(lo)}, {_fmt_number(hi)})")
         preds.append({"column": name, "op": "in", "value": [lo, hi]})
-    if missing.any():
+    if has_missing:
         codes[missing] = len(labels)
         labels.append(f"{name} is missing")
         preds.append({"column": name, "op": "missing", "value": None})
     codes.setflags(write=False)
     return EncodedColumn(name, "numeric", codes, tuple(labels), tuple(preds))
+
+
+def _sorted_quantile(srt, q):
+    """``np.quantile(srt, q)`` (its default, linear method) for an already sorted ``srt``, without
+    the copy and partial sort it would make: the same index, weight and interpolation arithmetic
+    (Hyndman & Fan's definition 7), so the same floats."""
+    n = len(srt)
+    virtual = (n - 1) * np.asarray(q, dtype=float)
+    prev = np.floor(virtual)
+    gamma = virtual - prev
+    prev_i = np.clip(prev, 0, n - 1).astype(np.intp)
+    next_i = np.clip(prev + 1, 0, n - 1).astype(np.intp)
+    above = virtual >= n - 1
+    prev_i[above] = next_i[above] = n - 1
+    below = virtual < 0
+    prev_i[below] = next_i[below] = 0
+    a, b = srt[prev_i], srt[next_i]
+    diff = b - a
+    out = a + diff * gamma
+    np.subtract(b, diff * (1 - gamma), out=out, where=gamma >= 0.5)
+    return out
 
 
 def _round_edge(below: float, edge: float) -> float:

@@ -174,3 +174,32 @@ def test_to_frame_lists_levels_with_counts():
     member = table[table.column == "member"]
     assert member.rows.tolist() == [int((~frame.member).sum()), int(frame.member.sum())]
     assert table.groupby("column").rows.sum().eq(500).all()
+
+
+def test_quantiles_of_sorted_values_are_numpys_to_the_last_bit():
+    # reference: numpy.quantile (default linear method); the encoder skips its copy and partial sort
+    from probe.encode import _sorted_quantile
+
+    r = np.random.default_rng(0)
+    for t in range(400):
+        n = int(r.integers(1, 300))
+        x = [r.normal(size=n), r.integers(0, 4, n).astype(float), r.lognormal(10, 2, n)][t % 3]
+        x.sort()
+        q = np.concatenate([r.random(6), [0.0, 0.2, 0.19, 0.21, 0.5, 1.0]])
+        np.testing.assert_array_equal(_sorted_quantile(x, q), np.quantile(x, q))
+
+
+def test_categorical_levels_count_like_pandas_value_counts():
+    # reference: pandas value_counts on the same categorical (unused categories and missing values)
+    r = np.random.default_rng(4)
+    codes = r.choice([-1, 0, 1, 2, 3, 4], 3000, p=[0.05, 0.4, 0.3, 0.15, 0.08, 0.02])
+    names = ["Harrowmere", "Oakvale", "Brindle", "Quarry", "Ash", "Elm"]
+    col = pd.Categorical.from_codes(codes, names)
+    frame = pd.DataFrame({"district": col})
+    enc = encode_columns(frame, min_level_share=0.05)["district"]
+    counts = frame["district"].value_counts()
+    named = [lv for lv in counts.index if counts[lv] >= 0.05 * len(frame)]
+    assert enc.labels == tuple(f"district = {lv}" for lv in named) + ("district = other",
+                                                                        "district is missing")
+    expected = [counts[lv] for lv in named] + [counts.drop(named).sum(), int((codes == -1).sum())]
+    assert np.bincount(enc.codes).tolist() == expected
