@@ -83,11 +83,12 @@ class Comparison:
 
     def to_dict(self) -> dict:
         found = self.worse_slices.to_dict()
+        worse = [{**s, "sentence": _worse_sentence(s, self.metric)} for s in found["found"]]
         return {"metric": self.metric, "agreement": self.agreement,
                 "overall": self.overall.to_dict(),
                 "metrics": [m.to_dict() for m in self.metrics],
                 "worse_search": {k: v for k, v in found.items() if k != "found"},
-                "worse_slices": found["found"]}
+                "worse_slices": worse}
 
     def to_frame(self) -> pd.DataFrame:
         return pd.DataFrame.from_records([
@@ -96,6 +97,24 @@ class Comparison:
              "difference_high": m.difference.high, "p_value": m.p_value}
             for m in self.metrics
         ])
+
+
+_METRIC_WORDS = {"error": "error rate", "fpr": "false-positive rate", "fnr": "false-negative rate",
+                 "selection": "selection rate"}
+
+
+def _worse_sentence(found: dict, metric: str) -> str:
+    """One line for a worse slice: how far the candidate is behind the baseline there and elsewhere."""
+    rate, gap = found["rate"], found["gap"]
+    if rate["value"] is None or gap["value"] is None:
+        return f"Rows with {found['label']}: the difference is undefined."
+    rest = rate["value"] - gap["value"]
+    word = _METRIC_WORDS.get(metric, metric)
+    change = "lower" if metric in _WORSE_IS_LOWER else "higher"
+    return (f"Rows with {found['label']}: the candidate's {word} is {100 * rate['value']:.1f} points "
+            f"{change} than the baseline's on the same rows (95 % interval "
+            f"{100 * rate['low']:.1f} to {100 * rate['high']:.1f}), against "
+            f"{100 * rest:.1f} points on the other rows.")
 
 
 def paired_difference(cand, base, *, n_resamples: int = 4000, confidence_level: float = 0.95,

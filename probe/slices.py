@@ -28,8 +28,10 @@ How it works
    ``n' = clip(x, min_rows, n)``, ``x' = min(x, n')``, that value bounds every refinement (see
    :func:`_binary_bound`). Pruning is therefore exact: the result equals exhaustive enumeration.
 4. **Redundancy.** A depth-1 slice must be worse than the rest (positive gap); a refinement counts only
-   if its score beats the score of *every* slice it refines (one predicate fewer): adding a predicate
-   must make the effect more certainly larger, not just smaller. Among the best ``2 * top`` slices,
+   if its score beats the score of *every* slice it refines (one predicate fewer) *and* it is
+   confidently worse than the rest of each of those slices (the lower limit of its rate minus the rate
+   of the parent's other rows, Newcombe or Wald, is above zero): adding a predicate must make the
+   effect materially larger, not carve a lucky corner out of a region that is bad as a whole. Among the best ``2 * top`` slices,
    near-identical row sets (Jaccard similarity >= ``similarity`` on the estimate-part rows) are kept
    once, the higher-ranked one, and the first ``top`` remaining are *carried* to the estimate stage.
 5. **Estimate** (on the estimate part only). Rate (Wilson), gap to the rest (Newcombe), the ratio to
@@ -671,7 +673,8 @@ def _run(enc: Encoding, metric: str, o: _Opts, bins: int) -> SliceFindings:
         for rank, (cand, est) in enumerate(zip(carried, rows), start=1)
     )
     overall = _rate_estimates(np.array([o.y.sum()]), np.array([float(n_base)]),
-                              np.array([(o.y * o.y).sum()]), o.binary, o.confidence_level)
+                              np.array([(o.y * o.y).sum()]), o.binary, o.confidence_level,
+                              (float(o.y.min()), float(o.y.max())) if len(o.y) else None)
     notes = list(enc.notes)
     if not found:
         notes.append(f"no slice with at least {min_rows} rows is worse than the rest")
@@ -864,7 +867,7 @@ def _lattice_search(codes, n_levels, y, binary, depth, min_rows, pool, confidenc
     def candidates(dims, parents, thr):
         cand = np.ones(int(np.prod(dims)), dtype=bool)
         for s, pk in parents:
-            _, p_bound, p_cand = visited[s]
+            _, p_bound, p_cand, _ = visited[s]
             cand &= p_cand[pk] & (p_bound[pk] >= thr - _EPS)
         return cand
 
@@ -895,11 +898,16 @@ def _lattice_search(codes, n_levels, y, binary, depth, min_rows, pool, confidenc
                     gap = x / n - (total - x) / (N - n)
                 eligible = ok & (gap > 0)
             else:
+                # a material refinement: more certainly worse than the rest than every parent, and
+                # confidently worse than the rest of each parent (the parent's other rows), so an
+                # extra predicate that only carves a lucky corner out of a bad region is dropped
                 eligible = ok.copy()
                 for s, pk in parents:
                     eligible &= score > visited[s][0][pk]
+                    eligible &= _within_parent_low(st, visited[s][3], pk, binary, z,
+                                                   confidence_level) > 0
             eligible &= np.isfinite(score)
-            visited[cols] = (score, bound, ok)
+            visited[cols] = (score, bound, ok, st)
             keys = np.flatnonzero(eligible & (score >= threshold()))
             if len(keys):
                 _merge(best, keys, score, n, cols, dims, d, pool)
@@ -931,6 +939,25 @@ def _lattice_search(codes, n_levels, y, binary, depth, min_rows, pool, confidenc
             walk(window, d)
     ranked = [entry for _, entry in best]
     return ranked, n_scored, n_candidates
+
+
+def _within_parent_low(st, parent_st, pk, binary, z, confidence_level):
+    """Lower limit of (slice rate - rate of the parent's other rows), per slice: Newcombe for 0/1
+    outcomes, Wald from the sums otherwise; -inf where the parent has no other rows."""
+    n, x = st[0].astype(float), st[1].astype(float)
+    rn, rx = parent_st[0][pk] - n, parent_st[1][pk] - x
+    empty = (n < 2) | (rn < 2)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        if binary:
+            low, _ = newcombe_interval(x, np.maximum(n, 1), np.clip(rx, 0, None),
+                                       np.maximum(rn, 1), confidence_level=confidence_level)
+        else:
+            sq, rsq = st[2], parent_st[2][pk] - st[2]
+            m1, m2 = x / n, rx / rn
+            v1 = np.maximum(sq - x * m1, 0.0) / (n - 1)
+            v2 = np.maximum(rsq - rx * m2, 0.0) / (rn - 1)
+            low = (m1 - m2) - z * np.sqrt(v1 / n + v2 / rn)
+    return np.where(empty | np.isnan(low), -np.inf, low)
 
 
 def _window_scores(stats, binary, need_bound, min_rows, N, total, confidence_level, z, real):
@@ -1056,8 +1083,9 @@ def _dedupe(ranked, codes, similarity, top):
     return kept, masks
 
 
-def _rate_estimates(s, n, sq, binary, cl):
-    """Rate estimates: Wilson for 0/1, Wald for real-valued (vectorised)."""
+def _rate_estimates(s, n, sq, binary, cl, limits=None):
+    """Rate estimates: Wilson for 0/1, Wald for real-valued (vectorised), the Wald limits clipped to
+    the outcome's range ``limits`` (a mean of values in [-1, 1] cannot exceed 1)."""
     if binary:
         low, high = wilson_interval(s, n, confidence_level=cl)
         method = "wilson"
@@ -1068,6 +1096,8 @@ def _rate_estimates(s, n, sq, binary, cl):
             v = np.maximum(sq - s * m, 0.0) / (n - 1)
             half = z * np.sqrt(v / n)
         low, high, method = m - half, m + half, "wald"
+        if limits is not None:
+            low, high = np.clip(low, *limits), np.clip(high, *limits)
     with np.errstate(invalid="ignore", divide="ignore"):
         value = s / n
     return [Estimate(float(a), float(b), float(c), method) for a, b, c in zip(value, low, high)]
@@ -1110,14 +1140,17 @@ def _estimate(carried, masks, y, o: _Opts, tested):
         ratio = [Estimate(float(v), float(a), float(b), "mover-wilson") for v, a, b in zip(r_val, r_low, r_high)]
         p = two_proportion_pvalue(s1, n1, s2, n2, alternative=alt)
     else:
-        rate = _rate_estimates(s1, n1, sq1, False, cl)
+        limits = (float(y.min()), float(y.max())) if len(y) else None
+        rate = _rate_estimates(s1, n1, sq1, False, cl, limits)
         z = z_value(cl)
         with np.errstate(invalid="ignore", divide="ignore"):
             v1 = np.maximum(sq1 - s1 * s1 / n1, 0.0) / (n1 - 1)
             v2 = np.maximum(sq2 - s2 * s2 / n2, 0.0) / (n2 - 1)
             se = np.sqrt(v1 / n1 + v2 / n2)
             zstat = gap_val / se
-        gap = [Estimate(float(v), float(v - z * e), float(v + z * e), "wald") for v, e in zip(gap_val, se)]
+        span = (limits[1] - limits[0]) if limits else np.inf
+        gap = [Estimate(float(v), float(max(v - z * e, -span)), float(min(v + z * e, span)), "wald")
+               for v, e in zip(gap_val, se)]
         ratio = [Estimate(math.nan, math.nan, math.nan, "none")] * K
         p = special.ndtr(-zstat) if alt == "greater" else special.ndtr(zstat)
         p = np.where(se > 0, p, 1.0)  # no spread at all: no evidence either way

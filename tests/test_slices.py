@@ -51,16 +51,35 @@ def _brute_force(frame, y, *, depth, min_rows, binary, bins=5):
                 rest_var = (rest_sq - (N - n) * rest_mean**2) / (N - n - 1)
                 se = np.sqrt(g["var"].to_numpy() / n + rest_var / (N - n))
                 low = g["mean"].to_numpy() - rest_mean - Z95 * se
-            for row, s, gap in zip(g[list(cols)].itertuples(index=False), low,
-                                   x / n - (total - x) / (N - n)):
+            sq = g["var"].to_numpy() * (n - 1) + n * g["mean"].to_numpy() ** 2
+            for row, s, gap, cnt, sm, ssq in zip(g[list(cols)].itertuples(index=False), low,
+                                                 x / n - (total - x) / (N - n), n, x, sq):
                 key = tuple(zip(cols, (int(v) for v in row)))
-                scores[key] = (float(s), float(gap))
+                scores[key] = (float(s), float(gap), cnt, sm, ssq)
     eligible = {}
-    for key, (s, gap) in scores.items():
+    for key, (s, gap, cnt, sm, ssq) in scores.items():
         if len(key) == 1:
             ok = gap > 0
-        else:
-            ok = all(s > scores[key[:i] + key[i + 1:]][0] for i in range(len(key)))
+        else:  # a material refinement: beats each parent's score and is confidently worse than
+            # the parent's other rows (statsmodels' Newcombe interval; Wald for real outcomes)
+            ok = True
+            for i in range(len(key)):
+                parent = scores.get(key[:i] + key[i + 1:])
+                if parent is None:  # the parent is unsupported: no refinement of it counts
+                    ok = False
+                    break
+                rn, rx, rsq = parent[2] - cnt, parent[3] - sm, parent[4] - ssq
+                if cnt < 2 or rn < 2:
+                    ok = False
+                    break
+                if binary:
+                    inner, _ = confint_proportions_2indep(sm, cnt, rx, rn, method="newcomb")
+                else:
+                    m1, m2 = sm / cnt, rx / rn
+                    v1 = max(ssq - sm * m1, 0) / (cnt - 1)
+                    v2 = max(rsq - rx * m2, 0) / (rn - 1)
+                    inner = (m1 - m2) - Z95 * np.sqrt(v1 / cnt + v2 / rn)
+                ok = ok and s > parent[0] and inner > 0
         if ok and np.isfinite(s):
             label = " and ".join(enc[c].labels[lv] for c, lv in key)
             eligible[label] = s
