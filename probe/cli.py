@@ -40,9 +40,9 @@ def _list(text: str | None) -> list[str] | None:
 def _common(p: argparse.ArgumentParser, *, model: bool = True, label: bool = True) -> None:
     g = p.add_argument_group("data and model")
     g.add_argument("--data", required=True, metavar="FILE", help="holdout table (CSV, Parquet, Feather)")
-    if label:
-        g.add_argument("--label", required=True, metavar="COL", help="the binary label column")
-        g.add_argument("--positive", metavar="VALUE", help="label value of the positive class")
+    g.add_argument("--label", required=label, metavar="COL",
+                   help="the binary label column" + ("" if label else " (optional here)"))
+    g.add_argument("--positive", metavar="VALUE", help="label value of the positive class")
     if model:
         g.add_argument("--model", required=True, metavar="SPEC",
                        help="model file, py:module:attr, cmd:COMMAND, http://127.0.0.1:PORT/PATH "
@@ -115,7 +115,7 @@ def build_parser() -> argparse.ArgumentParser:
     _slice_options(p)
 
     p = sub.add_parser("flips", help="do decisions move when a protected attribute is changed?")
-    _common(p)
+    _common(p, label=False)
     f = p.add_argument_group("flips")
     f.add_argument("--mode", default="direct,transport,twins", metavar="M[,M]",
                    help="direct, transport, twins (all three)")
@@ -125,7 +125,6 @@ def build_parser() -> argparse.ArgumentParser:
 
     p = sub.add_parser("proxies", help="which features stand in for a protected attribute (no model)")
     _common(p, model=False, label=False)
-    p.add_argument("--label", metavar="COL", help="label column, left out of the features")
     p.add_argument("--features", metavar="A,B,...", help="candidate features (default: all others)")
 
     p = sub.add_parser("compare", help="candidate vs production on the same rows")

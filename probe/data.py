@@ -121,11 +121,11 @@ class Holdout:
         The file path, or ``"<DataFrame>"``.
     sha256 : str or None
         The file's SHA-256 (None for an in-memory frame).
-    label : str
-        The label column.
+    label : str or None
+        The label column (None when the analyses need no label).
     positive : object
         The label value that is the positive class.
-    y_true : ndarray of bool
+    y_true : ndarray of bool or None
         ``frame[label] == positive``, read-only.
     protected : tuple of str
         The protected attributes.
@@ -138,9 +138,9 @@ class Holdout:
     frame: pd.DataFrame
     source: str
     sha256: str | None
-    label: str
+    label: str | None
     positive: Any
-    y_true: np.ndarray
+    y_true: np.ndarray | None
     protected: tuple[str, ...]
     intersections: tuple[tuple[str, ...], ...]
     unknown: dict = field(default_factory=dict)
@@ -183,57 +183,8 @@ def _match_positive(values: Sequence[Any], positive: Any) -> Any | None:
     return None
 
 
-def prepare_holdout(
-    frame: pd.DataFrame,
-    *,
-    label: str,
-    positive: Any = None,
-    protected: Sequence[str] = (),
-    intersections: Sequence[Sequence[str]] = (),
-    source: str = "<DataFrame>",
-    sha256: str | None = None,
-) -> Holdout:
-    """Check the column roles of a holdout table and return a :class:`Holdout`.
-
-    Parameters
-    ----------
-    frame : pandas.DataFrame
-        The holdout; it is not modified.
-    label : str
-        The binary label column. Missing labels are an error (drop or fill them first).
-    positive : object, optional
-        The label value of the positive class. When omitted, the label must be 0/1 or boolean
-        (1 / True is positive).
-    protected : sequence of str, default=()
-        Protected attributes; each needs at least two observed levels. Missing values are counted as
-        unknown and reported, not dropped silently.
-    intersections : sequence of sequences of str, default=()
-        Combinations (of protected attributes or any other columns) reported as joint groups.
-    source, sha256 : str, optional
-        Where the frame came from, for messages and provenance.
-
-    Raises
-    ------
-    DataError
-        Empty data, missing columns (with close names), missing labels (with rows), a label that is not
-        binary, a positive value that does not occur, a protected attribute with one level.
-    """
-    where = f"`{source}`" if source != "<DataFrame>" else "the data"
-    if len(frame) == 0:
-        raise DataError(f"{where} has no rows")
-    if not isinstance(label, str) or not label:
-        raise DataError("`label` must name the label column")
-    protected = tuple(dict.fromkeys(protected))
-    intersections = tuple(tuple(c) for c in intersections)
-    _check_columns(frame, [label], "label", where)
-    _check_columns(frame, protected, "protected", where)
-    for combo in intersections:
-        if len(combo) < 2:
-            raise DataError(f"an intersection needs at least two columns, got {list(combo)}")
-        _check_columns(frame, combo, "intersection", where)
-    if label in protected:
-        raise DataError(f"column `{label}` cannot be both the label and a protected attribute")
-
+def _label(frame: pd.DataFrame, label: str, positive: Any, where: str):
+    """The observed positive value and the read-only ``label == positive`` array, checked."""
     y = frame[label]
     missing = np.flatnonzero(y.isna().to_numpy())
     if len(missing):
@@ -267,6 +218,61 @@ def prepare_holdout(
             )
     y_true = (y == chosen).to_numpy(dtype=bool)
     y_true.setflags(write=False)
+    return chosen, y_true
+
+
+def prepare_holdout(
+    frame: pd.DataFrame,
+    *,
+    label: str | None,
+    positive: Any = None,
+    protected: Sequence[str] = (),
+    intersections: Sequence[Sequence[str]] = (),
+    source: str = "<DataFrame>",
+    sha256: str | None = None,
+) -> Holdout:
+    """Check the column roles of a holdout table and return a :class:`Holdout`.
+
+    Parameters
+    ----------
+    frame : pandas.DataFrame
+        The holdout; it is not modified.
+    label : str or None
+        The binary label column. Missing labels are an error (drop or fill them first). None when
+        no analysis needs labels (flip tests, proxies); ``y_true`` is then None.
+    positive : object, optional
+        The label value of the positive class. When omitted, the label must be 0/1 or boolean
+        (1 / True is positive).
+    protected : sequence of str, default=()
+        Protected attributes; each needs at least two observed levels. Missing values are counted as
+        unknown and reported, not dropped silently.
+    intersections : sequence of sequences of str, default=()
+        Combinations (of protected attributes or any other columns) reported as joint groups.
+    source, sha256 : str, optional
+        Where the frame came from, for messages and provenance.
+
+    Raises
+    ------
+    DataError
+        Empty data, missing columns (with close names), missing labels (with rows), a label that is not
+        binary, a positive value that does not occur, a protected attribute with one level.
+    """
+    where = f"`{source}`" if source != "<DataFrame>" else "the data"
+    if len(frame) == 0:
+        raise DataError(f"{where} has no rows")
+    if label is not None and (not isinstance(label, str) or not label):
+        raise DataError("`label` must name the label column")
+    protected = tuple(dict.fromkeys(protected))
+    intersections = tuple(tuple(c) for c in intersections)
+    _check_columns(frame, [label] if label else [], "label", where)
+    _check_columns(frame, protected, "protected", where)
+    for combo in intersections:
+        if len(combo) < 2:
+            raise DataError(f"an intersection needs at least two columns, got {list(combo)}")
+        _check_columns(frame, combo, "intersection", where)
+    if label in protected:
+        raise DataError(f"column `{label}` cannot be both the label and a protected attribute")
+    chosen, y_true = (None, None) if label is None else _label(frame, label, positive, where)
 
     unknown = {}
     for name in protected:

@@ -301,6 +301,8 @@ def flip_test(model, X: pd.DataFrame, attribute: str, *, mode: str = "direct", r
         Transport: the columns to move; default the top ``n_proxies`` model inputs by
         :func:`probe.proxies.find_proxies` (single-feature measures).
     n_proxies : int, default=3
+        At most this many proxies are moved when probe chooses them, and only those whose
+        cross-fitted single-feature AUC for the attribute is at least ``MIN_PROXY_AUC`` (0.55).
     threshold : float, default=0.5
         Decision = ``scores >= threshold``.
     favorable : bool, default=True
@@ -859,6 +861,11 @@ def _move_proxy(col: pd.Series, prepared, idx, tgt, gen):
     return out
 
 
+MIN_PROXY_AUC = 0.55
+"""A feature is moved as a proxy (when probe chooses them) only if it alone predicts the attribute
+with a cross-fitted AUC of at least this (0.5 is chance)."""
+
+
 def _choose_proxies(ctx, X, attribute, proxies, n_proxies, seed, notes):
     candidates = [c for c in ctx.inputs if c != attribute and c in X.columns]
     if proxies is not None:
@@ -884,10 +891,17 @@ def _choose_proxies(ctx, X, attribute, proxies, n_proxies, seed, notes):
     # keep this step small next to the model calls it serves
     found = find_proxies(X, attribute, features=candidates, multivariate=False, rng=seed,
                          max_rows=20_000)
-    chosen = list(found.top(n_proxies))
-    notes.append("proxies moved (top by cross-fitted single-feature AUC): "
-                 + ", ".join(f"`{r.feature}` (AUC {r.auc:.3f})" for r in found.rows[:n_proxies]))
-    return chosen
+    # only features that do stand in for the attribute are moved: a feature whose cross-fitted AUC
+    # is at chance would be shuffled between two near-identical distributions for nothing
+    rows = [r for r in found.rows[:n_proxies] if np.isfinite(r.auc) and r.auc >= MIN_PROXY_AUC]
+    if not rows:
+        notes.append(f"no feature predicts `{attribute}` with a cross-fitted AUC of at least "
+                     f"{MIN_PROXY_AUC}: nothing but the attribute is moved")
+        return []
+    notes.append(f"proxies moved (top {n_proxies} by cross-fitted single-feature AUC, "
+                 f"those at or above {MIN_PROXY_AUC}): "
+                 + ", ".join(f"`{r.feature}` (AUC {r.auc:.3f})" for r in rows))
+    return [r.feature for r in rows]
 
 
 # ---------------------------------------------------------------------------------------------

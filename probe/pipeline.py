@@ -76,7 +76,7 @@ def load_holdout(plan: Plan) -> Holdout:
     frame = read_table(path)
     return prepare_holdout(
         frame,
-        label=plan.data.label,
+        label=plan.data.label or None,
         positive=plan.data.positive,
         protected=plan.data.protected,
         intersections=plan.data.intersections,
@@ -145,7 +145,7 @@ def run_plan(plan: Plan, *, command: str | None = None, progress: Progress | Non
     report: dict = {"schema": SCHEMA, "caution": CAUTION}
     groups = None
     unknown = None
-    if holdout.protected or holdout.intersections:
+    if holdout.y_true is not None and (holdout.protected or holdout.intersections):
         with clock.step("groups"):
             g = group_metrics(frame, holdout.y_true, decision, attributes=holdout.protected,
                               intersections=holdout.intersections, favorable=favorable,

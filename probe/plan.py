@@ -1,6 +1,7 @@
 """The probe plan: a TOML file (or the same settings as flags) turned into one validated, frozen Plan.
 
-Every key has a default except ``data.path``, ``data.label`` and ``model.spec``. An unknown key is an
+Every key has a default except ``data.path``, ``data.label`` and ``model.spec`` (a plan that only
+runs flips or proxies needs no label; one that only runs proxies needs no model). An unknown key is an
 error that names it and suggests the close key: a typo must not silently change a release decision.
 Relative paths are relative to the plan file. The sections present decide what ``probe run`` does:
 groups always (when protected attributes are given), slices / flips / proxies / compare when their
@@ -318,7 +319,9 @@ def plan_from_dict(raw: dict, *, base_dir: str | Path | None = None, where: str 
     for name in _SECTIONS:
         if name in raw:
             kwargs[name] = _section(name, raw[name], where)
-    if needs_model and not kwargs["data"].label:
+    # flips and proxies need no label; groups, slices and the comparison do
+    needs_label = bool({"slices", "compare"} & set(raw)) or not ({"flips", "proxies"} & set(raw))
+    if needs_label and not kwargs["data"].label:
         raise _fail(where, "[data] needs `label`")
     plan = Plan(base_dir=Path(base_dir) if base_dir is not None else Path.cwd(), sha256=sha256, **kwargs)
     _validate(plan, where)

@@ -361,10 +361,21 @@ def _fold_ids(n, cv, seed):
     return fold
 
 
+def _auc(target: np.ndarray, score: np.ndarray) -> float:
+    """ROC AUC with ties counted as one half (the Mann-Whitney form), from counts per distinct score:
+    the same number as ``sklearn.metrics.roc_auc_score`` without its per-call validation cost."""
+    values, inv = np.unique(score, return_inverse=True)
+    pos = np.bincount(inv, weights=target, minlength=len(values))
+    neg = np.bincount(inv, minlength=len(values)) - pos
+    n_pos, n_neg = pos.sum(), neg.sum()
+    if n_pos == 0 or n_neg == 0:
+        return float("nan")
+    below = np.cumsum(neg) - neg
+    return float(np.sum(pos * (below + 0.5 * neg)) / (n_pos * n_neg))
+
+
 def _crossfit_auc(y, codes, n_levels, n_codes, fold, cv) -> float:
     """AUC of the out-of-fold level rate of the attribute as a score (macro one-vs-rest)."""
-    from sklearn.metrics import roc_auc_score
-
     cells = (fold * n_codes + codes) * n_levels + y
     c = np.bincount(cells, minlength=cv * n_codes * n_levels).reshape(cv, n_codes, n_levels)
     total = c.sum(axis=0)
@@ -373,7 +384,7 @@ def _crossfit_auc(y, codes, n_levels, n_codes, fold, cv) -> float:
     rates = (train + prior) / (train.sum(axis=2, keepdims=True) + 1.0)
     score = rates[fold, codes, :]  # (n, n_levels)
     targets = [n_levels - 1] if n_levels == 2 else range(n_levels)
-    aucs = [roc_auc_score(y == lv, score[:, lv]) for lv in targets]
+    aucs = [_auc((y == lv).astype(float), score[:, lv]) for lv in targets]
     return float(np.mean(aucs))
 
 

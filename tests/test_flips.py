@@ -316,6 +316,25 @@ def test_transport_finds_the_proxy_itself_and_moves_the_attribute_when_an_input(
     assert row.to_unfavorable.value == 0
 
 
+def test_transport_moves_only_features_that_stand_in_for_the_attribute():
+    # planted: `postcode` carries `group`, `noise` does not; asked for up to 2 proxies, only the
+    # real one is moved (a chance-level feature has a cross-fitted AUC near 0.5 < MIN_PROXY_AUC)
+    g = np.random.default_rng(5)
+    n = 4000
+    group = g.choice(["a", "b"], n)
+    X = pd.DataFrame({"group": group,
+                      "postcode": np.where(g.random(n) < 0.9, np.where(group == "a", "P1", "P2"),
+                                           g.choice(["P1", "P2"], n)),
+                      "noise": g.normal(size=n)})
+    model = Wrapped(lambda f: 0.3 + 0.4 * (f["postcode"] == "P1") + 0.01 * f["noise"],
+                    ["postcode", "noise"])
+    (row, _) = flip_test(model, X, "group", mode="transport", n_proxies=2).rows
+    assert row.moved == ("postcode",)
+    alone = Wrapped(lambda f: 0.5 + 0.01 * f["noise"], ["noise"])
+    res = flip_test(alone, X, "group", mode="transport", n_proxies=2)
+    assert any("nothing but the attribute is moved" in note for note in res.notes)
+
+
 def test_transport_is_deterministic_for_a_seed():
     X = _credit(n=500)
     model = _sklearn_model(X)

@@ -202,3 +202,15 @@ def test_scenario_planted_proxies_rank_first(name, built):
         features = [c for c in truths["model_inputs"] if c != attribute]
         found = find_proxies(frame, attribute, features=features, multivariate=False)
         assert found.top(1) == (proxy,), (attribute, found.to_frame().head(3))
+
+
+def test_fast_auc_equals_scikit_learn_with_ties():
+    from sklearn.metrics import roc_auc_score
+
+    from probe.proxies import _auc
+
+    rng = np.random.default_rng(3)
+    for _ in range(20):
+        target = rng.random(500) < rng.uniform(0.05, 0.6)
+        score = rng.integers(0, rng.integers(2, 12), 500) / 7.0  # heavy ties, as level rates give
+        assert _auc(target.astype(float), score) == pytest.approx(roc_auc_score(target, score), abs=1e-12)
