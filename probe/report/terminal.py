@@ -19,6 +19,8 @@ from rich.text import Text
 
 __all__ = ["render", "progress", "fmt_estimate"]
 
+_METRIC_WORDS = {"error": "error rate", "fpr": "false-positive rate", "fnr": "false-negative rate",
+                 "selection": "selection rate"}
 _STYLE = {"pass": "green", "fail": "bold red", "inconclusive": "yellow", "no policy": "cyan"}
 
 
@@ -101,8 +103,13 @@ def _pct_plain(est: dict | None) -> str:
 
 def _slices_table(slices: dict) -> Group:
     overall = fmt_estimate(slices.get("overall"))
-    t = Table(title=f"Slices where the {slices['metric']} rate is worst (overall {overall}; "
-                    f"{slices.get('tested', 0)} tested)", box=box.SIMPLE_HEAD, title_justify="left")
+    metric = _METRIC_WORDS.get(slices["metric"], slices["metric"])
+    worst = "lowest" if slices.get("direction") == "lower" else "highest"
+    t = Table(title=f"Slices with the {worst} {metric} (overall {overall}; "
+                    f"{slices.get('tested', 0)} tested"
+                    + ("; rates and q on held-out rows)" if (slices.get("settings") or {}).get("split", True)
+                       else "; no split: rates and q on all rows)"),
+              box=box.SIMPLE_HEAD, title_justify="left")
     for col, just in (("#", "right"), ("slice", "left"), ("rows", "right"), ("share", "right"),
                       ("rate % [95% CI]", "right"), ("gap pts [95% CI]", "right"), ("q", "right")):
         t.add_column(col, justify=just, overflow="fold")
@@ -120,10 +127,12 @@ def _slices_table(slices: dict) -> Group:
 
 def _flips_table(flips: list[dict]) -> Group:
     t = Table(title="Counterfactual flips", box=box.SIMPLE_HEAD, title_justify="left")
+    widths = {"attribute": 9, "mode": 9, "from → to": 12}
     for col, just in (("attribute", "left"), ("mode", "left"), ("from → to", "left"),
-                      ("rows", "right"), ("flip rate", "right"), ("to favourable", "right"),
-                      ("to unfavourable", "right")):
-        t.add_column(col, justify=just, overflow="fold")
+                      ("rows", "right"), ("flip %", "right"), ("fav/unfav %", "right"),
+                      ("twins excess", "right")):
+        t.add_column(col, justify=just, overflow="fold", min_width=widths.get(col),
+                     no_wrap=col in ("flip %", "twins excess"))
     notes = []
     for f in flips:
         if f.get("flip_rate") is None:
@@ -133,8 +142,13 @@ def _flips_table(flips: list[dict]) -> Group:
         if f.get("impossible"):
             pair.append(" (level unseen by the model)", style="yellow")
         t.add_row(Text(str(f["attribute"])), f["mode"], pair, str(f["rows"]),
-                  fmt_estimate(f["flip_rate"]), fmt_estimate(f["to_favorable"]),
-                  fmt_estimate(f["to_unfavorable"]))
+                  fmt_estimate(f["flip_rate"]),
+                  f"{_pct_plain(f['to_favorable'])} / {_pct_plain(f['to_unfavorable'])}",
+                  fmt_estimate(f.get("excess")))
+    if any(f.get("mode") == "twins" for f in flips):
+        notes.append(Text("  fav/unfav: decisions that become favourable / unfavourable; twins "
+                          "excess: points by which decisions differ from twins in the other group "
+                          "more often than from twins in the person's own group"))
     return Group(t, *notes)
 
 
