@@ -154,6 +154,17 @@ def wilson(x: float, n: float, *, confidence_level: float = 0.95) -> Estimate:
     return Estimate(float(x) / float(n), float(low), float(high), "wilson")
 
 
+def _two_wilson(x1, n1, x2, n2, confidence_level):
+    """Counts, rates and Wilson limits of two groups: what the MOVER-type intervals combine."""
+    out = []
+    for x, n in ((x1, n1), (x2, n2)):
+        x, n = _as_counts(x, n)
+        low, high = wilson_interval(x, n, confidence_level=confidence_level)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            out.append((x, n, x / n, low, high))
+    return out
+
+
 def newcombe_interval(x1, n1, x2, n2, *, confidence_level: float = 0.95):
     """Newcombe's hybrid score interval for ``x1/n1 - x2/n2``, vectorised.
 
@@ -165,13 +176,8 @@ def newcombe_interval(x1, n1, x2, n2, *, confidence_level: float = 0.95):
     ``low = d - sqrt((p1 - l1)² + (u2 - p2)²)``, ``high = d + sqrt((u1 - p1)² + (p2 - l2)²)``
     (Newcombe 1998b, method 10).
     """
-    x1, n1 = _as_counts(x1, n1)
-    x2, n2 = _as_counts(x2, n2)
-    l1, u1 = wilson_interval(x1, n1, confidence_level=confidence_level)
-    l2, u2 = wilson_interval(x2, n2, confidence_level=confidence_level)
+    (x1, n1, p1, l1, u1), (x2, n2, p2, l2, u2) = _two_wilson(x1, n1, x2, n2, confidence_level)
     with np.errstate(invalid="ignore", divide="ignore"):
-        p1 = x1 / n1
-        p2 = x2 / n2
         d = p1 - p2
         low = d - np.sqrt((p1 - l1) ** 2 + (u2 - p2) ** 2)
         high = d + np.sqrt((u1 - p1) ** 2 + (p2 - l2) ** 2)
@@ -200,13 +206,8 @@ def ratio_interval(x1, n1, x2, n2, *, confidence_level: float = 0.95):
         low  = (p1 p2 - sqrt((p1 p2)² - l1 u2 (2 p1 - l1)(2 p2 - u2))) / (u2 (2 p2 - u2))
         high = (p1 p2 + sqrt((p1 p2)² - u1 l2 (2 p1 - u1)(2 p2 - l2))) / (l2 (2 p2 - l2))
     """
-    x1, n1 = _as_counts(x1, n1)
-    x2, n2 = _as_counts(x2, n2)
-    l1, u1 = wilson_interval(x1, n1, confidence_level=confidence_level)
-    l2, u2 = wilson_interval(x2, n2, confidence_level=confidence_level)
+    (x1, n1, p1, l1, u1), (x2, n2, p2, l2, u2) = _two_wilson(x1, n1, x2, n2, confidence_level)
     with np.errstate(invalid="ignore", divide="ignore"):
-        p1 = x1 / n1
-        p2 = x2 / n2
         pp = p1 * p2
         low_disc = np.maximum(pp * pp - l1 * u2 * (2 * p1 - l1) * (2 * p2 - u2), 0.0)
         high_disc = np.maximum(pp * pp - u1 * l2 * (2 * p1 - u1) * (2 * p2 - l2), 0.0)
