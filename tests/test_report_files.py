@@ -585,3 +585,19 @@ def test_proxies_section_renders_when_present():
     assert 'id="proxies"' in html_text and "<b>income</b>" not in html_text
     assert html_text.index('id="flips"') < html_text.index('id="proxies"') < html_text.index('id="comparison"')
     assert "## Proxies" not in render_markdown(example_report())  # absent section: nothing rendered
+
+
+def test_flip_concentration_is_rendered_when_present():
+    from probe.report.html import render_html
+    from probe.report.markdown import render_markdown
+
+    report = example_report()
+    flips = [f for f in report["flips"] if f.get("flip_rate")]
+    flips[0]["by_slice"] = [{"predicates": [], "label": "region = <north> & age in [25, 34)",
+                             "rows": 212, "flip_rate": {"value": 0.25, "low": 0.2, "high": 0.31,
+                                                        "method": "wilson"}}]
+    md = render_markdown(report)
+    section = md[md.index("### Where the flips concentrate"):]
+    assert "age in \\[25, 34)" in section and "0.250 [0.200, 0.310]" in section
+    html_text = render_html(report)
+    assert "Where the flips concentrate" in html_text and "&lt;north&gt;" in html_text

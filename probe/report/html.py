@@ -346,6 +346,17 @@ def _flips(report: Mapping) -> str:
         )
     )
     out.append(_sentences(flips, "ul"))
+    concentrated = [(f, s) for f in flips for s in (f.get("by_slice") or [])[:3]]
+    if concentrated:
+        out.append("<h3>Where the flips concentrate</h3><p>For each flip test, the slices of the "
+                   "other columns with the highest flip rates.</p>")
+        out.append(_table(
+            ["attribute", "mode", "change", "slice", "rows", "flip rate"],
+            ([_e(f.get("attribute")), _e(f.get("mode")), f"{_e(f.get('from'))} → {_e(f.get('to'))}",
+              _e(s.get("label")), fmt_count(s.get("rows")), _est(s.get("flip_rate"))]
+             for f, s in concentrated),
+            num="llllrr",
+        ))
     return "".join(out) + "</section>"
 
 

@@ -442,7 +442,19 @@ def _flips(report: Mapping) -> list[str]:
         (row(f) for f in flips),
         "lllrrrrr",
     )
-    return out + _sentences(flips, numbered=False)
+    out += _sentences(flips, numbered=False)
+    concentrated = [(f, s) for f in flips for s in (f.get("by_slice") or [])[:3]]
+    if concentrated:
+        out += ["### Where the flips concentrate", "",
+                "For each flip test, the slices of the other columns with the highest flip rates.", ""]
+        out += _table(
+            ["attribute", "mode", "change", "slice", "rows", "flip rate"],
+            ([md_escape(f.get("attribute")), md_escape(f.get("mode")),
+              md_escape(f"{f.get('from')} → {f.get('to')}"), md_escape(s.get("label")),
+              fmt_count(s.get("rows")), fmt_est(s.get("flip_rate"))] for f, s in concentrated),
+            "llllrr",
+        )
+    return out
 
 
 def _proxies(report: Mapping) -> list[str]:
