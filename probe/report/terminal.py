@@ -122,6 +122,8 @@ def _slices_table(slices: dict) -> Group:
             parts.append(Text(f"  {s['rank']}. {s['sentence']}"))
     if not slices["found"]:
         parts.append(Text("  no slice met the minimum support and beat the rest of the data"))
+    for note in slices.get("notes") or []:
+        parts.append(Text(f"  note: {note}", style="dim"))
     return Group(*parts)
 
 
