@@ -312,18 +312,23 @@ def _attribute_rows(name, labels, c, min_share, confidence_level, notes):
     for i, label in enumerate(labels):
         rates = {k: Estimate(float(v[i]), float(lo[i]), float(hi[i]), "wilson")
                  for k, (v, lo, hi) in est.items()}
+        if i == ref:  # compared with itself: exactly 1 and 0, not an interval of two samples
+            ir_low[i], ir_high[i], sp_low[i], sp_high[i] = 1.0, 1.0, 0.0, 0.0
+            eo_low[i] = eo_high[i] = 0.0 if np.isfinite(opp[i]) else np.nan
         out.append(GroupRow(
             attribute=name,
             group=label,
             rows=int(n[i]),
             share=float(share[i]),
             small=bool(small[i]),
-            impact_ratio=Estimate(float(ir[i]), float(ir_low[i]), float(ir_high[i]), "mover-wilson"),
+            impact_ratio=Estimate(float(ir[i]), float(ir_low[i]), float(ir_high[i]),
+                                  "reference" if i == ref else "mover-wilson"),
             reference_group=labels[ref],
             four_fifths_flag=bool(ir[i] < FOUR_FIFTHS),
             spd=Estimate(float(sel_rate[i] - ref_rate), float(sp_low[i]), float(sp_high[i]),
-                         "newcombe"),
-            eod=Estimate(float(opp[i] - opp[ref]), float(eo_low[i]), float(eo_high[i]), "newcombe"),
+                         "reference" if i == ref else "newcombe"),
+            eod=Estimate(float(opp[i] - opp[ref]), float(eo_low[i]), float(eo_high[i]),
+                         "reference" if i == ref else "newcombe"),
             **rates,
         ))
     return out

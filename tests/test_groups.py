@@ -169,3 +169,10 @@ def test_favourable_negative_decision_flips_selection():
 def test_shape_mismatch_is_a_clear_error():
     with pytest.raises(DataError, match="one value per row"):
         group_metrics(pd.DataFrame({"g": ["a", "b"]}), [True], [True, False], attributes=["g"])
+
+
+def test_the_reference_group_is_exactly_one_not_an_interval():
+    frame, sel = _table([("a", 100, 60), ("b", 100, 40)])
+    ref = _row(group_metrics(frame, sel, sel, attributes=["g"]), "g", "a")
+    assert (ref.impact_ratio.value, ref.impact_ratio.low, ref.impact_ratio.high) == (1.0, 1.0, 1.0)
+    assert (ref.spd.low, ref.spd.high) == (0.0, 0.0) and ref.impact_ratio.method == "reference"
