@@ -63,8 +63,9 @@ def _common(p: argparse.ArgumentParser, *, model: bool = True, label: bool = Tru
 
 def _output(p: argparse.ArgumentParser) -> None:
     o = p.add_argument_group("output")
-    o.add_argument("--seed", type=int, default=0, help="random seed, written into the report (0)")
-    o.add_argument("--confidence-level", type=float, default=0.95, help="for every interval (0.95)")
+    o.add_argument("--seed", type=int, help="random seed, written into the report (the plan's, else 0)")
+    o.add_argument("--confidence-level", type=float,
+                   help="for every interval (the plan's, else 0.95)")
     o.add_argument("--out", metavar="DIR", help="report folder (default reports/<name>-<time>/)")
     o.add_argument("--json", metavar="FILE", help="also write the report JSON to FILE")
     o.add_argument("--quiet", action="store_true", help="print only the verdict line")
@@ -147,8 +148,7 @@ def _plan_dict(args) -> dict:
         data["protected"] = _list(args.protected)
     if args.intersection:
         data["intersections"] = [_list(i) for i in args.intersection]
-    raw: dict = {"name": args.command, "seed": args.seed, "confidence_level": args.confidence_level,
-                 "data": data}
+    raw: dict = {"name": args.command, "data": data}
     if getattr(args, "model", None):
         if getattr(args, "features", None):
             data["features"] = _list(args.features)
@@ -213,9 +213,7 @@ def _execute(args, console) -> int:
         if not args.quiet:
             console.print(f"building scenario [bold]{args.scenario}[/] (cached after the first run) …")
         built = build_scenario(args.scenario, force=args.rebuild)
-        plan = load_plan(built.plan_path)
-        plan = plan.with_overrides(seed=args.seed, confidence_level=args.confidence_level,
-                                   name=f"demo-{args.scenario}")
+        plan = load_plan(built.plan_path).with_overrides(name=f"demo-{args.scenario}")
     elif args.command == "run":
         plan = load_plan(args.plan)
         if args.fail_on_inconclusive:
@@ -224,20 +222,25 @@ def _execute(args, console) -> int:
             plan = plan.with_overrides(policy=replace(plan.policy, fail_on_inconclusive=True))
     else:
         plan = plan_from_dict(_plan_dict(args))
+    overrides = {k: v for k, v in (("seed", args.seed), ("confidence_level", args.confidence_level))
+                 if v is not None}
+    if overrides:  # flags win over the plan; validated like the plan's own values
+        raw = {k: v for k, v in plan.to_dict().items() if v is not None}
+        plan = plan_from_dict({**raw, **overrides}, base_dir=plan.base_dir, sha256=plan.sha256)
 
-    command = "probe " + " ".join(shlex.quote(a) for a in sys.argv[1:]) if args.argv is None else \
-        "probe " + " ".join(shlex.quote(a) for a in args.argv)
+    argv = sys.argv[1:] if args.argv is None else args.argv
+    command = "probe " + " ".join(shlex.quote(a) for a in argv)
     with terminal.progress(console, enabled=not args.quiet) as progress:
         report = pipeline.run_plan(plan, command=command, progress=progress)
 
     out = _out_dir(args, plan)
     written = {}
+    text = to_json(report)
     if out is not None:
-        written = write_report(report, out, formats=plan.report.formats, json_text=to_json(report))
+        written = write_report(report, out, formats=plan.report.formats, json_text=text)
     if args.json:
-        written["json-copy"] = write_report(report, Path(args.json).parent or Path("."),
-                                            formats=("json",), json_text=to_json(report),
-                                            names={"json": Path(args.json).name})["json"]
+        written["json-copy"] = write_report(report, Path(args.json).parent, formats=("json",),
+                                            json_text=text, names={"json": Path(args.json).name})["json"]
     terminal.render(report, console, quiet=args.quiet, written=written)
     if args.command == "demo" and not args.strict:
         return EXIT_OK

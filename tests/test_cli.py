@@ -146,3 +146,14 @@ def test_each_subcommand_runs_on_a_built_scenario(tmp_path, built):
     assert max(f["flip_rate"]["value"] for f in flips["flips"]) > 0.05  # scenarios/hiring/README.md
     proxies = json.loads((tmp_path / "proxies" / "r.json").read_text())
     assert proxies["proxies"][0]["features"][0]["feature"] == s.truths["proxies"]["group"]
+
+
+def test_seed_and_confidence_flags_override_the_plan(tmp_path):
+    plan = _plan(tmp_path, _holdout(tmp_path, 0.3), extra="seed = 3")
+    plan.write_text("seed = 3\n" + plan.read_text().replace("seed = 3", ""))
+    main(["run", str(plan)], console=_console())
+    assert json.loads((tmp_path / "out" / "report.json").read_text())["provenance"]["seed"] == 3
+    main(["run", str(plan), "--seed", "7", "--confidence-level", "0.9"], console=_console())
+    prov = json.loads((tmp_path / "out" / "report.json").read_text())["provenance"]
+    assert (prov["seed"], prov["confidence_level"]) == (7, 0.9)
+    assert main(["run", str(plan), "--confidence-level", "2"], console=_console()) == EXIT_BAD_INPUT
