@@ -43,7 +43,7 @@ class RuleResult:
     status : str
         ``"pass"``, ``"fail"`` or ``"inconclusive"``.
     message : str
-        One line saying why.
+        Why, in a few words (the value and its interval are in ``value``).
     """
 
     name: str
@@ -106,16 +106,11 @@ class Verdict:
                 "rules": [r.to_dict() for r in self.rules]}
 
 
-def _fmt(x) -> str:
-    return "n/a" if x is None else f"{x:.4g}"
-
-
 def _judge(name, subject, threshold, est, *, upper: bool) -> RuleResult:
     if est is None or est.get("value") is None or est.get("low") is None or est.get("high") is None:
         return RuleResult(name, subject, threshold, est, "inconclusive",
                           "not measured (the estimate is undefined)")
-    low, high, value = est["low"], est["high"], est["value"]
-    shown = f"{_fmt(value)} [{_fmt(low)}, {_fmt(high)}]"
+    low, high = est["low"], est["high"]
     if upper:
         if high <= threshold:
             status, why = "pass", f"whole interval at or below the bound {threshold:g}"
@@ -130,7 +125,7 @@ def _judge(name, subject, threshold, est, *, upper: bool) -> RuleResult:
             status, why = "fail", f"whole interval below the bound {threshold:g}"
         else:
             status, why = "inconclusive", f"interval straddles the bound {threshold:g}"
-    return RuleResult(name, subject, threshold, est, status, f"{shown}: {why}")
+    return RuleResult(name, subject, threshold, est, status, why)
 
 
 def _not_run(name, threshold, section) -> RuleResult:

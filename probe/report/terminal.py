@@ -66,7 +66,10 @@ def _verdict_panel(verdict: dict) -> Panel:
         worst = next((r for k in ("fail", "inconclusive", "pass") for r in group if r["status"] == k))
         line = Text(f"{worst['status']:<12} ", style=_STYLE.get(worst["status"], ""))
         line.append(f"{name}: " + ", ".join(f"{v} {k}" for k, v in tally.items() if v))
-        line.append(f"; e.g. {worst['subject']}: {worst['message']}", style="dim")
+        value = worst.get("value") or {}
+        shown = ("" if value.get("value") is None else
+                 f" {value['value']:.4g} [{value['low']:.4g}, {value['high']:.4g}]")
+        line.append(f"; e.g. {worst['subject']}:{shown}, {worst['message']}", style="dim")
         lines.append(line)
     if not rules:
         lines.append(Text("no policy rules: nothing was judged"))
