@@ -162,6 +162,18 @@ def _verdict(report: Mapping) -> str:
     )
     order = {"fail": 0, "inconclusive": 1, "pass": 2}
     ranked = sorted(rules, key=lambda r: order[rule_status(r)])
+    by_name: dict = {}
+    for r in ranked:
+        by_name.setdefault(r.get("name"), []).append(r)
+    summary = []
+    for name, group in by_name.items():
+        counts = status_counts(group)
+        tally = ", ".join(f"{counts[k]} {k}" for k in ("fail", "inconclusive", "pass") if counts[k])
+        summary.append([_status(rule_status(group[0])), f'<code class="name">{_e(name)}</code>',
+                        _e(bound_text(group[0])), tally, _e(group[0].get("subject"))])
+    out.append(_table(["worst", "rule", "bound", "subjects", "worst subject"], summary,
+                      num="llllw"))
+    out.append(f"<details><summary>All {len(rules)} rule checks</summary>")
     out.append(
         _table(
             ["status", "rule", "subject", "measured", "interval", "bound", "note"],
@@ -181,7 +193,7 @@ def _verdict(report: Mapping) -> str:
             row_classes=["fail" if rule_status(r) == "fail" else "" for r in ranked],
         )
     )
-    return "".join(out) + "</section>"
+    return "".join(out) + "</details></section>"
 
 
 def _groups(report: Mapping) -> str:
