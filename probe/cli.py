@@ -87,7 +87,13 @@ def _slice_options(p: argparse.ArgumentParser) -> None:
 
 
 def build_parser() -> argparse.ArgumentParser:
-    parser = _Parser(prog="probe", description="Test a trained binary classifier before release.")
+    parser = _Parser(
+        prog="probe",
+        description="Test a trained binary classifier before release.",
+        epilog="Exit codes: 0 ran and the policy passed (or there is none), 1 the policy failed, "
+               "2 bad usage or input. probe is a statistical screen, not a legal finding; the "
+               "four-fifths rule is a rule of thumb; defer to counsel, local law and licensed practice.",
+    )
     from . import __version__
 
     parser.add_argument("--version", action="version", version=f"probe {__version__}")
