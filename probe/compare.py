@@ -15,9 +15,9 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from .errors import DataError
+from .errors import DataError, PlanError
 from .slices import METRICS, metric_outcome, search_slices
-from .stats import Estimate, mcnemar_pvalue, wilson, z_value
+from .stats import Estimate, mcnemar_pvalue, wilson
 
 __all__ = ["MetricComparison", "Comparison", "compare_models", "paired_difference"]
 
@@ -76,6 +76,7 @@ class Comparison:
     metrics: tuple[MetricComparison, ...]
     worse_slices: object
     agreement: float
+    confidence_level: float = 0.95
 
     @property
     def overall(self) -> MetricComparison:
@@ -83,7 +84,8 @@ class Comparison:
 
     def to_dict(self) -> dict:
         found = self.worse_slices.to_dict()
-        worse = [{**s, "sentence": _worse_sentence(s, self.metric)} for s in found["found"]]
+        worse = [{**s, "sentence": _worse_sentence(s, self.metric, self.confidence_level)}
+                 for s in found["found"]]
         return {"metric": self.metric, "agreement": self.agreement,
                 "overall": self.overall.to_dict(),
                 "metrics": [m.to_dict() for m in self.metrics],
@@ -103,18 +105,20 @@ _METRIC_WORDS = {"error": "error rate", "fpr": "false-positive rate", "fnr": "fa
                  "selection": "selection rate"}
 
 
-def _worse_sentence(found: dict, metric: str) -> str:
+def _worse_sentence(found: dict, metric: str, confidence_level: float) -> str:
     """One line for a worse slice: how far the candidate is behind the baseline there and elsewhere."""
     rate, gap = found["rate"], found["gap"]
     if rate["value"] is None or gap["value"] is None:
         return f"Rows with {found['label']}: the difference is undefined."
     rest = rate["value"] - gap["value"]
     word = _METRIC_WORDS.get(metric, metric)
-    change = "lower" if metric in _WORSE_IS_LOWER else "higher"
-    return (f"Rows with {found['label']}: the candidate's {word} is {100 * rate['value']:.1f} points "
-            f"{change} than the baseline's on the same rows (95 % interval "
-            f"{100 * rate['low']:.1f} to {100 * rate['high']:.1f}), against "
-            f"{100 * rest:.1f} points on the other rows.")
+    lower = metric in _WORSE_IS_LOWER
+    # the figures are oriented so that positive = candidate worse; say which way they go
+    change = ("lower" if lower else "higher") if rate["value"] >= 0 else ("higher" if lower else "lower")
+    return (f"Rows with {found['label']}: the candidate's {word} is {abs(100 * rate['value']):.1f} "
+            f"points {change} than the baseline's on the same rows ({100 * confidence_level:g} % "
+            f"interval of the shortfall {100 * rate['low']:.1f} to {100 * rate['high']:.1f}), "
+            f"against {100 * rest:.1f} points on the other rows.")
 
 
 def paired_difference(cand, base, *, n_resamples: int = 4000, confidence_level: float = 0.95,
@@ -190,35 +194,39 @@ def compare_models(
     -------
     Comparison
     """
-    if metric not in METRICS:
-        raise DataError(f"`metric` must be one of {', '.join(METRICS)}, got {metric!r}")
-    y_true = np.asarray(y_true, dtype=bool)
-    cand = np.asarray(y_pred, dtype=bool)
-    base = np.asarray(y_pred_baseline, dtype=bool)
-    if not (len(y_true) == len(cand) == len(base) == len(X)):
+    if not isinstance(n_resamples, (int, np.integer)) or n_resamples < 100:
+        raise PlanError(f"`n_resamples` must be an integer of at least 100, got {n_resamples!r}")
+    if not 0.0 < confidence_level < 1.0:
+        raise PlanError(
+            f"`confidence_level` must lie strictly between 0 and 1, got {confidence_level!r}")
+    # metric_outcome checks that labels and decisions are 0/1 (scores or text are refused there)
+    outcomes = {}
+    for name in METRICS if y_true is not None else ("selection",):
+        c_out, mask = metric_outcome(y_true, y_pred, name, favorable=favorable)
+        b_out, _ = metric_outcome(y_true, y_pred_baseline, name, favorable=favorable)
+        outcomes[name] = (c_out, b_out, mask)
+    if metric not in outcomes:
+        raise DataError(f"the `{metric}` comparison needs the labels (`y_true`)")
+    if not len(X) == len(outcomes[metric][0]) == len(outcomes[metric][1]):
         raise DataError(
-            f"candidate and baseline must be scored on the same rows: got {len(cand)} and "
-            f"{len(base)} decisions for {len(X)} rows"
+            f"candidate and baseline must be scored on the same rows: got "
+            f"{len(outcomes[metric][0])} and {len(outcomes[metric][1])} decisions for {len(X)} rows"
         )
-    z_value(confidence_level)
     rng = np.random.default_rng(rng)
     boot_seed, search_seed = rng.spawn(2)
     results = []
-    for name in METRICS:
-        c_out, mask = metric_outcome(y_true, cand, name, favorable=favorable)
-        b_out, _ = metric_outcome(y_true, base, name, favorable=favorable)
-        c_out, b_out = c_out[mask].astype(bool), b_out[mask].astype(bool)
-        diff, p, disc = paired_difference(c_out, b_out, n_resamples=n_resamples,
+    for name, (c_out, b_out, mask) in outcomes.items():
+        c_in, b_in = c_out[mask].astype(bool), b_out[mask].astype(bool)
+        diff, p, disc = paired_difference(c_in, b_in, n_resamples=n_resamples,
                                           confidence_level=confidence_level, rng=boot_seed)
         m = int(mask.sum())
         results.append(MetricComparison(
             name,
-            wilson(int(c_out.sum()), m, confidence_level=confidence_level),
-            wilson(int(b_out.sum()), m, confidence_level=confidence_level),
+            wilson(int(c_in.sum()), m, confidence_level=confidence_level),
+            wilson(int(b_in.sum()), m, confidence_level=confidence_level),
             diff, p, disc,
         ))
-    c_out, mask = metric_outcome(y_true, cand, metric, favorable=favorable)
-    b_out, _ = metric_outcome(y_true, base, metric, favorable=favorable)
+    c_out, b_out, mask = outcomes[metric]
     worse = c_out.astype(float) - b_out.astype(float)
     if metric in _WORSE_IS_LOWER:
         worse = -worse
@@ -227,4 +235,5 @@ def compare_models(
         top=top, confidence_level=confidence_level, rng=search_seed,
         metric=f"paired {metric} difference (candidate worse > 0)",
     )
-    return Comparison(metric, tuple(results), found, float(np.mean(cand == base)))
+    agreement = float(np.mean(outcomes["selection"][0] == outcomes["selection"][1]))
+    return Comparison(metric, tuple(results), found, agreement, confidence_level)

@@ -13,7 +13,8 @@ What each rule is measured on:
   rules allow leaving them out of impact ratios), which are listed as not judged.
 - ``max_flip_rate``: every applicable flip row's flip rate; for twins, the excess of the cross-group
   discordance over the own-group discordance (the part attributable to the group), when reported.
-- ``max_slice_gap``: every reported slice's gap to the rest of the data (estimate part).
+- ``max_slice_gap``: every reported slice's gap to the rest of the data (estimate part), oriented so
+  that larger is worse: for selection (where the lowest rates are the finding) the shortfall.
 - ``max_regression``: the comparison's overall difference in its metric (candidate minus baseline),
   and each worse slice's mean paired difference.
 """
@@ -128,6 +129,12 @@ def _judge(name, subject, threshold, est, *, upper: bool) -> RuleResult:
     return RuleResult(name, subject, threshold, est, status, why)
 
 
+def _shortfall(est: dict) -> dict:
+    """A gap where lower is worse (selection), turned so that larger is worse like the others."""
+    neg = {k: (None if est.get(k) is None else -est[k]) for k in ("value", "low", "high")}
+    return {"value": neg["value"], "low": neg["high"], "high": neg["low"], "method": est.get("method")}
+
+
 def _not_run(name, threshold, section) -> RuleResult:
     return RuleResult(name, "(not run)", threshold, None, "inconclusive",
                       f"`{name}` is set but the {section} were not run; nothing was measured")
@@ -180,9 +187,13 @@ def judge(report: dict, policy: PolicySection) -> Verdict:
         if slices is None:
             rules.append(_not_run("max_slice_gap", bound, "slice search"))
         else:
+            lower = slices.get("direction") == "lower"
             for s in slices["found"]:
                 subject = f"slice {s['rank']}: {s['label']}"
-                rules.append(_judge("max_slice_gap", subject, bound, s["gap"], upper=True))
+                gap = _shortfall(s["gap"]) if lower else s["gap"]
+                if lower:
+                    subject += " (shortfall in selection rate)"
+                rules.append(_judge("max_slice_gap", subject, bound, gap, upper=True))
     if policy.max_regression is not None:
         bound = policy.max_regression
         comparison = report.get("comparison")

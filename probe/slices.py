@@ -42,7 +42,7 @@ How it works
    With ``split=False`` (small data) everything is computed on all rows and the multiplicity is every
    slice scored during the search: all slices meeting ``min_rows`` in every column set visited, counted
    exactly; BH uses that ``m`` with the p-values of the slices not carried set to 1 (conservative).
-   Column sets the pruning never visited are not counted.
+   Nothing is pruned then, so the count, and every q-value, does not depend on ``top``.
 6. **Bootstrap** (``interval="bootstrap"``): the estimate-part rows are resampled (multinomial) for all
    carried slices at once; because a slice's rate and gap depend on its rows only through the counts of
    (inside/outside the slice) x (outcome value) cells, the resample is drawn on those cells, which is the
@@ -424,7 +424,7 @@ def find_slices(
         if isinstance(y, pd.Series) and name is not None and name in X.columns:
             auto_exclude.append(name)
     outcome, base = metric_outcome(
-        None if metric == "selection" and y_true is None else y_true, y_pred, metric,
+        y_true, y_pred, metric,
         favorable=favorable,
     )
     if len(outcome) != len(X):
@@ -659,8 +659,18 @@ def _run(enc: Encoding, metric: str, o: _Opts, bins: int) -> SliceFindings:
     elif o.direction == "lower":
         s_y = -s_y
     pool = 2 * o.top if o.similarity is not None else o.top
+    if n_search < min_rows:
+        raise PlanError(
+            f"the search part has {n_search} rows, fewer than `min_rows` = {min_rows}; lower "
+            f"`min_rows`" + (" or `estimate_share`, or search without a split" if o.split else "")
+        )
+    if o.split and len(est_rows) < 2:
+        raise PlanError(f"the estimate part has {len(est_rows)} rows; raise `estimate_share`")
+    # without a split the q-values are taken over every slice scored, so nothing may be pruned:
+    # otherwise the count (and every q-value) would depend on `top`
     ranked, n_scored, n_candidates = _lattice_search(
-        s_codes, n_levels, s_y, o.binary, o.depth, min_rows, pool, o.confidence_level
+        s_codes, n_levels, s_y, o.binary, o.depth, min_rows, pool, o.confidence_level,
+        prune=o.split,
     )
     del s_codes, s_y
     e_codes = _Rows(codes, est_rows) if o.split else codes
@@ -841,7 +851,8 @@ class _Counter:
         return tuple(parts)
 
 
-def _lattice_search(codes, n_levels, y, binary, depth, min_rows, pool, confidence_level):
+def _lattice_search(codes, n_levels, y, binary, depth, min_rows, pool, confidence_level, *,
+                    prune=True):
     """Best ``pool`` eligible slices by score, pruned exactly; returns (ranked, n_scored, n_candidates).
 
     Each ranked entry is ``(score, cols, levels, search_rows)`` with ``cols`` and ``levels`` tuples.
@@ -862,7 +873,7 @@ def _lattice_search(codes, n_levels, y, binary, depth, min_rows, pool, confidenc
     n_candidates = 0  # slices whose every parent survived: the ones the pruning could not rule out
 
     def threshold():
-        return best[-1][1][0] if len(best) >= pool else -np.inf
+        return best[-1][1][0] if prune and len(best) >= pool else -np.inf
 
     def candidates(dims, parents, thr):
         cand = np.ones(int(np.prod(dims)), dtype=bool)

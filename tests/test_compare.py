@@ -35,9 +35,28 @@ def test_identical_models_show_no_difference_and_no_worse_slice():
     pred = rng.uniform(size=2000) < 0.5
     result = compare_models(X, y, pred, pred, rng=0)
     assert all(m.difference.value == 0 and m.p_value == 1.0 for m in result.metrics)
-    assert not [s for s in result.to_dict()["worse_slices"] if s["q_value"] <= 0.05]
-    with pytest.raises(DataError, match="same rows"):
+    with pytest.raises(DataError, match="2000 rows but `y_pred` has 1999"):
         compare_models(X, y, pred, pred[:-1])
+    with pytest.raises(DataError, match="0/1 or boolean"):  # scores are not decisions
+        compare_models(X, y, rng.uniform(size=2000), pred)
+    with pytest.raises(DataError, match="0/1 or boolean"):  # text labels must be mapped first
+        compare_models(X, np.where(y, "yes", "no"), pred, pred)
+
+
+def test_independent_disagreements_raise_no_false_alarm():
+    # planted null: the candidate differs from the baseline at random, independent of every column
+    alarms = 0
+    for seed in range(10):
+        rng = np.random.default_rng(seed)
+        n = 3000
+        X = pd.DataFrame({"a": rng.choice(list("xyz"), n), "b": rng.normal(size=n),
+                          "c": rng.integers(0, 4, n)})
+        y = rng.uniform(size=n) < 0.5
+        base = rng.uniform(size=n) < 0.5
+        cand = np.where(rng.uniform(size=n) < 0.1, ~base, base)
+        found = compare_models(X, y, cand, base, rng=seed).to_dict()["worse_slices"]
+        alarms += any(s["q_value"] <= 0.05 for s in found)
+    assert alarms <= 1
 
 
 @pytest.mark.slow

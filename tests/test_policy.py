@@ -76,3 +76,11 @@ def test_twins_are_judged_on_their_excess_over_own_group_twins():
     (rule,) = verdict.rules
     assert rule.status == "pass" and "excess" in rule.subject
     assert rule.value["value"] == 0.004
+
+
+def test_a_selection_shortfall_is_judged_as_a_gap():
+    # planted: a slice selected 20 % against 60 % for the rest; gap -0.386 [-0.42, -0.35]
+    slices = {"direction": "lower", "found": [{"rank": 1, "label": "x = 1",
+                                               "gap": est(-0.386, -0.42, -0.35, "newcombe")}]}
+    (rule,) = judge({"slices": slices}, PolicySection(max_slice_gap=0.05)).rules
+    assert rule.status == "fail" and rule.value["low"] == 0.35 and rule.value["high"] == 0.42
