@@ -23,13 +23,13 @@ a date/time column.
 
 from __future__ import annotations
 
-import difflib
 import math
 from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
 
+from .data import close_names
 from .errors import DataError, PlanError
 
 __all__ = ["EncodedColumn", "Encoding", "encode_columns"]
@@ -168,6 +168,10 @@ def encode_columns(
     if not 0.0 <= min_level_share < 1.0:
         raise PlanError(f"`min_level_share` must lie in [0, 1), got {min_level_share!r}")
     names = [str(c) for c in frame.columns]
+    twice = sorted({n for n in names if names.count(n) > 1})
+    if twice:
+        raise DataError("the data has more than one column named "
+                        + ", ".join(f"`{n}`" for n in twice) + "; rename them first")
     lookup = dict(zip(names, frame.columns))
     exclude = [exclude] if isinstance(exclude, str) else list(exclude)
     _check_known(exclude, names, "exclude")
@@ -194,10 +198,7 @@ def _check_known(asked, names, option):
     unknown = [str(c) for c in asked if str(c) not in names]
     if not unknown:
         return
-    hints = []
-    for u in unknown:
-        close = difflib.get_close_matches(u, names, n=3, cutoff=0.6)
-        hints.append(f"`{u}`" + (f" (did you mean {', '.join(f'`{c}`' for c in close)}?)" if close else ""))
+    hints = [f"`{u}`{close_names(u, names)}" for u in unknown]
     raise DataError(
         f"`{option}` names {'a column' if len(unknown) == 1 else 'columns'} not in the data: "
         f"{', '.join(hints)}; the columns are {', '.join(f'`{n}`' for n in names[:20])}"
@@ -219,6 +220,10 @@ def _encode_one(name, series, bins, max_levels, min_level_share):
             x = np.asarray(series.to_numpy(dtype=float, na_value=np.nan))
         srt = (x[~missing] if n_missing else x).astype(float)  # a copy, sorted in place
         srt.sort()
+        if len(srt) and not (np.isfinite(srt[0]) and np.isfinite(srt[-1])):
+            bad = np.flatnonzero(np.isinf(np.asarray(x, dtype=float)))
+            raise DataError(f"column `{name}` has {len(bad)} infinite values "
+                            f"(first at row {bad[0]}); replace them or leave the column out")
         n_unique = int(np.count_nonzero(srt[1:] != srt[:-1])) + 1 if len(srt) else 0
     elif isinstance(values, pd.Categorical):  # counted on the codes, every category (even unused)
         cat_counts = _category_counts(values.codes, len(values.categories))
@@ -228,6 +233,8 @@ def _encode_one(name, series, bins, max_levels, min_level_share):
         present = series[~missing] if n_missing else series
         n_unique = int(present.nunique())
         n_present = len(present)
+    if n_missing == n:
+        return None, f"`{name}` left out: every value is missing"
     if n_unique + (n_missing > 0) <= 1:
         return None, f"`{name}` left out: it is constant"
     if pd.api.types.is_bool_dtype(series):

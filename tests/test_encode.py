@@ -160,7 +160,7 @@ def test_columns_and_exclude_select_and_do_not_modify_the_frame():
 
 def test_unknown_column_names_suggest_close_matches():
     frame = _frame(0, n=50)
-    with pytest.raises(DataError, match=r"`distrct` \(did you mean `district`\?\)"):
+    with pytest.raises(DataError, match=r"`distrct`; did you mean `district`\?"):
         encode_columns(frame, columns=["distrct", "age"])
     with pytest.raises(DataError, match=r"`exclude`.*`incme`.*`income`"):
         encode_columns(frame, exclude=["incme"])
@@ -203,3 +203,14 @@ def test_categorical_levels_count_like_pandas_value_counts():
                                                                         "district is missing")
     expected = [counts[lv] for lv in named] + [counts.drop(named).sum(), int((codes == -1).sum())]
     assert np.bincount(enc.codes).tolist() == expected
+
+
+def test_infinite_values_duplicate_names_and_empty_columns_are_named():
+    frame = pd.DataFrame({"x": [1.0, np.inf, 2.0, 3.0] * 10, "y": ["a", "b"] * 20})
+    with pytest.raises(DataError, match=r"column `x` has 10 infinite values \(first at row 1\)"):
+        encode_columns(frame)
+    twin = pd.DataFrame([[1, 2], [3, 4]], columns=["a", "a"])
+    with pytest.raises(DataError, match="more than one column named `a`"):
+        encode_columns(twin)
+    empty = pd.DataFrame({"e": [np.nan] * 40, "y": ["a", "b"] * 20})
+    assert any("every value is missing" in n for n in encode_columns(empty).notes)
