@@ -282,7 +282,7 @@ class FlipFindings:
 def flip_test(model, X: pd.DataFrame, attribute: str, *, mode: str = "direct", reference=None,
               proxies=None, n_proxies: int = 3, threshold: float = 0.5, favorable: bool = True,
               k: int = 5, confidence_level: float = 0.95, rng=0,
-              breakdown_columns=None) -> FlipFindings:
+              breakdown_columns=None, scores=None) -> FlipFindings:
     """Counterfactual flip test of ``model`` on ``X`` for one protected ``attribute``.
 
     Parameters
@@ -300,6 +300,9 @@ def flip_test(model, X: pd.DataFrame, attribute: str, *, mode: str = "direct", r
     proxies : sequence of str, optional
         Transport: the columns to move; default the top ``n_proxies`` model inputs by
         :func:`probe.proxies.find_proxies` (single-feature measures).
+    scores : array_like, optional
+        The model's scores of ``X`` as it is, when the caller has them already (saves one model
+        call over all rows).
     n_proxies : int, default=3
         At most this many proxies are moved when probe chooses them, and only those whose
         cross-fitted single-feature AUC for the attribute is at least ``MIN_PROXY_AUC`` (0.55).
@@ -340,7 +343,8 @@ def flip_test(model, X: pd.DataFrame, attribute: str, *, mode: str = "direct", r
         raise PlanError(f"`mode` must be one of {', '.join(MODES)}, got {mode!r}")
     fn = {"direct": direct_flips, "transport": transport_flips, "twins": twin_flips}[mode]
     kwargs = dict(reference=reference, threshold=threshold, favorable=favorable,
-                  confidence_level=confidence_level, breakdown_columns=breakdown_columns)
+                  confidence_level=confidence_level, breakdown_columns=breakdown_columns,
+                  scores=scores)
     if mode == "transport":
         kwargs.update(proxies=proxies, n_proxies=n_proxies, rng=rng)
     elif mode == "twins":
@@ -349,7 +353,7 @@ def flip_test(model, X: pd.DataFrame, attribute: str, *, mode: str = "direct", r
 
 
 def direct_flips(model, X, attribute, *, reference=None, threshold=0.5, favorable=True,
-                 confidence_level=0.95, breakdown_columns=None) -> FlipFindings:
+                 confidence_level=0.95, breakdown_columns=None, scores=None) -> FlipFindings:
     """Direct flips: change only ``attribute``; see :func:`flip_test`."""
     ctx = _flip_iv(model, X, attribute, reference, threshold, favorable, confidence_level,
                    breakdown_columns)
@@ -359,7 +363,7 @@ def direct_flips(model, X, attribute, *, reference=None, threshold=0.5, favorabl
         notes.append(f"`{attribute}` is not a model input, so a direct flip does not apply "
                      "(use the transport or twins mode)")
         return FlipFindings(attribute, "direct", (), tuple(notes), caution, threshold, favorable)
-    base = _scores(model, X, "the original rows")
+    base = _original_scores(model, X, scores)
     rows = []
     for src, dst in ctx.pairs:
         idx = ctx.group_rows[src]
@@ -377,7 +381,7 @@ def direct_flips(model, X, attribute, *, reference=None, threshold=0.5, favorabl
 
 def transport_flips(model, X, attribute, *, reference=None, proxies=None, n_proxies=3,
                     threshold=0.5, favorable=True, confidence_level=0.95, rng=0,
-                    breakdown_columns=None) -> FlipFindings:
+                    breakdown_columns=None, scores=None) -> FlipFindings:
     """Transport flips: move ``attribute`` (if an input) and its proxies; see :func:`flip_test`."""
     ctx = _flip_iv(model, X, attribute, reference, threshold, favorable, confidence_level,
                    breakdown_columns)
@@ -392,7 +396,7 @@ def transport_flips(model, X, attribute, *, reference=None, proxies=None, n_prox
                             favorable)
     moved = ((attribute,) if ctx.is_input else ()) + tuple(proxies)
     prepared = {p: _prepare_proxy(X[p]) for p in proxies}
-    base = _scores(model, X, "the original rows")
+    base = _original_scores(model, X, scores)
     rows = []
     for (src, dst), seed in zip(ctx.pairs, pair_seeds):
         idx = ctx.group_rows[src]
@@ -415,7 +419,7 @@ def transport_flips(model, X, attribute, *, reference=None, proxies=None, n_prox
 
 def twin_flips(model, X, attribute, *, reference=None, k=5, threshold=0.5, favorable=True,
                confidence_level=0.95, breakdown_columns=None, rng=0,
-               n_jobs=None) -> FlipFindings:
+               n_jobs=None, scores=None) -> FlipFindings:
     """Twins (situation testing): compare with the ``k`` nearest people of the other group, and
     with the ``k`` nearest of their own group as a control.
 
@@ -489,7 +493,7 @@ def twin_flips(model, X, attribute, *, reference=None, k=5, threshold=0.5, favor
                  + " (numerics standardised, categoricals one-hot)")
     gen = np.random.default_rng(rng)
     pair_seeds = [int(s) for s in gen.integers(0, 2**31 - 1, size=len(ctx.pairs))]
-    base = _scores(model, X, "the original rows")
+    base = _original_scores(model, X, scores)
     fav = _favorable(base >= threshold, favorable)
     z = z_value(confidence_level)
     rows = []
@@ -633,6 +637,16 @@ def _flip_iv(model, X, attribute, reference, threshold, favorable, confidence_le
     breakdown = {c: _encode_slice_column(X[c]) for c in breakdown_columns}
     return _Context(attribute, inputs, is_input, known, levels, pairs, group_rows, float(threshold),
                     bool(favorable), confidence_level, breakdown, notes)
+
+
+def _original_scores(model, X, scores) -> np.ndarray:
+    """The model's scores of the rows as they are: the caller's, when it has them, else one call."""
+    if scores is None:
+        return _scores(model, X, "the original rows")
+    s = np.asarray(scores, dtype=float)
+    if s.shape != (len(X),) or not np.all(np.isfinite(s) & (s >= 0) & (s <= 1)):
+        raise DataError(f"`scores` must be {len(X)} probabilities in [0, 1], one per row of `X`")
+    return s
 
 
 def _scores(model, frame, what) -> np.ndarray:

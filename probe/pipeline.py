@@ -138,8 +138,10 @@ def run_plan(plan: Plan, *, command: str | None = None, progress: Progress | Non
     frame = holdout.frame
     with clock.step("load model"):
         model = _load(plan, plan.model.spec, holdout)
+    # the model never sees the label, even when it reads the whole frame (py:, cmd:, http:)
+    inputs = frame.drop(columns=[holdout.label]) if holdout.label else frame
     with clock.step("score"):
-        scores = model.scores(frame, progress=_bar(progress, "scoring"))
+        scores = model.scores(inputs, progress=_bar(progress, "scoring"))
     decision = scores >= plan.model.threshold
 
     report: dict = {"schema": SCHEMA, "caution": CAUTION}
@@ -180,10 +182,10 @@ def run_plan(plan: Plan, *, command: str | None = None, progress: Progress | Non
                     raise DataError(f"flip attribute `{attribute}` is not in the data"
                                     + close_names(attribute, list(frame.columns)))
                 result = flip_test(
-                    model, frame, attribute, mode=mode, reference=plan.flips.reference,
+                    model, inputs, attribute, mode=mode, reference=plan.flips.reference,
                     proxies=plan.flips.proxies, n_proxies=plan.flips.n_proxies,
                     threshold=plan.model.threshold, favorable=favorable, k=plan.flips.k,
-                    confidence_level=cl, rng=seed,
+                    confidence_level=cl, rng=seed, scores=scores,
                 )
                 rows.extend(result.to_dict())
                 rows.extend(_note_rows(result, attribute, mode))
@@ -201,7 +203,7 @@ def run_plan(plan: Plan, *, command: str | None = None, progress: Progress | Non
     if plan.compare is not None:
         with clock.step("compare"):
             baseline = _load(plan, plan.compare.baseline, holdout)
-            base_scores = baseline.scores(frame, progress=_bar(progress, "scoring baseline"))
+            base_scores = baseline.scores(inputs, progress=_bar(progress, "scoring baseline"))
             result = compare_models(
                 frame, holdout.y_true, decision, base_scores >= plan.model.threshold,
                 metric=plan.compare.metric, favorable=favorable,

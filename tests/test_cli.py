@@ -157,3 +157,17 @@ def test_seed_and_confidence_flags_override_the_plan(tmp_path):
     prov = json.loads((tmp_path / "out" / "report.json").read_text())["provenance"]
     assert (prov["seed"], prov["confidence_level"]) == (7, 0.9)
     assert main(["run", str(plan), "--confidence-level", "2"], console=_console()) == EXIT_BAD_INPUT
+
+
+def test_a_model_reading_the_whole_frame_never_sees_the_label(tmp_path):
+    data = _holdout(tmp_path, 0.3)
+    (tmp_path / "scorer.py").write_text(
+        "def score(frame):\n"
+        "    assert 'y' not in frame.columns, 'the label reached the model'\n"
+        "    return frame['score']\n")
+    plan = _plan(tmp_path, data, policy="")
+    plan.write_text(plan.read_text().replace('spec = "column:score"', 'spec = "py:scorer.py:score"')
+                    + '[flips]\nattributes = ["group"]\nmodes = ["transport"]\n')
+    assert main(["run", str(plan)], console=_console()) == EXIT_OK
+    report = json.loads((tmp_path / "out" / "report.json").read_text())
+    assert report["provenance"]["model"]["kind"] == "python" and report["flips"]

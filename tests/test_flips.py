@@ -155,6 +155,19 @@ def test_one_model_call_per_pair():
     assert model.rows_scored == len(X) + sum(2 * counts[v] for v in counts.index)
 
 
+@pytest.mark.parametrize("mode", ["direct", "transport", "twins"])
+def test_scores_the_caller_has_are_not_asked_for_again(mode):
+    X = _credit(n=400)
+    model = _sklearn_model(X)
+    alone = flip_test(model, X, "sex", mode=mode)
+    calls = model.calls
+    given = flip_test(model, X, "sex", mode=mode, scores=model.scores(X))
+    assert model.calls - calls - 1 == calls - 1  # the same calls less the one on the original rows
+    assert given.to_dict() == alone.to_dict()
+    with pytest.raises(DataError, match="probabilities in"):
+        flip_test(model, X, "sex", mode=mode, scores=np.ones(3))
+
+
 def test_favorable_negative_swaps_the_directions():
     X = _credit()
     model = _sklearn_model(X)
