@@ -69,7 +69,7 @@ import pandas as pd
 from scipy import stats as _sps
 
 from .errors import DataError, DegenerateWarning, ModelError, PlanError, ProbeError
-from .proxies import attribute_levels, find_proxies, is_numeric
+from .proxies import MAX_LEVELS, attribute_levels, find_proxies, is_numeric
 from .stats import Estimate, wilson_interval, z_value
 
 __all__ = [
@@ -512,18 +512,17 @@ def twin_flips(model, X, attribute, *, reference=None, k=5, threshold=0.5, favor
         sub = np.sort(pgen.choice(n_dst, m, replace=False)) if control and n_dst > m else None
         raw_nb, matched_nb = _cross_twins(Zt, Zs, k, sub, n_jobs)
         own = fav[idx]
-        raw = _twin_outcomes(own, base[idx], fav, base, tgt[raw_nb])
+        raw = _twin_outcomes(own, fav, base, tgt[raw_nb])
         row = _row_from_outcomes(ctx, "twins", src, dst, idx, raw[0], raw[1], raw[2] - base[idx],
-                                 (), k=k)
+                                 ())
         if not control:
             notes.append(f"twins {src!r} -> {dst!r}: no own-group control, the {src!r} group has "
                          f"{n_src} rows (k={k} twins need at least {k + 1})")
             rows.append(replace(row, sentence=_twin_sentence(row, k, None, confidence_level)))
             continue
         own_nb = _own_twins(Zs, k, m, pgen, n_jobs)
-        matched = raw if sub is None else _twin_outcomes(own, base[idx], fav, base,
-                                                         tgt[sub[matched_nb]])
-        ctrl = _twin_outcomes(own, base[idx], fav, base, idx[own_nb])
+        matched = raw if sub is None else _twin_outcomes(own, fav, base, tgt[sub[matched_nb]])
+        ctrl = _twin_outcomes(own, fav, base, idx[own_nb])
         if sub is not None or n_src - 1 > m:
             which = f"{dst!r} group" if sub is not None else f"own {src!r} group"
             notes.append(f"twins {src!r} -> {dst!r}: the excess compares pools of equal size, "
@@ -604,6 +603,9 @@ def _flip_iv(model, X, attribute, reference, threshold, favorable, confidence_le
     if missing.any():
         notes.append(f"{int(missing.sum())} rows with missing `{attribute}` were left out")
     levels = attribute_levels(col)
+    if len(levels) > MAX_LEVELS:
+        raise DataError(f"protected attribute `{attribute}` has {len(levels)} levels (at most "
+                        f"{MAX_LEVELS} are flipped between); bin it first, e.g. ages into bands")
     if len(levels) < 2 and reference is None:
         raise DataError(f"protected attribute `{attribute}` needs at least two observed levels, "
                         f"got {list(levels)}")
@@ -620,6 +622,8 @@ def _flip_iv(model, X, attribute, reference, threshold, favorable, confidence_le
             group_rows[reference] = np.empty(0, dtype=np.int64)
     else:
         pairs = [(a, b) for a in levels for b in levels if a != b]
+    if not pairs:
+        raise DataError(f"nothing to flip: `{attribute}` has only the level {reference!r}")
     if known is not None:
         unseen = [lv for lv in levels if lv not in known]
         if unseen:
@@ -700,7 +704,7 @@ def _pair_row(ctx, mode, src, dst, idx, old, new, moved):
                               new - old, moved)
 
 
-def _row_from_outcomes(ctx, mode, src, dst, idx, to_fav, to_unfav, change, moved, k=None):
+def _row_from_outcomes(ctx, mode, src, dst, idx, to_fav, to_unfav, change, moved):
     n = len(idx)
     flip = to_fav | to_unfav
     counts = np.array([flip.sum(), to_fav.sum(), to_unfav.sum()], dtype=float)
@@ -709,7 +713,7 @@ def _row_from_outcomes(ctx, mode, src, dst, idx, to_fav, to_unfav, change, moved
     mean = _mean_t(change, ctx.confidence_level)
     largest = float(np.max(np.abs(change))) if n else math.nan
     slices = _slice_breakdown(ctx, idx, flip) if counts[0] > 0 else ()
-    sentence = _sentence(ctx.attribute, mode, src, dst, ests, ctx.confidence_level, moved, k,
+    sentence = _sentence(ctx.attribute, mode, src, dst, ests, ctx.confidence_level, moved,
                          ctx.is_input)
     return FlipRow(ctx.attribute, mode, src, dst, n, ests[0], ests[1], ests[2], mean, largest,
                    False, tuple(moved), slices, sentence)
@@ -735,7 +739,8 @@ def _mean_t(change, confidence_level) -> Estimate:
     mean = float(change.mean())
     sd = float(change.std(ddof=1))
     half = float(_sps.t.ppf(0.5 + confidence_level / 2, n - 1)) * sd / math.sqrt(n)
-    return Estimate(mean, mean - half, mean + half, "t")
+    # a difference of two probabilities lies in [-1, 1], and so does its mean
+    return Estimate(mean, max(mean - half, -1.0), min(mean + half, 1.0), "t")
 
 
 def _pct(p) -> str:
@@ -745,7 +750,7 @@ def _pct(p) -> str:
     return f"{v:.2f}" if 0 < v < 0.1 else f"{v:.1f}"
 
 
-def _sentence(attribute, mode, src, dst, ests, confidence_level, moved, k, is_input):
+def _sentence(attribute, mode, src, dst, ests, confidence_level, moved, is_input):
     flip, fav, unfav = ests
     cl = f"{100 * confidence_level:g} % interval {_pct(flip.low)}–{_pct(flip.high)} %"
     tail = f"({cl}): {_pct(fav.value)} % become favourable, {_pct(unfav.value)} % unfavourable."
@@ -762,9 +767,7 @@ def _sentence(attribute, mode, src, dst, ests, confidence_level, moved, k, is_in
             lead = (f"Moving the proxies of {attribute} ({what}) of the {src} group to where they "
                     f"sit in the {dst} group ({attribute} itself is not a model input)")
         return f"{lead} changes {_pct(flip.value)} % of decisions {tail}"
-    return (f"Of the {src} group, {_pct(flip.value)} % get a different decision from most of their "
-            f"{k} nearest twins in the {dst} group ({cl}): for {_pct(fav.value)} % the twins' "
-            f"decision is favourable and theirs is not, for {_pct(unfav.value)} % the reverse.")
+    return ""  # twins rows get their sentence from _twin_sentence, which also states the control
 
 
 # ---------------------------------------------------------------------------------------------
@@ -855,6 +858,9 @@ def _prepare_proxy(col: pd.Series):
 def _move_proxy(col: pd.Series, prepared, idx, tgt, gen):
     if prepared[0] == "numeric":
         v = prepared[1]
+        if not np.isfinite(v[tgt]).any():
+            raise DataError(f"proxy `{col.name}` has no known value in the target group, so it "
+                            "cannot be moved there; leave it out of `proxies`")
         integer = pd.api.types.is_integer_dtype(col.dtype)
         mapped = quantile_map(v[idx], v[tgt], integer=integer)
         index = col.index[idx]
@@ -1020,7 +1026,7 @@ def _own_twins(Zs, k, m, gen, n_jobs) -> np.ndarray:
     return pool[nb[keep].reshape(n, k)]
 
 
-def _twin_outcomes(own_fav, own_score, fav, base, twin_rows):
+def _twin_outcomes(own_fav, fav, base, twin_rows):
     """Per person: (twins favourable by majority and the person not, the reverse, twins' mean
     score); a tie among an even number of twins counts as no difference."""
     share = fav[twin_rows].mean(axis=1)
@@ -1036,7 +1042,7 @@ def _paired_wald(d, z) -> Estimate:
         return Estimate(float(d.mean()) if n else math.nan, math.nan, math.nan, "paired-wald")
     mean = float(d.mean())
     half = z * float(d.std(ddof=1)) / math.sqrt(n)
-    return Estimate(mean, mean - half, mean + half, "paired-wald")
+    return Estimate(mean, max(mean - half, -1.0), min(mean + half, 1.0), "paired-wald")
 
 
 def _points(x) -> str:

@@ -286,8 +286,15 @@ def _find_proxies_iv(X, attribute, features, cv, n_repeats, confidence_level, ma
     if len(levels) < 2:
         raise DataError(f"protected attribute `{attribute}` needs at least two observed levels, "
                         f"got {len(levels)}: {list(levels)}")
+    if len(levels) > MAX_LEVELS:
+        raise DataError(f"protected attribute `{attribute}` has {len(levels)} levels (at most "
+                        f"{MAX_LEVELS}); bin it first, e.g. ages into bands")
     y = pd.Categorical(attr, categories=list(levels)).codes.astype(np.int64)
     return frame, features, y, levels, dropped, notes
+
+
+MAX_LEVELS = 50
+"""The most levels a protected attribute may have (flips score every pair; proxies predict each)."""
 
 
 def attribute_levels(s: pd.Series) -> tuple:

@@ -13,6 +13,7 @@ from statsmodels.stats.proportion import proportion_confint
 from statsmodels.stats.weightstats import DescrStatsW
 
 from probe.errors import DataError, ModelError, PlanError
+from probe.proxies import find_proxies
 from probe.flips import (
     DIRECT_FLIP_CAUTION,
     flip_test,
@@ -638,3 +639,24 @@ def test_direct_flips_through_the_real_adapter_equal_brute_force():
         new = pipe.predict_proba(src.assign(sex="M"))[:, 1] >= 0.5
         assert row.flip_rate.value == (old != new).mean()
         assert row.to_favorable.value == (~old & new).mean()
+
+
+def test_attributes_and_proxies_that_cannot_be_flipped_are_named():
+    class Linear:
+        feature_names = ("age", "x")
+
+        def scores(self, f):
+            return np.clip(np.nan_to_num(f["x"].to_numpy()) / 10, 0, 1)
+
+    X = pd.DataFrame({"age": np.arange(200) % 70, "x": np.linspace(0, 9, 200)})
+    with pytest.raises(DataError, match="`age` has 70 levels .* bin it first"):
+        flip_test(Linear(), X, "age")
+    with pytest.raises(DataError, match="`age` has 70 levels"):
+        find_proxies(X, "age")
+    # a numeric proxy with no known value in the target group: refused, not moved to NaN
+    Y = pd.DataFrame({"age": ["young"] * 50 + ["old"] * 50,
+                      "x": [np.nan] * 50 + list(np.linspace(0, 9, 50))})
+    with pytest.raises(DataError, match="proxy `x` has no known value in the target group"):
+        flip_test(Linear(), Y, "age", mode="transport", proxies=["x"], reference="young")
+    with pytest.raises(DataError, match="nothing to flip"):
+        flip_test(Linear(), Y[Y.age == "old"], "age", reference="old")
