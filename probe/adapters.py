@@ -299,12 +299,12 @@ class Model:
         where = f"model `{self._spec}` failed on rows {start}\u2013{stop - 1}"
         try:
             raw = self._score_batch(batch)
-            values = _as_scores(raw, stop - start)
+            values = _as_scores(raw, stop - start, batch.index)
         except _BatchFailure as exc:
             raise ModelError(f"{where}: {exc}") from exc
         except ProbeError as exc:
             raise ModelError(f"{where}: {_first_line(str(exc))}") from exc
-        except Exception as exc:  # the model's own failure, whatever it is
+        except (Exception, SystemExit) as exc:  # the model's own failure, sys.exit() included
             raise ModelError(f"{where}: {type(exc).__name__}: {_first_line(str(exc))}") from exc
         bad = ~np.isfinite(values)
         if bad.any():
@@ -515,9 +515,12 @@ def _load_file(text: str, opts: _Options) -> Model:
 
 def _read(path: Path, text: str) -> bytes:
     try:
-        return path.read_bytes()
+        data = path.read_bytes()
     except OSError as exc:
         raise ModelError(f"cannot read model file `{text}`: {exc.strerror or exc}") from exc
+    if not data:
+        raise ModelError(f"model file `{text}` is empty")
+    return data
 
 
 def _load_pickle(data: bytes, text: str, opts: _Options) -> Model:
@@ -605,8 +608,13 @@ def _load_lightgbm(data: bytes, text: str, opts: _Options) -> Model:
     if num_class > 1:
         column = _index_from_positive(opts.positive, num_class, text)
     probability_obj = objective.split(" ")[0] in _PROBABILITY_OBJECTIVES or num_class > 1
+    # a binary booster predicts P(label == 1): when the positive class is 0, its complement
+    complement = num_class == 1 and probability_obj and str(opts.positive).strip() in (
+        "0", "0.0", "False", "false")
     if num_class > 1:
         transform = f"LightGBM `{objective}` output, column {column} of {num_class}"
+    elif complement:
+        transform = f"1 - LightGBM probability output (objective `{objective}`): positive class 0"
     elif probability_obj:
         transform = f"LightGBM probability output (objective `{objective}`)"
     else:
@@ -621,7 +629,7 @@ def _load_lightgbm(data: bytes, text: str, opts: _Options) -> Model:
         out = np.asarray(booster.predict(X), dtype=np.float64)
         if column is not None and out.ndim == 2:
             out = out[:, column]
-        return out
+        return 1.0 - out if complement else out
 
     return Model(
         spec=text, kind="lightgbm", sha256=sha, feature_names=fnames,
@@ -683,7 +691,16 @@ def _lightgbm_matrix(batch: pd.DataFrame, catmap: dict[str, list]) -> np.ndarray
         s = batch[col]
         levels = catmap.get(str(col))
         if levels is not None:
-            X[:, j] = _category_codes(s, levels)
+            codes = _category_codes(s, levels)
+            present = s.notna().to_numpy()
+            if present.any() and np.isnan(codes[present]).all():
+                seen = ", ".join(repr(v) for v in pd.unique(s[present])[:3])
+                known = ", ".join(repr(v) for v in levels[:5])
+                raise _BatchFailure(
+                    f"column `{col}` holds none of the levels the model was trained with "
+                    f"(got {seen}; the model knows {known}{', …' if len(levels) > 5 else ''})"
+                )
+            X[:, j] = codes
         else:
             X[:, j] = _numeric(s, str(col))
     return X
@@ -922,7 +939,7 @@ def _import_file(path: Path, sha: str, text: str) -> Any:
     sys.path.insert(0, folder)  # so the model file can import its neighbours
     try:
         spec.loader.exec_module(module)
-    except Exception as exc:
+    except (Exception, SystemExit) as exc:
         del sys.modules[name]
         raise ModelError(
             f"model spec `{text}`: importing `{path.name}` failed: {type(exc).__name__}: "
@@ -942,7 +959,7 @@ def _import_dotted(name: str, base: Path, text: str) -> Any:
         raise ModelError(
             f"model spec `{text}`: cannot import module `{name}`: {_first_line(str(exc))}"
         ) from exc
-    except Exception as exc:
+    except (Exception, SystemExit) as exc:
         raise ModelError(
             f"model spec `{text}`: importing `{name}` failed: {type(exc).__name__}: "
             f"{_first_line(str(exc))}"
@@ -1331,8 +1348,14 @@ def _load_column(text: str, opts: _Options) -> Model:
 # --------------------------------------------------------------------------------------------
 
 
-def _as_scores(raw: Any, n: int) -> np.ndarray:
-    """One float per row, or a `_BatchFailure` saying what arrived instead."""
+def _as_scores(raw: Any, n: int, index: pd.Index | None = None) -> np.ndarray:
+    """One float per row, or a `_BatchFailure` saying what arrived instead. A pandas answer is
+    aligned to the batch's ``index`` (a model may return its rows in another order)."""
+    if isinstance(raw, (pd.Series, pd.DataFrame)) and index is not None and len(raw) == n:
+        if not raw.index.equals(index):
+            if raw.index.has_duplicates or not raw.index.sort_values().equals(index.sort_values()):
+                raise _BatchFailure("the model returned scores indexed by other rows than it was given")
+            raw = raw.loc[index]
     if isinstance(raw, (pd.Series, pd.DataFrame)):
         raw = raw.to_numpy()
     try:

@@ -777,3 +777,46 @@ def test_model_is_frozen_and_describe_is_json(tmp_path, booster):
     d = json.loads(json.dumps(model.describe()))
     assert d["kind"] == "lightgbm" and d["sha256"] == model.sha256
     assert d["feature_names"] == list(booster.feature_name())
+
+
+# --------------------------------------------------------------------------------------------
+# review fixes: positive class 0, levels from another vocabulary, pandas answers, sys.exit,
+# empty files
+# --------------------------------------------------------------------------------------------
+
+
+def test_lightgbm_positive_class_zero_is_the_complement(tmp_path, booster, holdout):
+    booster.save_model(tmp_path / "m.txt")
+    p1 = _lgb_reference(booster, holdout)  # LightGBM's own P(label == 1)
+    np.testing.assert_allclose(load_model("m.txt", base_dir=tmp_path, positive=0).scores(holdout),
+                               1.0 - p1, rtol=0, atol=1e-12)
+    np.testing.assert_allclose(load_model("m.txt", base_dir=tmp_path, positive=1).scores(holdout),
+                               p1, rtol=0, atol=1e-12)
+
+
+def test_lightgbm_column_with_none_of_the_trained_levels_is_refused(tmp_path, booster, holdout):
+    booster.save_model(tmp_path / "m.txt")
+    shouted = holdout.assign(region=holdout["region"].str.upper())  # NORTH, SOUTH: another vocabulary
+    with pytest.raises(ModelError, match=r"column `region` holds none of the levels .* 'north'"):
+        load_model("m.txt", base_dir=tmp_path).scores(shouted)
+
+
+def test_a_series_answer_is_aligned_to_the_rows_given(tmp_path):
+    (tmp_path / "sorter.py").write_text(
+        "def score(f):\n    return (f['x'] / 10).sort_values(ascending=False)\n")
+    frame = pd.DataFrame({"x": [1.0, 5.0, 3.0]})
+    got = load_model("py:sorter.py:score", base_dir=tmp_path).scores(frame)
+    np.testing.assert_allclose(got, [0.1, 0.5, 0.3])  # by row, not by the order returned
+
+
+def test_sys_exit_and_empty_files_are_one_line_errors(tmp_path):
+    (tmp_path / "quits.py").write_text("import sys\ndef score(f):\n    sys.exit(2)\n")
+    with pytest.raises(ModelError, match="failed on rows 0–2: SystemExit"):
+        load_model("py:quits.py:score", base_dir=tmp_path).scores(pd.DataFrame({"x": [1, 2, 3]}))
+    (tmp_path / "leaves.py").write_text("import sys\nsys.exit(1)\n")
+    with pytest.raises(ModelError, match="importing `leaves.py` failed: SystemExit"):
+        load_model("py:leaves.py:score", base_dir=tmp_path)
+    for name in ("empty.joblib", "empty.skops", "empty.txt"):
+        (tmp_path / name).write_bytes(b"")
+        with pytest.raises(ModelError, match="is empty"):
+            load_model(name, base_dir=tmp_path, trust_pickle=True)
