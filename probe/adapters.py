@@ -52,8 +52,10 @@ bytes, so the recorded hash is the hash of what ran. skops files are checked wit
 ``skops.io.get_untrusted_types`` first: any type outside skops' safe list must be named in
 ``trusted_types`` (``trusted_types = [...]`` in the plan, ``--trust-type`` on the command line),
 otherwise :class:`~probe.errors.TrustError` lists them. LightGBM and ONNX files are data, not code.
-``py:`` and ``cmd:`` specs name code the user chose to run, so they need no flag; an HTTP
-endpoint is only ever sent the model's input columns.
+``py:`` and ``cmd:`` specs name code the user chose to run, so they need no flag. A model that
+records no input names (``py:``, ``cmd:``, ``http:`` without ``feature_names``) is given every column
+of the frame it is asked to score: pass ``feature_names`` to send only the inputs (``probe run``
+never passes the label).
 """
 
 from __future__ import annotations
@@ -81,6 +83,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from probe.data import sha256_file
 from probe.errors import DataError, ModelError, PlanError, ProbeError, TrustError
 
 __all__ = ["ACCEPTED_SPECS", "Model", "load_model"]
@@ -913,7 +916,7 @@ def _load_python(text: str, opts: _Options) -> Model:
         module = _import_dotted(module_part, opts.base, text)
         file = getattr(module, "__file__", None)
         if file and os.path.isfile(file):
-            sha = hashlib.sha256(Path(file).read_bytes()).hexdigest()
+            sha = sha256_file(file)
     obj: Any = module
     for part in attr.split("."):
         if not hasattr(obj, part):
