@@ -163,6 +163,7 @@ def compare_models(
     favorable: bool = True,
     depth: int = 3,
     min_rows: int | None = None,
+    bins: int = 5,
     columns=None,
     exclude=(),
     top: int = 10,
@@ -183,7 +184,7 @@ def compare_models(
     metric : {"error", "fpr", "fnr", "selection"}, default="error"
         The metric the worse-slice search runs on (all four are compared overall).
     favorable : bool, default=True
-    depth, min_rows, columns, exclude, top
+    depth, min_rows, bins, columns, exclude, top
         Passed to the slice search.
     confidence_level : float, default=0.95
     n_resamples : int, default=4000
@@ -231,7 +232,8 @@ def compare_models(
     if metric in _WORSE_IS_LOWER:
         worse = -worse
     found = search_slices(
-        X, worse, base=mask, depth=depth, min_rows=min_rows, columns=columns, exclude=exclude,
+        X, worse, base=mask, depth=depth, min_rows=min_rows, bins=bins, columns=columns,
+        exclude=exclude,
         top=top, confidence_level=confidence_level, rng=search_seed,
         metric=f"paired {metric} difference (candidate worse > 0)",
     )

@@ -19,7 +19,8 @@ import pandas as pd
 
 from .errors import DataError
 
-__all__ = ["read_table", "sha256_file", "prepare_holdout", "Holdout", "close_names", "rows_text"]
+__all__ = ["read_table", "sha256_file", "prepare_holdout", "Holdout", "close_names", "rows_text",
+           "require_finite"]
 
 _READERS = {
     ".csv": "csv",
@@ -58,6 +59,18 @@ def rows_text(positions: np.ndarray, limit: int = 5) -> str:
     more = len(positions) - limit
     word = "data row" if len(positions) == 1 else "data rows"
     return f"{word} {shown}" + (f" and {more} more" if more > 0 else "")
+
+
+def require_finite(frame: pd.DataFrame, columns: Sequence[str]) -> None:
+    """Raise a `DataError` naming the first numeric column among ``columns`` with an infinite value
+    (missing values are allowed: every analysis treats them as their own level)."""
+    for name in columns:
+        col = frame[name]
+        if pd.api.types.is_numeric_dtype(col) and not pd.api.types.is_bool_dtype(col):
+            bad = np.flatnonzero(np.isinf(col.to_numpy(dtype=float, na_value=np.nan)))
+            if len(bad):
+                raise DataError(f"column `{name}` has {len(bad)} infinite values "
+                                f"({rows_text(bad)}); replace them or leave the column out")
 
 
 def read_table(path: str | Path) -> pd.DataFrame:

@@ -68,6 +68,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats as _sps
 
+from .data import require_finite
 from .errors import DataError, DegenerateWarning, ModelError, PlanError, ProbeError
 from .proxies import MAX_LEVELS, attribute_levels, find_proxies, is_numeric
 from .stats import Estimate, wilson_interval, z_value
@@ -638,6 +639,7 @@ def _flip_iv(model, X, attribute, reference, threshold, favorable, confidence_le
         if bad:
             raise DataError(f"`breakdown_columns` names columns not in the data: {', '.join(bad)}")
         breakdown_columns = [c for c in breakdown_columns if c != attribute]
+    require_finite(X, [c for c in inputs if c in X.columns])
     breakdown = {c: _encode_slice_column(X[c]) for c in breakdown_columns}
     return _Context(attribute, inputs, is_input, known, levels, pairs, group_rows, float(threshold),
                     bool(favorable), confidence_level, breakdown, notes)

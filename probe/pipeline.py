@@ -210,6 +210,8 @@ def run_plan(plan: Plan, *, command: str | None = None, progress: Progress | Non
                 exclude=_slice_exclude(plan, holdout, model), confidence_level=cl, rng=seed,
                 depth=plan.slices.depth if plan.slices else 3,
                 min_rows=plan.slices.min_rows if plan.slices else None,
+                bins=plan.slices.bins if plan.slices else 5,
+                columns=plan.slices.columns if plan.slices else None,
             )
             comparison = {"baseline": baseline.describe(), **result.to_dict()}
 

@@ -39,6 +39,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats as _sps
 
+from .data import require_finite
 from .errors import DataError, PlanError
 from .stats import Estimate
 
@@ -267,6 +268,7 @@ def _find_proxies_iv(X, attribute, features, cv, n_repeats, confidence_level, ma
             raise DataError(f"`features` must not include the protected attribute `{attribute}` itself")
     if not features:
         raise DataError(f"no candidate features besides `{attribute}`")
+    require_finite(X, features)
     for name, val, lo in (("cv", cv, 2), ("n_repeats", n_repeats, 1), ("max_rows", max_rows, 10)):
         if not isinstance(val, (int, np.integer)) or isinstance(val, bool) or val < lo:
             raise PlanError(f"`{name}` must be an integer >= {lo}, got {val!r}")

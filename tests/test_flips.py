@@ -660,3 +660,13 @@ def test_attributes_and_proxies_that_cannot_be_flipped_are_named():
         flip_test(Linear(), Y, "age", mode="transport", proxies=["x"], reference="young")
     with pytest.raises(DataError, match="nothing to flip"):
         flip_test(Linear(), Y[Y.age == "old"], "age", reference="old")
+
+
+def test_infinite_feature_values_are_named_not_a_traceback():
+    X = _twin_data(n=200, seed=3)
+    X.loc[X.index[5], "x1"] = np.inf
+    model = Wrapped(lambda f: expit(np.nan_to_num(f["x1"], posinf=0)), ["x1", "x2", "kind"])
+    with pytest.raises(DataError, match=r"column `x1` has 1 infinite values \(data row 6\)"):
+        flip_test(model, X, "group", mode="twins")
+    with pytest.raises(DataError, match="column `x1` has 1 infinite values"):
+        find_proxies(X, "group", features=["x1", "x2"])

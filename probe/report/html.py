@@ -361,7 +361,8 @@ def _flips(report: Mapping) -> str:
     concentrated = [(f, s) for f in flips for s in (f.get("by_slice") or [])[:3]]
     if concentrated:
         out.append("<h3>Where the flips concentrate</h3><p>For each flip test, the slices of the "
-                   "other columns with the highest flip rates.</p>")
+                   "other columns with the highest flip rates. These were picked for being high, so their "
+                   "intervals overstate how certain each is.</p>")
         out.append(_table(
             ["attribute", "mode", "change", "slice", "rows", "flip rate"],
             ([_e(f.get("attribute")), _e(f.get("mode")), f"{_e(f.get('from'))} → {_e(f.get('to'))}",

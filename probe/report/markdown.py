@@ -446,7 +446,8 @@ def _flips(report: Mapping) -> list[str]:
     concentrated = [(f, s) for f in flips for s in (f.get("by_slice") or [])[:3]]
     if concentrated:
         out += ["### Where the flips concentrate", "",
-                "For each flip test, the slices of the other columns with the highest flip rates.", ""]
+                "For each flip test, the slices of the other columns with the highest flip rates. These "
+                "were picked for being high, so their intervals overstate how certain each is.", ""]
         out += _table(
             ["attribute", "mode", "change", "slice", "rows", "flip rate"],
             ([md_escape(f.get("attribute")), md_escape(f.get("mode")),
