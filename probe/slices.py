@@ -1220,6 +1220,11 @@ def _bootstrap_estimates(masks, y, o: _Opts, rate, gap):
             (boot_rate[:, k], obs_rate[k], jack_rate[k], rate[k], out_rate),
             (boot_gap[:, k], obs_gap[k], jack_gap[k], gap[k], out_gap),
         ):
+            if np.ptp(dist) == 0:
+                # every resample gives the same value (e.g. a slice with no events): the bootstrap
+                # has no spread to offer, so the closed-form interval stands
+                out.append(prior)
+                continue
             lo, hi, method = _boot_interval(dist, obs, jv, cells[k], alpha)
             out.append(Estimate(prior.value, lo, hi, method))
     return out_rate, out_gap

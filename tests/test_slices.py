@@ -415,3 +415,17 @@ def test_shared_counting_passes_give_every_column_sets_counts():
             np.testing.assert_array_equal(counts[cols][0], n_ref.ravel())
             np.testing.assert_array_equal(counts[cols][1], x_ref.ravel())
     assert counter.passes < 0.5 * sum(len(list(combinations(levels, d))) for d in (1, 2, 3))
+
+
+def test_bootstrap_of_a_slice_with_every_event_keeps_a_real_interval():
+    from statsmodels.stats.proportion import proportion_confint
+
+    r = np.random.default_rng(0)
+    n = 2000
+    X = pd.DataFrame({"a": r.choice(list("pq"), n), "b": r.choice(list("uv"), n)})
+    y = (r.random(n) < 0.3).astype(float)
+    y[((X.a == "p") & (X.b == "u")).to_numpy()] = 1.0  # planted: every row of the slice
+    top = search_slices(X, y, depth=2, interval="bootstrap", rng=0).found[0]
+    assert top.label == "a = p and b = u" and top.rate.value == 1.0
+    low, high = proportion_confint(top.rows, top.rows, method="wilson")  # reference: statsmodels
+    assert top.rate.low == pytest.approx(low, abs=1e-12) and top.rate.low < 1.0
