@@ -38,6 +38,8 @@ def _list(text: str | None) -> list[str] | None:
 
 
 def _common(p: argparse.ArgumentParser, *, model: bool = True, label: bool = True) -> None:
+    from .options import DataOptions, ModelOptions, add_flags
+
     g = p.add_argument_group("data and model")
     g.add_argument("--data", required=True, metavar="FILE", help="holdout table (CSV, Parquet, Feather)")
     g.add_argument("--label", required=label, metavar="COL",
@@ -47,14 +49,8 @@ def _common(p: argparse.ArgumentParser, *, model: bool = True, label: bool = Tru
         g.add_argument("--model", required=True, metavar="SPEC",
                        help="model file, py:module:attr, cmd:COMMAND, http://127.0.0.1:PORT/PATH "
                             "or column:NAME")
-        g.add_argument("--threshold", type=float, default=0.5, help="decision = score >= T (0.5)")
-        g.add_argument("--favorable", choices=("positive", "negative"), default="positive",
-                       help="which decision is the favourable outcome (positive)")
-        g.add_argument("--features", metavar="A,B,...", help="the model's input columns, in order")
-        g.add_argument("--trust-pickle", action="store_true",
-                       help="allow loading pickle/joblib model files (this executes their code)")
-        g.add_argument("--trust-type", action="append", default=[], metavar="TYPE",
-                       help="a type to trust when loading a .skops file (repeatable)")
+        add_flags(g, ModelOptions)
+        add_flags(g, DataOptions)
     g.add_argument("--protected", metavar="A,B,...", help="protected attribute columns")
     g.add_argument("--intersection", action="append", default=[], metavar="A,B",
                    help="report the joint groups of these columns (repeatable)")
@@ -72,21 +68,11 @@ def _output(p: argparse.ArgumentParser) -> None:
     o.add_argument("--debug", action="store_true", help="show tracebacks")
 
 
-def _slice_options(p: argparse.ArgumentParser) -> None:
-    s = p.add_argument_group("slice search")
-    s.add_argument("--metric", choices=("error", "fpr", "fnr", "selection"), default="error")
-    s.add_argument("--depth", type=int, default=3, help="largest number of conditions (3)")
-    s.add_argument("--min-rows", type=int, help="smallest slice, in rows of the metric's population")
-    s.add_argument("--bins", type=int, default=5, help="quantile bins per numeric column (5)")
-    s.add_argument("--top", type=int, default=10, help="slices to report (10)")
-    s.add_argument("--columns", metavar="A,B,...", help="search only these columns")
-    s.add_argument("--exclude", metavar="A,B,...", help="never slice on these columns")
-    s.add_argument("--no-split", action="store_true",
-                   help="search and estimate on all rows (small data); multiplicity over all tested")
-    s.add_argument("--interval", choices=("wilson", "bootstrap"), default="wilson")
-
-
 def build_parser() -> argparse.ArgumentParser:
+    from . import __version__
+    from .options import (CompareOptions, FlipOptions, PolicyOptions, ProxyOptions, SliceOptions,
+                          add_flags)
+
     parser = _Parser(
         prog="probe",
         description="Test a trained binary classifier before release.",
@@ -94,8 +80,6 @@ def build_parser() -> argparse.ArgumentParser:
                "2 bad usage or input. probe is a statistical screen, not a legal finding; the "
                "four-fifths rule is a rule of thumb; defer to counsel, local law and licensed practice.",
     )
-    from . import __version__
-
     parser.add_argument("--version", action="version", version=f"probe {__version__}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
 
@@ -110,8 +94,7 @@ def build_parser() -> argparse.ArgumentParser:
 
     p = sub.add_parser("run", help="everything a plan file asks for, then the verdict")
     p.add_argument("plan", metavar="PLAN.toml")
-    p.add_argument("--fail-on-inconclusive", action="store_true",
-                   help="an inconclusive rule fails the run")
+    add_flags(p.add_argument_group("policy"), PolicyOptions)
     _output(p)
 
     p = sub.add_parser("groups", help="rates, impact ratios and differences per protected group")
@@ -119,32 +102,28 @@ def build_parser() -> argparse.ArgumentParser:
 
     p = sub.add_parser("slices", help="the subgroups where the model fails, with honest intervals")
     _common(p)
-    _slice_options(p)
+    add_flags(p.add_argument_group("slice search"), SliceOptions)
 
     p = sub.add_parser("flips", help="do decisions move when a protected attribute is changed?")
     _common(p, label=False)
-    f = p.add_argument_group("flips")
-    f.add_argument("--mode", default="direct,transport,twins", metavar="M[,M]",
-                   help="direct, transport, twins (all three)")
-    f.add_argument("--reference", help="flip only into this value")
-    f.add_argument("--proxies", metavar="A,B,...", help="proxies to move in transport mode")
-    f.add_argument("--k", type=int, default=5, help="twins per person (5)")
+    add_flags(p.add_argument_group("flips"), FlipOptions)
 
     p = sub.add_parser("proxies", help="which features stand in for a protected attribute (no model)")
     _common(p, model=False, label=False)
-    p.add_argument("--features", metavar="A,B,...", help="candidate features (default: all others)")
+    add_flags(p.add_argument_group("proxies"), ProxyOptions)
 
     p = sub.add_parser("compare", help="candidate vs production on the same rows")
     _common(p)
-    p.add_argument("--baseline", required=True, metavar="SPEC", help="the production model")
-    p.add_argument("--metric", choices=("error", "fpr", "fnr", "selection"), default="error")
-    p.add_argument("--depth", type=int, default=3)
-    p.add_argument("--min-rows", type=int)
+    add_flags(p.add_argument_group("comparison"), CompareOptions)
+    add_flags(p.add_argument_group("worse-slice search"), SliceOptions, skip=("metric",))
     return parser
 
 
 def _plan_dict(args) -> dict:
     """The plan (as the TOML would hold it) from a subcommand's flags."""
+    from .options import (CompareOptions, DataOptions, FlipOptions, ModelOptions, ProxyOptions,
+                          SliceOptions, flag_values)
+
     data = {"path": str(Path(args.data).resolve())}
     if getattr(args, "label", None):
         data["label"] = args.label
@@ -156,38 +135,21 @@ def _plan_dict(args) -> dict:
         data["intersections"] = [_list(i) for i in args.intersection]
     raw: dict = {"name": args.command, "data": data}
     if getattr(args, "model", None):
-        if getattr(args, "features", None):
-            data["features"] = _list(args.features)
-        raw["model"] = {"spec": args.model, "threshold": args.threshold,
-                        "favorable": args.favorable, "trust_pickle": args.trust_pickle,
-                        "trusted_types": args.trust_type}
+        data.update(flag_values(args, DataOptions))
+        raw["model"] = {"spec": args.model, **flag_values(args, ModelOptions)}
     if args.command == "slices":
-        raw["slices"] = {"metric": args.metric, "depth": args.depth, "bins": args.bins,
-                         "top": args.top, "split": not args.no_split, "interval": args.interval,
-                         "exclude": _list(args.exclude) or []}
-        if args.min_rows is not None:
-            raw["slices"]["min_rows"] = args.min_rows
-        if args.columns:
-            raw["slices"]["columns"] = _list(args.columns)
+        raw["slices"] = flag_values(args, SliceOptions)
     elif args.command == "flips":
         if not args.protected:
             raise ProbeError("probe flips: --protected names the attribute to flip")
-        raw["flips"] = {"attributes": _list(args.protected), "modes": _list(args.mode), "k": args.k}
-        if args.reference is not None:
-            raw["flips"]["reference"] = args.reference
-        if args.proxies:
-            raw["flips"]["proxies"] = _list(args.proxies)
+        raw["flips"] = {"attributes": _list(args.protected), **flag_values(args, FlipOptions)}
     elif args.command == "proxies":
         if not args.protected:
             raise ProbeError("probe proxies: --protected names the attribute(s)")
-        raw["proxies"] = {"attributes": _list(args.protected)}
-        if args.features:
-            raw["proxies"]["features"] = _list(args.features)
+        raw["proxies"] = {"attributes": _list(args.protected), **flag_values(args, ProxyOptions)}
     elif args.command == "compare":
-        raw["compare"] = {"baseline": args.baseline, "metric": args.metric}
-        raw["slices"] = {"depth": args.depth}
-        if args.min_rows is not None:
-            raw["slices"]["min_rows"] = args.min_rows
+        raw["compare"] = flag_values(args, CompareOptions)
+        raw["slices"] = flag_values(args, SliceOptions)
     return raw
 
 
@@ -222,7 +184,7 @@ def _execute(args, console) -> int:
         plan = load_plan(built.plan_path).with_overrides(name=f"demo-{args.scenario}")
     elif args.command == "run":
         plan = load_plan(args.plan)
-        if args.fail_on_inconclusive:
+        if args.policy__fail_on_inconclusive:
             from dataclasses import replace
 
             plan = plan.with_overrides(policy=replace(plan.policy, fail_on_inconclusive=True))

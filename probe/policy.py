@@ -23,7 +23,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-from .plan import PolicySection
+from .options import PolicyOptions
 
 __all__ = ["RuleResult", "Verdict", "judge"]
 
@@ -140,14 +140,14 @@ def _not_run(name, threshold, section) -> RuleResult:
                       f"`{name}` is set but the {section} were not run; nothing was measured")
 
 
-def judge(report: dict, policy: PolicySection) -> Verdict:
+def judge(report: dict, policy: PolicyOptions) -> Verdict:
     """Judge the report's sections against ``policy``.
 
     Parameters
     ----------
     report : dict
         The report dict (its ``groups``, ``flips``, ``slices`` and ``comparison`` sections).
-    policy : PolicySection
+    policy : PolicyOptions
 
     Returns
     -------

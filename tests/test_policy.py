@@ -2,7 +2,7 @@
 
 import pytest
 
-from probe.plan import PolicySection
+from probe.options import PolicyOptions
 from probe.policy import judge
 
 
@@ -31,7 +31,7 @@ REPORT = {
 
 
 def test_each_status_from_its_interval():
-    verdict = judge(REPORT, PolicySection(min_impact_ratio=0.8))
+    verdict = judge(REPORT, PolicyOptions(min_impact_ratio=0.8))
     statuses = {r.subject.split(" (")[0]: r.status for r in verdict.rules}
     assert statuses == {"g = B": "pass", "g = C": "fail", "g = D": "inconclusive"}
     assert verdict.passed is False and verdict.status == "fail"
@@ -39,14 +39,14 @@ def test_each_status_from_its_interval():
 
 def test_inconclusive_fails_only_when_asked():
     report = {**REPORT, "groups": REPORT["groups"][:2] + REPORT["groups"][3:4]}
-    lenient = judge(report, PolicySection(min_impact_ratio=0.8))
+    lenient = judge(report, PolicyOptions(min_impact_ratio=0.8))
     assert lenient.passed is True and lenient.status == "inconclusive"
-    strict = judge(report, PolicySection(min_impact_ratio=0.8, fail_on_inconclusive=True))
+    strict = judge(report, PolicyOptions(min_impact_ratio=0.8, fail_on_inconclusive=True))
     assert strict.passed is False and strict.status == "fail"
 
 
 def test_upper_bound_rules_and_sections_not_run():
-    verdict = judge(REPORT, PolicySection(max_flip_rate=0.01, max_slice_gap=0.10, max_regression=0.02))
+    verdict = judge(REPORT, PolicyOptions(max_flip_rate=0.01, max_slice_gap=0.10, max_regression=0.02))
     by_name = {r.name: r for r in verdict.rules}
     assert by_name["max_flip_rate"].status == "pass"
     assert by_name["max_slice_gap"].status == "fail"
@@ -58,7 +58,7 @@ def test_upper_bound_rules_and_sections_not_run():
 
 
 def test_no_rules_means_no_verdict():
-    verdict = judge(REPORT, PolicySection())
+    verdict = judge(REPORT, PolicyOptions())
     assert verdict.passed is None and verdict.to_dict()["status"] == "no policy"
 
 
@@ -66,13 +66,13 @@ def test_no_rules_means_no_verdict():
                                                (0.79, 0.81, "inconclusive")])
 def test_boundaries_are_inclusive_for_pass(low, high, status):
     report = {"groups": [group("A", est(1, 1, 1)), group("B", est((low + high) / 2, low, high))]}
-    assert judge(report, PolicySection(min_impact_ratio=0.8)).rules[0].status == status
+    assert judge(report, PolicyOptions(min_impact_ratio=0.8)).rules[0].status == status
 
 
 def test_twins_are_judged_on_their_excess_over_own_group_twins():
     row = {"attribute": "sex", "mode": "twins", "from": "F", "to": "M",
            "flip_rate": est(0.09, 0.085, 0.095), "excess": est(0.004, -0.002, 0.008, "wald")}
-    verdict = judge({"flips": [row]}, PolicySection(max_flip_rate=0.01))
+    verdict = judge({"flips": [row]}, PolicyOptions(max_flip_rate=0.01))
     (rule,) = verdict.rules
     assert rule.status == "pass" and "excess" in rule.subject
     assert rule.value["value"] == 0.004
@@ -82,5 +82,5 @@ def test_a_selection_shortfall_is_judged_as_a_gap():
     # planted: a slice selected 20 % against 60 % for the rest; gap -0.386 [-0.42, -0.35]
     slices = {"direction": "lower", "found": [{"rank": 1, "label": "x = 1",
                                                "gap": est(-0.386, -0.42, -0.35, "newcombe")}]}
-    (rule,) = judge({"slices": slices}, PolicySection(max_slice_gap=0.05)).rules
+    (rule,) = judge({"slices": slices}, PolicyOptions(max_slice_gap=0.05)).rules
     assert rule.status == "fail" and rule.value["low"] == 0.35 and rule.value["high"] == 0.42
