@@ -23,18 +23,17 @@ a date/time column.
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
 
+from .bins import fmt_number, quantile_edges
 from .data import close_names
 from .errors import DataError, PlanError
 
-__all__ = ["EncodedColumn", "Encoding", "encode_columns"]
+__all__ = ["EncodedColumn", "Encoding", "encode_columns", "attribute_codes", "is_numeric"]
 
-_EDGE_WINDOW = 0.05  # an edge may move this share of a bin's rows (over the bins) to become round
 _NEAR_UNIQUE = 0.5  # a string column with distinct values on more than half its rows identifies rows
 
 
@@ -194,6 +193,37 @@ def encode_columns(
     return Encoding(tuple(encoded), len(frame), tuple(notes))
 
 
+def is_numeric(series: pd.Series) -> bool:
+    """Numeric (binned, quantile-mapped, standardised) rather than categorical: numbers, not booleans."""
+    return bool(pd.api.types.is_numeric_dtype(series.dtype)
+                and not pd.api.types.is_bool_dtype(series.dtype))
+
+
+def attribute_codes(series: pd.Series) -> tuple[np.ndarray, tuple]:
+    """A protected attribute's exact levels: every observed value is a group, none is merged.
+
+    Levels come in a fixed order: a categorical's category order, else numbers in numeric order,
+    else text order. Missing values get code ``-1`` (in no group).
+
+    Returns
+    -------
+    codes : ndarray of int64
+    levels : tuple
+        The observed values, in code order.
+    """
+    present = series.dropna()
+    if isinstance(series.dtype, pd.CategoricalDtype):
+        seen = set(present.unique())
+        levels = [lv for lv in series.cat.categories if lv in seen]
+    else:
+        values = list(pd.unique(present))
+        numbers = (int, float, np.integer, np.floating, bool, np.bool_)
+        levels = sorted(values) if all(isinstance(v, numbers) for v in values) else sorted(values, key=str)
+    codes = pd.Index(levels, dtype=object).get_indexer(pd.Index(series.to_numpy(), dtype=object)) \
+        if len(levels) else np.full(len(series), -1)
+    return np.asarray(codes, dtype=np.int64), tuple(_py(v) for v in levels)
+
+
 def _check_known(asked, names, option):
     unknown = [str(c) for c in asked if str(c) not in names]
     if not unknown:
@@ -346,44 +376,18 @@ def _category_counts(codes, k):
 
 def _fmt_level(v):
     if isinstance(v, float):
-        return _fmt_number(v)
+        return fmt_number(v)
     return str(v)
 
 
 def _bin(name, x, missing, bins, srt):
-    """Quantile bins ``[e_j, e_{j+1})``; each edge the roundest number near its quantile.
+    """Quantile bins ``[e_j, e_{j+1})`` at readable edges (:func:`probe.bins.quantile_edges`).
 
-    Near means within ``_EDGE_WINDOW / bins`` of the quantile's rank on either side (1 % of the rows
-    with 5 bins), so bins stay close to equal-count; where that window holds a single tied value the
-    edge goes just above it, so a heavily tied value (70 % zeros) keeps a bin of its own. The codes are
-    cut at the rounded edges themselves, so every label states exactly the rows it holds.
+    The codes are cut at the rounded edges themselves, so every label states exactly the rows it holds.
 
     ``x`` holds the values (NaN or anything where ``missing``), ``srt`` the present ones sorted.
     """
-    probs = np.arange(1, bins) / bins
-    w = _EDGE_WINDOW / bins
-    q = _sorted_quantile(srt, np.concatenate([probs, probs - w, probs + w]))
-    q_mid, q_lo, q_hi = q.reshape(3, -1)
-    edges = set()
-    for mid, lo, hi in zip(q_mid, q_lo, q_hi):
-        if hi <= lo:  # a tied value: the edge goes between it and the next value up
-            j = np.searchsorted(srt, mid, side="right")
-            if j >= len(srt):
-                continue
-            lo, hi = mid, srt[j]
-        r = _round_edge(lo, hi)
-        if srt[0] < r <= srt[-1]:
-            edges.add(r)
-    if not edges:  # cannot happen with two distinct values, kept for safety
-        edges = {_round_edge(srt[0], srt[np.searchsorted(srt, srt[0], side="right")])}
-    # two edges in the same gap between values would leave an empty bin: keep the first of them
-    below = np.searchsorted(srt, sorted(edges), side="left")
-    kept, last = [], 0
-    for e, b in zip(sorted(edges), below):
-        if last < b < len(srt):
-            kept.append(e)
-            last = b
-    edges = kept
+    edges = quantile_edges(srt, bins)
     has_missing = bool(missing.any())
     dtype = _code_dtype(len(edges) + 1 + has_missing)
     if len(edges) <= 16:  # the code is the number of edges at or below the value (NaN: none)
@@ -398,11 +402,11 @@ def _bin(name, x, missing, bins, srt):
     for j in range(len(edges) + 1):
         lo, hi = bounds[j], bounds[j + 1]
         if lo is None:
-            labels.append(f"{name} < {_fmt_number(hi)}")
+            labels.append(f"{name} < {fmt_number(hi)}")
         elif hi is None:
-            labels.append(f"{name} >= {_fmt_number(lo)}")
+            labels.append(f"{name} >= {fmt_number(lo)}")
         else:
-            labels.append(f"{name} in [{_fmt_number(lo)}, {_fmt_number(hi)})")
+            labels.append(f"{name} in [{fmt_number(lo)}, {fmt_number(hi)})")
         preds.append({"column": name, "op": "in", "value": [lo, hi]})
     if has_missing:
         codes[missing] = len(labels)
@@ -412,55 +416,3 @@ def _bin(name, x, missing, bins, srt):
     return EncodedColumn(name, "numeric", codes, tuple(labels), tuple(preds))
 
 
-def _sorted_quantile(srt, q):
-    """``np.quantile(srt, q)`` (its default, linear method) for an already sorted ``srt``, without
-    the copy and partial sort it would make: the same index, weight and interpolation arithmetic
-    (Hyndman & Fan's definition 7), so the same floats."""
-    n = len(srt)
-    virtual = (n - 1) * np.asarray(q, dtype=float)
-    prev = np.floor(virtual)
-    gamma = virtual - prev
-    prev_i = np.clip(prev, 0, n - 1).astype(np.intp)
-    next_i = np.clip(prev + 1, 0, n - 1).astype(np.intp)
-    above = virtual >= n - 1
-    prev_i[above] = next_i[above] = n - 1
-    below = virtual < 0
-    prev_i[below] = next_i[below] = 0
-    a, b = srt[prev_i], srt[next_i]
-    diff = b - a
-    out = a + diff * gamma
-    np.subtract(b, diff * (1 - gamma), out=out, where=gamma >= 0.5)
-    return out
-
-
-def _round_edge(below: float, edge: float) -> float:
-    """The roundest number ``r`` with ``below < r <= edge``: any such ``r`` splits the rows alike.
-
-    Tries multiples of ``10**k`` (then ``5`` and ``2`` times that) from coarse to fine and keeps the first
-    that lands in ``(below, edge]``; the float actually returned is checked, not the decimal intended.
-    """
-    below, edge = float(below), float(edge)
-    if edge == 0.0:
-        return 0.0
-    top = math.floor(math.log10(max(abs(edge), abs(below), 1e-300))) + 1
-    for k in range(top, top - 18, -1):
-        for mult in (10, 5, 2, 1):
-            step = mult * 10.0 ** (k - 1)
-            r = math.floor(edge / step) * step
-            r = round(r, max(0, 2 - k))  # one digit more than the step needs, against float noise
-            if below < r <= edge:
-                return float(r) + 0.0
-    return edge
-
-
-def _fmt_number(v: float) -> str:
-    v = float(v)
-    if v != 0 and abs(v) < 1e-4:
-        return f"{v:.3g}"
-    if v == int(v) and abs(v) < 1e15:
-        return f"{int(v):,}"
-    text = np.format_float_positional(v, trim="-")
-    whole, _, frac = text.partition(".")
-    sign = "-" if whole.startswith("-") else ""
-    whole = f"{int(whole.lstrip('-') or 0):,}"
-    return f"{sign}{whole}.{frac}" if frac else f"{sign}{whole}"

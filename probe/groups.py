@@ -19,7 +19,10 @@ from typing import Sequence
 import numpy as np
 import pandas as pd
 
+from .counting import CellCounts, count_cells
+from .encode import attribute_codes
 from .errors import DataError, DegenerateWarning
+from .metrics import as_favorable, favorable_decision
 from .stats import Estimate, newcombe_interval, ratio_interval, wilson_interval
 
 __all__ = ["GroupRow", "GroupMetrics", "group_metrics", "FOUR_FIFTHS"]
@@ -135,67 +138,32 @@ def _level_text(value) -> str:
     return str(value)
 
 
-def _sorted_levels(values) -> list:
-    """Numbers in numeric order, anything else in string order (a fixed, documented tie-break)."""
-    values = list(values)
-    if all(isinstance(v, (int, float, np.integer, np.floating, bool, np.bool_)) for v in values):
-        return sorted(values)
-    return sorted(values, key=str)
+_SUMS = ("sel", "err", "pos", "neg", "tp", "fp", "pp", "tn")
 
 
-def _codes(frame: pd.DataFrame, columns: Sequence[str]):
-    """Integer group codes (-1 for a missing value in any column) and the group labels, sorted."""
-    parts = []
-    for col in columns:
-        series = frame[col]
-        if isinstance(series.dtype, pd.CategoricalDtype):
-            levels = [lv for lv in series.cat.categories if (series == lv).any()]
-        else:
-            levels = _sorted_levels(series.dropna().unique())
-        lookup = {lv: i for i, lv in enumerate(levels)}
-        codes = series.map(lookup)
-        parts.append((codes.to_numpy(dtype=float), [_level_text(v) for v in levels]))
-    combined = np.zeros(len(frame))
-    known = np.ones(len(frame), dtype=bool)
-    stride = 1
-    for codes, levels in reversed(parts):
-        known &= ~np.isnan(codes)
-        combined += np.nan_to_num(codes) * stride
-        stride *= len(levels)
-    combined = np.where(known, combined, -1).astype(np.int64)
-    present = np.unique(combined[known])
-    labels = []
-    for code in present:
-        pieces, rem = [], int(code)
-        for _, levels in reversed(parts):
-            pieces.append(levels[rem % len(levels)])
-            rem //= len(levels)
-        labels.append(" & ".join(reversed(pieces)))
-    remap = np.full(stride if stride > 0 else 1, -1, dtype=np.int64)
-    remap[present] = np.arange(len(present))
-    out = np.where(known, remap[np.where(known, combined, 0)], -1)
-    return out, labels
-
-
-def _rates(group, y_true, y_pred, favorable, k, z_level):
-    fav = y_pred if favorable else ~y_pred
+def _per_row(y_true, y_pred, favorable) -> dict:
+    """The per-row 0/1 values whose sums per group make every rate."""
     pos, neg = y_true, ~y_true
-    counts = {
-        "n": np.bincount(group, minlength=k),
-        "sel": np.bincount(group, weights=fav, minlength=k),
-        "err": np.bincount(group, weights=y_pred != y_true, minlength=k),
-        "pos": np.bincount(group, weights=pos, minlength=k),
-        "neg": np.bincount(group, weights=neg, minlength=k),
-        "tp": np.bincount(group, weights=pos & y_pred, minlength=k),
-        "fp": np.bincount(group, weights=neg & y_pred, minlength=k),
-        "pp": np.bincount(group, weights=y_pred, minlength=k),
-        "tn": np.bincount(group, weights=neg & ~y_pred, minlength=k),
-    }
-    counts["fn"] = counts["pos"] - counts["tp"]
-    # the favourable decision among rows whose label merits it
-    counts["opp_x"] = counts["tp"] if favorable else counts["tn"]
-    counts["opp_n"] = counts["pos"] if favorable else counts["neg"]
-    return counts
+    return {"sel": favorable_decision(y_pred, favorable), "err": y_pred != y_true, "pos": pos,
+            "neg": neg, "tp": pos & y_pred, "fp": neg & y_pred, "pp": y_pred, "tn": neg & ~y_pred}
+
+
+def _rates(counts: CellCounts, favorable: bool) -> dict:
+    c = {"n": counts.n, **{k: counts.sums[k] for k in _SUMS}}
+    c["fn"] = c["pos"] - c["tp"]
+    # the favourable decision among rows whose label merits it (TPR, or TNR when favourable = negative)
+    c["opp_x"] = c["tp"] if favorable else c["tn"]
+    c["opp_n"] = c["pos"] if favorable else c["neg"]
+    return c
+
+
+def four_fifths_flag(x, n, x_ref, n_ref) -> bool:
+    """Impact ratio strictly below 4/5, decided on the counts: ``5 x n_ref < 4 x_ref n``.
+
+    Comparing the float ratio with 0.8 flags 60/100 against 75/100, whose ratio is exactly 4/5
+    (0.6 / 0.75 = 0.7999999999999999 in floating point); the rule does not flag exactly 0.80.
+    """
+    return bool(5 * x * n_ref < 4 * x_ref * n)
 
 
 def group_metrics(
@@ -248,6 +216,8 @@ def group_metrics(
             f"`y_true` and `y_pred` must have one value per row ({len(frame)}), "
             f"got shapes {y_true.shape} and {y_pred.shape}"
         )
+    favorable = as_favorable(favorable)
+    per_row = _per_row(y_true, y_pred, favorable)
     specs = [(a, (a,)) for a in attributes] + [(" & ".join(c), tuple(c)) for c in intersections]
     rows: list[GroupRow] = []
     unknown: dict[str, int] = {}
@@ -256,14 +226,19 @@ def group_metrics(
         missing = [c for c in columns if c not in frame.columns]
         if missing:
             raise DataError(f"attribute column `{missing[0]}` is not in the data")
-        group, labels = _codes(frame, columns)
-        known = group >= 0
+        parts = [attribute_codes(frame[col]) for col in columns]
+        codes = [p[0] for p in parts]
+        counts = count_cells(codes, values=per_row, n_levels=[len(p[1]) for p in parts])
+        known = np.ones(len(frame), dtype=bool)
+        for c in codes:
+            known &= c >= 0
         unknown[name] = int((~known).sum())
-        k = len(labels)
-        if k == 0:
+        if len(counts) == 0:
             notes.append(f"`{name}` has no rows with a known value")
             continue
-        c = _rates(group[known], y_true[known], y_pred[known], favorable, k, confidence_level)
+        labels = [" & ".join(_level_text(parts[j][1][code]) for j, code in enumerate(cell))
+                  for cell in counts.cells]
+        c = _rates(counts, favorable)
         rows.extend(_attribute_rows(name, labels, c, min_share, confidence_level, notes))
     return GroupMetrics(tuple(rows), unknown, favorable, confidence_level, tuple(notes))
 
@@ -324,7 +299,7 @@ def _attribute_rows(name, labels, c, min_share, confidence_level, notes):
             impact_ratio=Estimate(float(ir[i]), float(ir_low[i]), float(ir_high[i]),
                                   "reference" if i == ref else "mover-wilson"),
             reference_group=labels[ref],
-            four_fifths_flag=bool(ir[i] < FOUR_FIFTHS),
+            four_fifths_flag=four_fifths_flag(c["sel"][i], n[i], xr, nr),
             spd=Estimate(float(sel_rate[i] - ref_rate), float(sp_low[i]), float(sp_high[i]),
                          "reference" if i == ref else "newcombe"),
             eod=Estimate(float(opp[i] - opp[ref]), float(eo_low[i]), float(eo_high[i]),

@@ -176,3 +176,34 @@ def test_the_reference_group_is_exactly_one_not_an_interval():
     ref = _row(group_metrics(frame, sel, sel, attributes=["g"]), "g", "a")
     assert (ref.impact_ratio.value, ref.impact_ratio.low, ref.impact_ratio.high) == (1.0, 1.0, 1.0)
     assert (ref.spd.low, ref.spd.high) == (0.0, 0.0) and ref.impact_ratio.method == "reference"
+
+
+def test_an_impact_ratio_of_exactly_four_fifths_is_not_flagged():
+    # 60/100 against 75/100: the ratio is exactly 4/5, which the Uniform Guidelines' Q&A 11 does not
+    # flag (check-values.md, [V]); as floats 0.6 / 0.75 = 0.7999999999999999 and was flagged
+    f = pd.DataFrame({"g": ["a"] * 100 + ["b"] * 100})
+    sel = np.r_[np.ones(60), np.zeros(40), np.ones(75), np.zeros(25)].astype(bool)
+    m = group_metrics(f, sel, sel, attributes=["g"])
+    row = next(r for r in m.rows if r.group == "a")
+    assert row.reference_group == "b"
+    assert 0.6 / 0.75 < 0.8  # the float trap the integer comparison avoids
+    assert not row.four_fifths_flag
+    # one selection fewer is below four-fifths and is flagged
+    sel[59] = False
+    row = next(r for r in group_metrics(f, sel, sel, attributes=["g"]).rows if r.group == "a")
+    assert row.four_fifths_flag
+
+
+def test_intersection_memory_follows_the_observed_groups():
+    # three 300-level columns on 4,000 rows allocated the product of the level counts (207 MiB)
+    import tracemalloc
+
+    rng = np.random.default_rng(0)
+    f = pd.DataFrame({c: rng.integers(0, 300, size=4000).astype(str) for c in "xyz"})
+    y = rng.random(4000) < 0.5
+    tracemalloc.start()
+    m = group_metrics(f, y, y, attributes=[], intersections=[["x", "y", "z"]])
+    peak = tracemalloc.get_traced_memory()[1]
+    tracemalloc.stop()
+    assert len(m.rows) == len(f.drop_duplicates())  # brute force: the distinct observed triples
+    assert peak < 40 * 2**20, f"peak {peak / 2**20:.1f} MiB"

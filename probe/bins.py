@@ -1,0 +1,101 @@
+"""Quantile bin edges that a person can read: each edge the roundest number near its quantile.
+
+Used by the one encoder (:mod:`probe.encode`) for every numeric column it cuts into bins.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+__all__ = ["quantile_edges", "fmt_number"]
+
+_EDGE_WINDOW = 0.05  # an edge may move this share of a bin's rows (over the bins) to become round
+
+
+def quantile_edges(srt: np.ndarray, bins: int) -> list[float]:
+    """Edges cutting the sorted values ``srt`` into about ``bins`` equal-count bins ``[e_j, e_{j+1})``.
+
+    Each edge is the roundest number within ``_EDGE_WINDOW / bins`` of its quantile's rank on either
+    side; where that window holds a single tied value the edge goes just above it, so a heavily tied
+    value keeps a bin of its own. No two edges fall in the same gap between values (no empty bin).
+    """
+    probs = np.arange(1, bins) / bins
+    w = _EDGE_WINDOW / bins
+    q = _sorted_quantile(srt, np.concatenate([probs, probs - w, probs + w]))
+    q_mid, q_lo, q_hi = q.reshape(3, -1)
+    edges = set()
+    for mid, lo, hi in zip(q_mid, q_lo, q_hi):
+        if hi <= lo:  # a tied value: the edge goes between it and the next value up
+            j = np.searchsorted(srt, mid, side="right")
+            if j >= len(srt):
+                continue
+            lo, hi = mid, srt[j]
+        r = _round_edge(lo, hi)
+        if srt[0] < r <= srt[-1]:
+            edges.add(r)
+    if not edges:  # cannot happen with two distinct values, kept for safety
+        edges = {_round_edge(srt[0], srt[np.searchsorted(srt, srt[0], side="right")])}
+    # two edges in the same gap between values would leave an empty bin: keep the first of them
+    below = np.searchsorted(srt, sorted(edges), side="left")
+    kept, last = [], 0
+    for e, b in zip(sorted(edges), below):
+        if last < b < len(srt):
+            kept.append(e)
+            last = b
+    return kept
+
+
+def _sorted_quantile(srt, q):
+    """``np.quantile(srt, q)`` (its default, linear method) for an already sorted ``srt``, without
+    the copy and partial sort it would make: the same index, weight and interpolation arithmetic
+    (Hyndman & Fan's definition 7), so the same floats."""
+    n = len(srt)
+    virtual = (n - 1) * np.asarray(q, dtype=float)
+    prev = np.floor(virtual)
+    gamma = virtual - prev
+    prev_i = np.clip(prev, 0, n - 1).astype(np.intp)
+    next_i = np.clip(prev + 1, 0, n - 1).astype(np.intp)
+    above = virtual >= n - 1
+    prev_i[above] = next_i[above] = n - 1
+    below = virtual < 0
+    prev_i[below] = next_i[below] = 0
+    a, b = srt[prev_i], srt[next_i]
+    diff = b - a
+    out = a + diff * gamma
+    np.subtract(b, diff * (1 - gamma), out=out, where=gamma >= 0.5)
+    return out
+
+
+def _round_edge(below: float, edge: float) -> float:
+    """The roundest number ``r`` with ``below < r <= edge``: any such ``r`` splits the rows alike.
+
+    Tries multiples of ``10**k`` (then ``5`` and ``2`` times that) from coarse to fine and keeps the first
+    that lands in ``(below, edge]``; the float actually returned is checked, not the decimal intended.
+    """
+    below, edge = float(below), float(edge)
+    if edge == 0.0:
+        return 0.0
+    top = math.floor(math.log10(max(abs(edge), abs(below), 1e-300))) + 1
+    for k in range(top, top - 18, -1):
+        for mult in (10, 5, 2, 1):
+            step = mult * 10.0 ** (k - 1)
+            r = math.floor(edge / step) * step
+            r = round(r, max(0, 2 - k))  # one digit more than the step needs, against float noise
+            if below < r <= edge:
+                return float(r) + 0.0
+    return edge
+
+
+def fmt_number(v: float) -> str:
+    v = float(v)
+    if v != 0 and abs(v) < 1e-4:
+        return f"{v:.3g}"
+    if v == int(v) and abs(v) < 1e15:
+        return f"{int(v):,}"
+    text = np.format_float_positional(v, trim="-")
+    whole, _, frac = text.partition(".")
+    sign = "-" if whole.startswith("-") else ""
+    whole = f"{int(whole.lstrip('-') or 0):,}"
+    return f"{sign}{whole}.{frac}" if frac else f"{sign}{whole}"
