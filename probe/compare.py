@@ -16,12 +16,11 @@ import numpy as np
 import pandas as pd
 
 from .errors import DataError, PlanError
-from .slices import METRICS, metric_outcome, search_slices
+from .metrics import METRIC_NAMES, get_metric, metric_outcome
+from .slices import search_slices
 from .stats import Estimate, mcnemar_pvalue, wilson
 
 __all__ = ["MetricComparison", "Comparison", "compare_models", "paired_difference"]
-
-_WORSE_IS_LOWER = {"selection"}
 
 
 @dataclass(frozen=True)
@@ -48,12 +47,25 @@ class MetricComparison:
     p_value: float
     discordant: tuple[int, int]
 
+    @property
+    def shortfall(self) -> Estimate:
+        """The difference oriented so that larger is worse for the candidate (``Metric.sign``).
+
+        For the error, FPR and FNR it is the difference itself; for the selection rate, where
+        fewer favourable decisions is worse, it is the baseline minus the candidate.
+        """
+        d = self.difference
+        if get_metric(self.metric).sign > 0:
+            return d
+        return Estimate(-d.value, -d.high, -d.low, d.method)
+
     def to_dict(self) -> dict:
         return {"metric": self.metric, "candidate": self.candidate.to_dict(),
                 "baseline": self.baseline.to_dict(), "difference": self.difference.to_dict(),
+                "shortfall": self.shortfall.to_dict(),
                 "p_value": self.p_value, "test": "mcnemar-exact",
                 "discordant": list(self.discordant),
-                "worse_if": "lower" if self.metric in _WORSE_IS_LOWER else "higher"}
+                "worse_if": get_metric(self.metric).worse}
 
 
 @dataclass(frozen=True)
@@ -82,10 +94,21 @@ class Comparison:
     def overall(self) -> MetricComparison:
         return next(m for m in self.metrics if m.metric == self.metric)
 
+    @property
+    def worse(self) -> tuple:
+        """The found slices where the candidate is worse (its oriented difference there above zero).
+
+        The search ranks slices by how much worse the candidate does there than on the other rows;
+        a slice where it is merely less better than elsewhere is not a place where it is worse.
+        """
+        return tuple(s for s in self.worse_slices.found
+                     if s.rate.value is not None and s.rate.value > 0)
+
     def to_dict(self) -> dict:
         found = self.worse_slices.to_dict()
+        keep = {s.rank for s in self.worse}
         worse = [{**s, "sentence": _worse_sentence(s, self.metric, self.confidence_level)}
-                 for s in found["found"]]
+                 for s in found["found"] if s["rank"] in keep]
         return {"metric": self.metric, "agreement": self.agreement,
                 "overall": self.overall.to_dict(),
                 "metrics": [m.to_dict() for m in self.metrics],
@@ -101,23 +124,22 @@ class Comparison:
         ])
 
 
-_METRIC_WORDS = {"error": "error rate", "fpr": "false-positive rate", "fnr": "false-negative rate",
-                 "selection": "selection rate"}
-
-
 def _worse_sentence(found: dict, metric: str, confidence_level: float) -> str:
     """One line for a worse slice: how far the candidate is behind the baseline there and elsewhere."""
     rate, gap = found["rate"], found["gap"]
     if rate["value"] is None or gap["value"] is None:
         return f"Rows with {found['label']}: the difference is undefined."
+    m = get_metric(metric)
+    # the figures are oriented so that positive = candidate worse; say which way the rate moved
+    change = "lower" if m.worse == "lower" else "higher"
+    if rate["low"] is None or rate["high"] is None:
+        interval = "no interval: too few rows"
+    else:
+        interval = (f"{100 * confidence_level:g} % interval of the shortfall "
+                    f"{100 * rate['low']:.1f} to {100 * rate['high']:.1f}")
     rest = rate["value"] - gap["value"]
-    word = _METRIC_WORDS.get(metric, metric)
-    lower = metric in _WORSE_IS_LOWER
-    # the figures are oriented so that positive = candidate worse; say which way they go
-    change = ("lower" if lower else "higher") if rate["value"] >= 0 else ("higher" if lower else "lower")
-    return (f"Rows with {found['label']}: the candidate's {word} is {abs(100 * rate['value']):.1f} "
-            f"points {change} than the baseline's on the same rows ({100 * confidence_level:g} % "
-            f"interval of the shortfall {100 * rate['low']:.1f} to {100 * rate['high']:.1f}), "
+    return (f"Rows with {found['label']}: the candidate's {m.words} is {100 * rate['value']:.1f} "
+            f"points {change} than the baseline's on the same rows ({interval}), "
             f"against {100 * rest:.1f} points on the other rows.")
 
 
@@ -202,7 +224,7 @@ def compare_models(
             f"`confidence_level` must lie strictly between 0 and 1, got {confidence_level!r}")
     # metric_outcome checks that labels and decisions are 0/1 (scores or text are refused there)
     outcomes = {}
-    for name in METRICS if y_true is not None else ("selection",):
+    for name in METRIC_NAMES if y_true is not None else ("selection",):
         c_out, mask = metric_outcome(y_true, y_pred, name, favorable=favorable)
         b_out, _ = metric_outcome(y_true, y_pred_baseline, name, favorable=favorable)
         outcomes[name] = (c_out, b_out, mask)
@@ -228,9 +250,7 @@ def compare_models(
             diff, p, disc,
         ))
     c_out, b_out, mask = outcomes[metric]
-    worse = c_out.astype(float) - b_out.astype(float)
-    if metric in _WORSE_IS_LOWER:
-        worse = -worse
+    worse = get_metric(metric).sign * (c_out.astype(float) - b_out.astype(float))
     found = search_slices(
         X, worse, base=mask, depth=depth, min_rows=min_rows, bins=bins, columns=columns,
         exclude=exclude,

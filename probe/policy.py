@@ -201,8 +201,9 @@ def judge(report: dict, policy: PolicyOptions) -> Verdict:
             rules.append(_not_run("max_regression", bound, "model comparison"))
         else:
             primary = comparison["overall"]
+            # the shortfall is oriented so larger is worse (fewer selected, for the selection rate)
             rules.append(_judge("max_regression", f"overall {primary['metric']}", bound,
-                                primary["difference"], upper=True))
+                                primary["shortfall"], upper=True))
             for s in comparison["worse_slices"]:
                 subject = f"worse slice {s['rank']}: {s['label']}"
                 rules.append(_judge("max_regression", subject, bound, s["rate"], upper=True))

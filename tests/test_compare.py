@@ -83,3 +83,48 @@ def test_compare_finds_the_planted_regression_there_and_only_there(built):
     assert (covered & defect).sum() / defect.sum() >= 0.5  # most of the defect region is reported
     overall = result.overall
     assert overall.difference.low > 0  # the candidate is worse overall, as planted
+
+
+@pytest.mark.parametrize("moved, status", [(-0.21, "fail"), (+0.19, "pass")])
+def test_max_regression_judges_the_selection_rate_in_its_worse_direction(moved, status):
+    # selecting 21 points fewer people is a regression (it passed before); 19 points more is not
+    # (it failed before). Planted truth: the candidate moves exactly that share of rows.
+    from probe.options import PolicyOptions
+    from probe.policy import judge
+
+    n = 4000
+    rng = np.random.default_rng(7)
+    X = pd.DataFrame({"a": rng.integers(0, 3, size=n)})
+    base = np.zeros(n, dtype=bool)
+    base[: n // 2] = True
+    cand = base.copy()
+    k = int(abs(moved) * n)
+    if moved < 0:
+        cand[:k] = False
+    else:
+        cand[n // 2: n // 2 + k] = True
+    result = compare_models(X, None, cand, base, metric="selection", rng=0)
+    assert result.overall.difference.value == pytest.approx(moved, abs=1e-12)
+    assert result.overall.shortfall.value == pytest.approx(-moved, abs=1e-12)
+    verdict = judge({"comparison": result.to_dict()}, PolicyOptions(max_regression=0.02))
+    assert verdict.rules[0].status == status
+
+
+def test_worse_slices_are_only_slices_where_the_candidate_is_worse():
+    # the candidate is better than the baseline everywhere, least better where a == 0: the search
+    # ranks that corner first, but the candidate is not worse there, so nothing is listed
+    n = 6000
+    rng = np.random.default_rng(3)
+    X = pd.DataFrame({"a": rng.integers(0, 3, size=n), "b": rng.integers(0, 4, size=n)})
+    y = rng.random(n) < 0.5
+    base_err = rng.random(n) < np.where(X["a"] == 0, 0.30, 0.40)
+    cand_err = base_err & (rng.random(n) < np.where(X["a"] == 0, 0.95, 0.5))
+    base, cand = np.where(base_err, ~y, y), np.where(cand_err, ~y, y)
+    result = compare_models(X, y, cand, base, rng=0)
+    assert result.overall.difference.high < 0  # better overall, as planted
+    ranked = [s for s in result.worse_slices.found]
+    assert ranked, "the search itself still ranks slices by relative shortfall"
+    assert result.worse == () and result.to_dict()["worse_slices"] == []
+    # brute force: in every ranked slice the candidate's error is not above the baseline's
+    for s in ranked:
+        assert s.rate.value <= 0
