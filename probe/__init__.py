@@ -10,7 +10,7 @@ A statistical screen, not a legal finding; the four-fifths rule is a rule of thu
 local law and licensed practice.
 """
 
-__version__ = "0.1.0"
+from ._version import __version__
 
 from .adapters import Model, load_model
 from .compare import Comparison, compare_models

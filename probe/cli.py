@@ -69,7 +69,7 @@ def _output(p: argparse.ArgumentParser) -> None:
 
 
 def build_parser() -> argparse.ArgumentParser:
-    from . import __version__
+    from ._version import __version__
     from .options import (CompareOptions, FlipOptions, PolicyOptions, ProxyOptions, SliceOptions,
                           add_flags)
 

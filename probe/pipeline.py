@@ -1,55 +1,43 @@
-"""Run a :class:`~probe.plan.Plan` end to end and assemble the report dict.
+"""Run a :class:`~probe.plan.Plan` end to end: prepare the evidence once, run the analyses, judge.
 
-The steps: read and check the data, load the model, score once, then the analyses the plan asks for
-(groups always; slices, flips, proxies, comparison when their section is present), then the policy
-verdict, then provenance. Each analysis is a library function returning a frozen result; this module
-only calls them in order, times them, and puts their ``to_dict()`` into the report (contract:
-``docs/contracts.md``). It never prints; progress goes through the optional callback.
+The steps: read and check the data, load the model(s) and score once (:func:`prepare`, which
+returns the run's :class:`~probe.evidence.Evidence`: scores, decisions, the slice columns encoded
+once), then the analyses the plan asks for, each reading that evidence (groups always; slices,
+proxies, flips, comparison when their section is present), then the typed verdict
+(:mod:`probe.policy`), then the report dict (:mod:`probe.assemble`). This module only calls them in
+order and times them. It never prints; progress goes through the optional callback.
 """
 
 from __future__ import annotations
 
-import platform
 import time
 from contextlib import contextmanager
-from dataclasses import dataclass
-from datetime import datetime, timezone
-from importlib import metadata
+from dataclasses import replace
 from typing import Callable
 
-import numpy as np
-import pandas as pd
-
-from . import __version__
 from .adapters import load_model
+from .assemble import Findings, assemble_report, provenance
 from .compare import compare_models
-from .data import Holdout, close_names, prepare_holdout, read_table, sha256_file
+from .data import close_names, prepare_holdout, read_table, sha256_file
+from .encode import encode_columns
 from .errors import DataError
+from .evidence import Evidence, ModelRun
 from .flips import flip_test
 from .groups import group_metrics
 from .plan import Plan
-from .policy import judge
+from .policy import judge, measure
 from .proxies import find_proxies
-from .report.json import SCHEMA
 from .slices import find_slices
 
-__all__ = ["CAUTION", "run_plan", "Progress"]
-
-CAUTION = (
-    "A statistical screen, not a legal finding. The four-fifths rule is a rule of thumb, not a legal "
-    "test. Counterfactual flips measure how decisions depend on an attribute; they do not by themselves "
-    "establish or rule out disparate impact. Defer to counsel, local law and licensed practice."
-)
+__all__ = ["run_plan", "prepare", "Progress"]
 
 Progress = Callable[[str, int, int], None]
 """``progress(step, done, total)``: called as long steps advance (the CLI draws the bar)."""
 
-_VERSIONS = ("numpy", "pandas", "scipy", "scikit-learn", "lightgbm", "skops", "onnxruntime")
 
-
-@dataclass
 class _Clock:
-    timings: dict
+    def __init__(self):
+        self.timings: dict = {}
 
     @contextmanager
     def step(self, name: str):
@@ -60,54 +48,57 @@ class _Clock:
             self.timings[name] = round(time.perf_counter() - start, 4)
 
 
-def _versions() -> dict:
-    out = {"python": platform.python_version(), "probe": __version__}
-    for name in _VERSIONS:
-        try:
-            out[name] = metadata.version(name)
-        except metadata.PackageNotFoundError:
-            out[name] = None
-    return out
-
-
-def load_holdout(plan: Plan) -> Holdout:
-    """Read the plan's data file and check its column roles."""
-    path = plan.resolve(plan.data.path)
-    frame = read_table(path)
-    return prepare_holdout(
-        frame,
-        label=plan.data.label or None,
-        positive=plan.data.positive,
-        protected=plan.data.protected,
-        intersections=plan.data.intersections,
-        source=str(path),
-        sha256=sha256_file(path),
-    )
-
-
-def _load(plan: Plan, spec: str, holdout: Holdout):
-    return load_model(
-        plan.resolve_spec(spec),
-        base_dir=plan.base_dir,
-        positive=holdout.positive,
-        trust_pickle=plan.model.trust_pickle,
-        trusted_types=plan.model.trusted_types,
-        feature_names=plan.data.features,
-        batch_size=plan.model.batch_size,
-    )
-
-
 def _bar(progress: Progress | None, step: str):
     if progress is None:
         return None
     return lambda done, total: progress(step, done, total)
 
 
-def _slice_exclude(plan: Plan, holdout: Holdout, model) -> list[str]:
-    exclude = [holdout.label, *plan.slices.exclude] if plan.slices else [holdout.label]
+def _load(plan: Plan, spec: str, positive):
+    m = plan.model
+    return load_model(plan.resolve_spec(spec), base_dir=plan.base_dir, positive=positive,
+                      trust_pickle=m.trust_pickle, trusted_types=m.trusted_types,
+                      feature_names=plan.data.features, batch_size=m.batch_size, timeout=m.timeout)
+
+
+def _never_sliced(plan: Plan, label: str | None, model) -> list[str]:
+    """The label, the plan's exclusions and a ``column:`` model's score column are never sliced."""
+    exclude = [label, *plan.search.exclude] if label else list(plan.search.exclude)
     if model.kind == "column":
         exclude.append(model.spec.split(":", 1)[1])
     return list(dict.fromkeys(exclude))
+
+
+def prepare(plan: Plan, *, clock: _Clock | None = None, progress: Progress | None = None) -> Evidence:
+    """Read the data, score every model the plan names once, and encode the slice columns once."""
+    clock = clock or _Clock()
+    d = plan.data
+    with clock.step("load data"):
+        path = plan.resolve(d.path)
+        holdout = prepare_holdout(read_table(path), label=d.label or None, positive=d.positive,
+                                  protected=d.protected, intersections=d.intersections,
+                                  source=str(path), sha256=sha256_file(path))
+    frame = holdout.frame
+    with clock.step("load model"):
+        model = _load(plan, plan.model.spec, holdout.positive)
+    # the model never sees the label, even when it reads the whole frame (py:, cmd:, http:)
+    inputs = frame.drop(columns=[holdout.label]) if holdout.label else frame
+    threshold = plan.model.threshold
+    with clock.step("score"):
+        runs = {"candidate": ModelRun.from_scores(
+            model, model.scores(inputs, progress=_bar(progress, "scoring")), threshold)}
+    if plan.compare is not None:
+        with clock.step("score baseline"):
+            baseline = _load(plan, plan.compare.baseline, holdout.positive)
+            runs["baseline"] = ModelRun.from_scores(
+                baseline, baseline.scores(inputs, progress=_bar(progress, "scoring baseline")),
+                threshold)
+    s = plan.search
+    with clock.step("encode"):
+        encoding = encode_columns(frame, columns=s.columns,
+                                  exclude=_never_sliced(plan, holdout.label, model), bins=s.bins)
+    return Evidence(holdout, inputs, runs, encoding, threshold=threshold,
+                    favorable=plan.model.favorable)
 
 
 def run_plan(plan: Plan, *, command: str | None = None, progress: Progress | None = None) -> dict:
@@ -124,152 +115,101 @@ def run_plan(plan: Plan, *, command: str | None = None, progress: Progress | Non
     Returns
     -------
     dict
-        Keys ``schema``, ``caution``, ``provenance``, ``groups``, ``groups_unknown``, ``slices``,
-        ``flips``, ``proxies``, ``comparison``, ``verdict``; sections not run are None.
+        Keys ``schema``, ``caution``, ``provenance``, ``verdict``, ``groups``, ``groups_unknown``,
+        ``slices``, ``flips``, ``proxies``, ``comparison``; sections not run are None.
     """
-    clock = _Clock({})
-    seed = plan.seed
-    cl = plan.confidence_level
-    favorable = plan.favorable
+    clock = _Clock()
     if plan.model is None:
         return _run_proxies_only(plan, command, clock)
-    with clock.step("load data"):
-        holdout = load_holdout(plan)
-    frame = holdout.frame
-    with clock.step("load model"):
-        model = _load(plan, plan.model.spec, holdout)
-    # the model never sees the label, even when it reads the whole frame (py:, cmd:, http:)
-    inputs = frame.drop(columns=[holdout.label]) if holdout.label else frame
-    with clock.step("score"):
-        scores = model.scores(inputs, progress=_bar(progress, "scoring"))
-    decision = scores >= plan.model.threshold
-
-    report: dict = {"schema": SCHEMA, "caution": CAUTION}
-    groups = None
-    unknown = None
-    if holdout.y_true is not None and (holdout.protected or holdout.intersections):
+    ev = prepare(plan, clock=clock, progress=progress)
+    found = Findings()
+    cl, seed = plan.confidence_level, plan.seed
+    h = ev.holdout
+    if ev.y_true is not None and (h.protected or h.intersections):
         with clock.step("groups"):
-            g = group_metrics(frame, holdout.y_true, decision, attributes=holdout.protected,
-                              intersections=holdout.intersections, favorable=favorable,
-                              confidence_level=cl)
-        groups, unknown = g.to_dict(), g.unknown
-
-    slices = None
+            found.groups = group_metrics(ev.frame, ev.y_true, ev.decision(),
+                                         attributes=h.protected, intersections=h.intersections,
+                                         favorable=ev.favorable, confidence_level=cl)
     if plan.slices is not None:
-        s = plan.slices
         with clock.step("slices"):
-            found = find_slices(
-                frame, holdout.y_true, decision, metric=s.metric, favorable=favorable,
-                depth=s.depth, min_rows=s.min_rows, columns=s.columns,
-                exclude=_slice_exclude(plan, holdout, model), bins=s.bins, top=s.top,
-                split=s.split, confidence_level=cl, interval=s.interval, rng=seed,
-            )
-        slices = found.to_dict()
-
-    flips = None
-    if plan.flips is not None:
-        attributes = plan.flips.attributes or holdout.protected
-        if not attributes:
-            raise DataError("[flips] needs `attributes` (or protected attributes in [data])")
-        rows: list = []
-        jobs = [(a, m) for a in attributes for m in plan.flips.modes]
-        tick = _bar(progress, "flip tests")
-        with clock.step("flips"):
-            for done, (attribute, mode) in enumerate(jobs):
-                if tick:
-                    tick(done, len(jobs))
-                if attribute not in frame.columns:
-                    raise DataError(f"flip attribute `{attribute}` is not in the data"
-                                    + close_names(attribute, list(frame.columns)))
-                result = flip_test(
-                    model, inputs, attribute, mode=mode, reference=plan.flips.reference,
-                    proxies=plan.flips.proxies, n_proxies=plan.flips.n_proxies,
-                    threshold=plan.model.threshold, favorable=favorable, k=plan.flips.k,
-                    confidence_level=cl, rng=seed, scores=scores,
-                )
-                rows.extend(result.to_dict())
-                rows.extend(_note_rows(result, attribute, mode))
-            if tick:
-                tick(len(jobs), len(jobs))
-        flips = rows
-
-    proxies = None
+            found.slices = find_slices(ev.frame, ev.y_true, ev.decision(), options=plan.slices,
+                                       favorable=ev.favorable, confidence_level=cl, rng=seed,
+                                       encoding=ev.encoding)
+    rankings: dict = {}
     if plan.proxies is not None:
         with clock.step("proxies"):
-            proxies = _proxies(plan, frame, model.feature_names, holdout.label,
-                               holdout.protected)
-
-    comparison = None
+            attributes = _attributes(plan.proxies.attributes, h.protected, "proxies", ev.frame)
+            found.proxies = [_ranking(plan, ev.frame, a, ev.model().feature_names, h.label,
+                                      h.protected, rankings) for a in attributes]
+    if plan.flips is not None:
+        with clock.step("flips"):
+            found.flips = _flips(plan, ev, rankings, progress)
     if plan.compare is not None:
         with clock.step("compare"):
-            baseline = _load(plan, plan.compare.baseline, holdout)
-            base_scores = baseline.scores(inputs, progress=_bar(progress, "scoring baseline"))
-            result = compare_models(
-                frame, holdout.y_true, decision, base_scores >= plan.model.threshold,
-                metric=plan.compare.metric, favorable=favorable,
-                exclude=_slice_exclude(plan, holdout, model), confidence_level=cl, rng=seed,
-                depth=plan.slices.depth if plan.slices else 3,
-                min_rows=plan.slices.min_rows if plan.slices else None,
-                bins=plan.slices.bins if plan.slices else 5,
-                columns=plan.slices.columns if plan.slices else None,
-            )
-            comparison = {"baseline": baseline.describe(), **result.to_dict()}
-
-    report.update(groups=groups, groups_unknown=unknown, slices=slices, flips=flips,
-                  proxies=proxies, comparison=comparison)
+            search = replace(plan.search, metric=plan.compare.metric)
+            found.comparison = compare_models(
+                ev.frame, ev.y_true, ev.decision(), ev.decision("baseline"),
+                metric=plan.compare.metric, favorable=ev.favorable, options=search,
+                n_resamples=plan.compare.n_resamples, confidence_level=cl, rng=seed,
+                encoding=ev.encoding)
+            found.baseline = ev.model("baseline").describe()
     with clock.step("verdict"):
-        report["verdict"] = judge(report, plan.policy).to_dict()
-    report["provenance"] = _provenance(plan, command, clock, model.describe(), holdout.describe())
-    return _ordered(report)
+        verdict = judge(measure(groups=found.groups, slices=found.slices, flips=found.flips,
+                                comparison=found.comparison), plan.policy)
+    prov = provenance(plan, command=command, timings=clock.timings,
+                      model=ev.model().describe(), data=h.describe())
+    return assemble_report(found, verdict, prov)
 
 
-def _ordered(report: dict) -> dict:
-    order = ("schema", "caution", "provenance", "verdict", "groups", "groups_unknown", "slices",
-             "flips", "proxies", "comparison")
-    return {key: report.get(key) for key in order}
-
-
-def _provenance(plan: Plan, command, clock, model: dict | None, data: dict) -> dict:
-    return {
-        "probe_version": __version__,
-        "created": datetime.now(timezone.utc).isoformat(timespec="seconds"),
-        "command": command,
-        "seed": plan.seed,
-        "confidence_level": plan.confidence_level,
-        "threshold": plan.model.threshold if plan.model else None,
-        "favorable": plan.model.favorable if plan.model else None,
-        "model": model,
-        "data": data,
-        "plan": plan.to_dict(),
-        "plan_sha256": plan.sha256,
-        "versions": _versions(),
-        "timings": clock.timings,
-    }
-
-
-def _proxies(plan: Plan, frame: pd.DataFrame, model_features, label: str | None,
-             protected: tuple[str, ...]) -> list[dict]:
-    """Proxy rankings for each attribute over the plan's features, else the model's, else all."""
-    attributes = plan.proxies.attributes or protected
+def _attributes(asked, protected, section: str, frame) -> tuple:
+    attributes = asked or protected
     if not attributes:
-        raise DataError("[proxies] needs `attributes` (or protected attributes in [data])")
-    out = []
-    for attribute in attributes:
-        if attribute not in frame.columns:
-            raise DataError(f"proxy attribute `{attribute}` is not in the data"
-                            + close_names(attribute, list(frame.columns)))
-        features = plan.proxies.features or model_features
+        raise DataError(f"[{section}] needs `attributes` (or protected attributes in [data])")
+    for a in attributes:
+        if a not in frame.columns:
+            what = "flip" if section == "flips" else "proxy"
+            raise DataError(f"{what} attribute `{a}` is not in the data"
+                            + close_names(a, list(frame.columns)))
+    return tuple(attributes)
+
+
+def _ranking(plan: Plan, frame, attribute, model_features, label, protected, rankings: dict):
+    """The proxy ranking of one attribute, computed once per run (the table and transport share it)."""
+    if attribute not in rankings:
+        features = (plan.proxies.features if plan.proxies else None) or model_features
         if features:
             features = [c for c in features if c != attribute]
         else:
             skip = {label, attribute, *protected}
             features = [c for c in frame.columns if c not in skip]
-        out.append(find_proxies(frame, attribute, features=features,
-                                confidence_level=plan.confidence_level, rng=plan.seed).to_dict())
+        rankings[attribute] = find_proxies(frame, attribute, features=features,
+                                           confidence_level=plan.confidence_level, rng=plan.seed)
+    return rankings[attribute]
+
+
+def _flips(plan: Plan, ev: Evidence, rankings: dict, progress) -> list:
+    f = plan.flips
+    attributes = _attributes(f.attributes, ev.holdout.protected, "flips", ev.frame)
+    jobs = [(a, m) for a in attributes for m in f.modes]
+    tick = _bar(progress, "flip tests")
+    out = []
+    for done, (attribute, mode) in enumerate(jobs):
+        if tick:
+            tick(done, len(jobs))
+        ranking = None
+        if mode == "transport" and f.proxies is None:
+            ranking = _ranking(plan, ev.frame, attribute, ev.model().feature_names,
+                               ev.holdout.label, ev.holdout.protected, rankings)
+        out.append(flip_test(ev.model(), ev.inputs, attribute, options=f, mode=mode,
+                             threshold=ev.threshold, favorable=ev.favorable,
+                             confidence_level=plan.confidence_level, rng=plan.seed,
+                             scores=ev.scores(), encoding=ev.encoding, proxy_ranking=ranking))
+    if tick:
+        tick(len(jobs), len(jobs))
     return out
 
 
-def _run_proxies_only(plan: Plan, command, clock) -> dict:
+def _run_proxies_only(plan: Plan, command, clock: _Clock) -> dict:
     """``probe proxies``: no model, no label needed."""
     with clock.step("load data"):
         path = plan.resolve(plan.data.path)
@@ -280,19 +220,10 @@ def _run_proxies_only(plan: Plan, command, clock) -> dict:
     if label and label not in frame.columns:
         raise DataError(f"label column `{label}` is not in `{path}`"
                         + close_names(label, list(frame.columns)))
+    found = Findings()
     with clock.step("proxies"):
-        proxies = _proxies(plan, frame, None, label, protected)
-    report = {"schema": SCHEMA, "caution": CAUTION, "proxies": proxies,
-              "verdict": judge({}, plan.policy).to_dict()}
-    report["provenance"] = _provenance(plan, command, clock, None, data)
-    return _ordered(report)
-
-
-def _note_rows(result, attribute, mode) -> list:
-    """Modes that do not apply (e.g. a direct flip of a non-input) leave a note, not a fake zero."""
-    if result.rows:
-        return []
-    return [{"attribute": attribute, "mode": mode, "from": None, "to": None, "rows": 0,
-             "flip_rate": None, "to_favorable": None, "to_unfavorable": None,
-             "mean_score_change": None, "applicable": False,
-             "sentence": "; ".join(result.notes) or f"{mode} flips do not apply to `{attribute}`"}]
+        attributes = _attributes(plan.proxies.attributes, protected, "proxies", frame)
+        found.proxies = [_ranking(plan, frame, a, None, label, protected, {}) for a in attributes]
+    verdict = judge(measure(), plan.policy)
+    prov = provenance(plan, command=command, timings=clock.timings, model=None, data=data)
+    return assemble_report(found, verdict, prov)

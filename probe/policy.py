@@ -1,4 +1,4 @@
-"""Judge a report against the plan's policy: every rule on its interval, not its point value.
+"""Judge a run's typed findings against the plan's policy: every rule on its interval, not its point value.
 
 A rule with a lower bound (``min_impact_ratio``) *passes* when the whole interval lies at or above the
 bound, *fails* when the whole interval lies below it, and is *inconclusive* when the interval straddles
@@ -15,17 +15,57 @@ What each rule is measured on:
   discordance over the own-group discordance (the part attributable to the group), when reported.
 - ``max_slice_gap``: every reported slice's gap to the rest of the data (estimate part), oriented so
   that larger is worse: for selection (where the lowest rates are the finding) the shortfall.
-- ``max_regression``: the comparison's overall difference in its metric (candidate minus baseline),
-  and each worse slice's mean paired difference.
+- ``max_regression``: the comparison's overall shortfall in its metric (candidate minus baseline,
+  oriented by the metric so that larger is worse: for selection, fewer favourable decisions), and
+  each worse slice's mean paired shortfall.
+
+:func:`measure` reads the typed results of the analyses (no report dict, no string keys) and
+returns, per rule, the estimates to judge, each oriented so that the rule's bound applies as stated;
+:func:`judge` turns those into a :class:`Verdict`.
 """
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
+from typing import Mapping, Sequence
 
 from .options import PolicyOptions
+from .stats import Estimate
 
-__all__ = ["RuleResult", "Verdict", "judge"]
+__all__ = ["RULES", "Measure", "RuleResult", "Verdict", "judge", "measure"]
+
+
+@dataclass(frozen=True)
+class Rule:
+    """A policy rule: which side of its bound passes, and which analysis measures it."""
+
+    bound: str  # "lower": the interval must lie at or above it; "upper": at or below it
+    section: str
+
+
+RULES = {
+    "min_impact_ratio": Rule("lower", "group metrics"),
+    "max_flip_rate": Rule("upper", "flip tests"),
+    "max_slice_gap": Rule("upper", "slice search"),
+    "max_regression": Rule("upper", "model comparison"),
+}
+
+
+@dataclass(frozen=True)
+class Measure:
+    """One estimate a rule is judged on.
+
+    Attributes
+    ----------
+    subject : str
+        What it measures (``sex = F (vs M)``, ``slice 2: …``, ``overall error``).
+    estimate : Estimate
+        Oriented so that the rule's bound applies as written (a selection shortfall is positive).
+    """
+
+    subject: str
+    estimate: Estimate
 
 
 @dataclass(frozen=True)
@@ -107,11 +147,15 @@ class Verdict:
                 "rules": [r.to_dict() for r in self.rules]}
 
 
-def _judge(name, subject, threshold, est, *, upper: bool) -> RuleResult:
-    if est is None or est.get("value") is None or est.get("low") is None or est.get("high") is None:
-        return RuleResult(name, subject, threshold, est, "inconclusive",
-                          "not measured (the estimate is undefined)")
-    low, high = est["low"], est["high"]
+def _undefined(est: Estimate | None) -> bool:
+    return est is None or any(not math.isfinite(v) for v in (est.value, est.low, est.high))
+
+
+def _judge(name, subject, threshold, est: Estimate | None, *, upper: bool) -> RuleResult:
+    if _undefined(est):
+        return RuleResult(name, subject, threshold, None if est is None else est.to_dict(),
+                          "inconclusive", "not measured (the estimate is undefined)")
+    low, high = est.low, est.high
     if upper:
         if high <= threshold:
             status, why = "pass", f"whole interval at or below the bound {threshold:g}"
@@ -126,27 +170,71 @@ def _judge(name, subject, threshold, est, *, upper: bool) -> RuleResult:
             status, why = "fail", f"whole interval below the bound {threshold:g}"
         else:
             status, why = "inconclusive", f"interval straddles the bound {threshold:g}"
-    return RuleResult(name, subject, threshold, est, status, why)
+    return RuleResult(name, subject, threshold, est.to_dict(), status, why)
 
 
-def _shortfall(est: dict) -> dict:
-    """A gap where lower is worse (selection), turned so that larger is worse like the others."""
-    neg = {k: (None if est.get(k) is None else -est[k]) for k in ("value", "low", "high")}
-    return {"value": neg["value"], "low": neg["high"], "high": neg["low"], "method": est.get("method")}
+def _worse_up(est: Estimate, sign: int) -> Estimate:
+    """``est`` turned so that larger is worse (``sign`` -1: a shortfall where lower is worse)."""
+    if sign > 0:
+        return est
+    return Estimate(-est.value, -est.high, -est.low, est.method)
 
 
-def _not_run(name, threshold, section) -> RuleResult:
-    return RuleResult(name, "(not run)", threshold, None, "inconclusive",
-                      f"`{name}` is set but the {section} were not run; nothing was measured")
-
-
-def judge(report: dict, policy: PolicyOptions) -> Verdict:
-    """Judge the report's sections against ``policy``.
+def measure(*, groups=None, slices=None, flips=None, comparison=None) -> dict:
+    """The estimates each rule is judged on, from the typed results of the analyses.
 
     Parameters
     ----------
-    report : dict
-        The report dict (its ``groups``, ``flips``, ``slices`` and ``comparison`` sections).
+    groups : GroupMetrics, optional
+    slices : SliceFindings, optional
+    flips : sequence of FlipFindings, optional
+    comparison : Comparison, optional
+
+    Returns
+    -------
+    dict
+        Rule name -> list of :class:`Measure`, or None when the analysis was not run (or, for
+        flips, no test applied).
+    """
+    out: dict[str, list[Measure] | None] = {}
+    out["min_impact_ratio"] = None if groups is None else [
+        Measure(f"{r.attribute} = {r.group} (vs {r.reference_group})", r.impact_ratio)
+        for r in groups.rows if r.group != r.reference_group and not r.small]
+    rows = [row for f in flips or () for row in f.rows if math.isfinite(row.flip_rate.value)]
+    out["max_flip_rate"] = [_flip_measure(row) for row in rows] or None
+    if slices is None:
+        out["max_slice_gap"] = None
+    else:
+        lower = slices.direction == "lower"
+        out["max_slice_gap"] = [
+            Measure(f"slice {s.rank}: {s.label}" + (" (shortfall in selection rate)" if lower else ""),
+                    _worse_up(s.gap, -1 if lower else 1)) for s in slices.found]
+    if comparison is None:
+        out["max_regression"] = None
+    else:
+        o = comparison.overall
+        out["max_regression"] = [Measure(f"overall {o.metric}", o.shortfall)] + [
+            Measure(f"worse slice {s.rank}: {s.label}", s.rate) for s in comparison.worse]
+    return out
+
+
+def _flip_measure(row) -> Measure:
+    subject = f"{row.mode} flip of {row.attribute}: {row.from_} -> {row.to}"
+    if row.mode == "twins" and row.excess is not None:
+        # twins disagree with a person near the decision boundary whatever the group; only the
+        # excess over twins from the person's own group is attributable to the group
+        return Measure(subject + " (excess over own-group twins)", row.excess)
+    return Measure(subject, row.flip_rate)
+
+
+def judge(measured: Mapping[str, Sequence[Measure] | None], policy: PolicyOptions) -> Verdict:
+    """Judge the measured estimates against ``policy``.
+
+    Parameters
+    ----------
+    measured : mapping
+        Rule name -> measures (from :func:`measure`); a missing or None entry means the analysis
+        that measures the rule was not run, and a set rule is then inconclusive ("not measured").
     policy : PolicyOptions
 
     Returns
@@ -154,57 +242,16 @@ def judge(report: dict, policy: PolicyOptions) -> Verdict:
     Verdict
     """
     rules: list[RuleResult] = []
-    if policy.min_impact_ratio is not None:
-        bound = policy.min_impact_ratio
-        groups = report.get("groups")
-        if groups is None:
-            rules.append(_not_run("min_impact_ratio", bound, "group metrics"))
-        else:
-            for row in groups:
-                if row["group"] == row["reference_group"] or row.get("small"):
-                    continue
-                subject = f"{row['attribute']} = {row['group']} (vs {row['reference_group']})"
-                rules.append(_judge("min_impact_ratio", subject, bound, row["impact_ratio"],
-                                    upper=False))
-    if policy.max_flip_rate is not None:
-        bound = policy.max_flip_rate
-        flips = report.get("flips")
-        applicable = [f for f in flips or () if f.get("flip_rate") is not None]
-        if not applicable:
-            rules.append(_not_run("max_flip_rate", bound, "flip tests"))
-        for row in applicable:
-            subject = f"{row['mode']} flip of {row['attribute']}: {row['from']} -> {row['to']}"
-            measured = row["flip_rate"]
-            if row["mode"] == "twins" and row.get("excess") is not None:
-                # twins disagree with a person near the decision boundary whatever the group; only
-                # the excess over twins from the person's own group is attributable to the group
-                subject += " (excess over own-group twins)"
-                measured = row["excess"]
-            rules.append(_judge("max_flip_rate", subject, bound, measured, upper=True))
-    if policy.max_slice_gap is not None:
-        bound = policy.max_slice_gap
-        slices = report.get("slices")
-        if slices is None:
-            rules.append(_not_run("max_slice_gap", bound, "slice search"))
-        else:
-            lower = slices.get("direction") == "lower"
-            for s in slices["found"]:
-                subject = f"slice {s['rank']}: {s['label']}"
-                gap = _shortfall(s["gap"]) if lower else s["gap"]
-                if lower:
-                    subject += " (shortfall in selection rate)"
-                rules.append(_judge("max_slice_gap", subject, bound, gap, upper=True))
-    if policy.max_regression is not None:
-        bound = policy.max_regression
-        comparison = report.get("comparison")
-        if comparison is None:
-            rules.append(_not_run("max_regression", bound, "model comparison"))
-        else:
-            primary = comparison["overall"]
-            # the shortfall is oriented so larger is worse (fewer selected, for the selection rate)
-            rules.append(_judge("max_regression", f"overall {primary['metric']}", bound,
-                                primary["shortfall"], upper=True))
-            for s in comparison["worse_slices"]:
-                subject = f"worse slice {s['rank']}: {s['label']}"
-                rules.append(_judge("max_regression", subject, bound, s["rate"], upper=True))
+    for name, rule in RULES.items():
+        bound = getattr(policy, name)
+        if bound is None:
+            continue
+        items = measured.get(name)
+        if items is None:
+            rules.append(RuleResult(name, "(not run)", bound, None, "inconclusive",
+                                    f"`{name}` is set but the {rule.section} were not run; "
+                                    "nothing was measured"))
+            continue
+        rules.extend(_judge(name, m.subject, bound, m.estimate, upper=rule.bound == "upper")
+                     for m in items)
     return Verdict(tuple(rules), policy.fail_on_inconclusive)

@@ -90,7 +90,7 @@ def test_max_regression_judges_the_selection_rate_in_its_worse_direction(moved, 
     # selecting 21 points fewer people is a regression (it passed before); 19 points more is not
     # (it failed before). Planted truth: the candidate moves exactly that share of rows.
     from probe.options import PolicyOptions
-    from probe.policy import judge
+    from probe.policy import judge, measure
 
     n = 4000
     rng = np.random.default_rng(7)
@@ -106,7 +106,7 @@ def test_max_regression_judges_the_selection_rate_in_its_worse_direction(moved, 
     result = compare_models(X, None, cand, base, metric="selection", rng=0)
     assert result.overall.difference.value == pytest.approx(moved, abs=1e-12)
     assert result.overall.shortfall.value == pytest.approx(-moved, abs=1e-12)
-    verdict = judge({"comparison": result.to_dict()}, PolicyOptions(max_regression=0.02))
+    verdict = judge(measure(comparison=result), PolicyOptions(max_regression=0.02))
     assert verdict.rules[0].status == status
 
 

@@ -1,0 +1,142 @@
+"""The evidence of one run: everything the analyses read, prepared once.
+
+:class:`Evidence` holds the holdout (never modified), the label, the row weights, each model's
+scores and decisions, the favourable decision, and the slice columns encoded once by the one encoder
+(:func:`probe.encode.encode_columns`). Per-metric outcomes with their base populations and the codes of
+the protected attributes are derived on first use and kept, so no analysis derives them again:
+
+- groups and intersections read :meth:`Evidence.attribute` codes and :meth:`Evidence.decision`;
+- the slice search, the comparison and the flip breakdown read :attr:`Evidence.encoding`;
+- the slice search and the comparison read :meth:`Evidence.outcome`;
+- flip tests reuse the scores already computed (:meth:`Evidence.scores`).
+
+Row weights are a column of the evidence (all ones unless given) so that weighting reaches every
+analysis from here.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any, Mapping
+
+import numpy as np
+import pandas as pd
+
+from .data import Holdout
+from .encode import Encoding, attribute_codes
+from .metrics import as_favorable, favorable_decision, get_metric
+
+__all__ = ["Evidence", "ModelRun"]
+
+
+def _read_only(a: np.ndarray) -> np.ndarray:
+    a = np.asarray(a)
+    a.setflags(write=False)
+    return a
+
+
+@dataclass(frozen=True)
+class ModelRun:
+    """One model scored on the holdout.
+
+    Attributes
+    ----------
+    model : object
+        The loaded :class:`probe.adapters.Model` (None when scores were given directly).
+    scores : ndarray of float64
+        Score of the positive class per row, read-only.
+    decision : ndarray of bool
+        ``scores >= threshold``, read-only.
+    """
+
+    model: Any
+    scores: np.ndarray
+    decision: np.ndarray
+
+    @classmethod
+    def from_scores(cls, model, scores, threshold: float) -> "ModelRun":
+        scores = _read_only(np.asarray(scores, dtype=np.float64))
+        return cls(model, scores, _read_only(scores >= threshold))
+
+
+@dataclass(frozen=True)
+class Evidence:
+    """The prepared table of one run.
+
+    Attributes
+    ----------
+    holdout : Holdout
+        The data with its column roles (``frame`` is never modified).
+    inputs : pandas.DataFrame
+        What the models see: the holdout without the label.
+    runs : mapping of str to ModelRun
+        ``"candidate"`` always; ``"baseline"`` when a comparison is asked for.
+    encoding : Encoding
+        The slice columns, encoded once (label and score columns left out).
+    threshold : float
+    favorable : bool
+        True when the positive decision is the favourable one.
+    weights : ndarray of float64
+        Row weights (all ones unless given), read-only.
+    """
+
+    holdout: Holdout
+    inputs: pd.DataFrame
+    runs: Mapping[str, ModelRun]
+    encoding: Encoding
+    threshold: float = 0.5
+    favorable: bool = True
+    weights: np.ndarray = None
+    _cache: dict = field(default_factory=dict, repr=False, compare=False)
+
+    def __post_init__(self):
+        object.__setattr__(self, "favorable", as_favorable(self.favorable))
+        if self.weights is None:
+            object.__setattr__(self, "weights", _read_only(np.ones(len(self.holdout.frame))))
+
+    @property
+    def frame(self) -> pd.DataFrame:
+        return self.holdout.frame
+
+    @property
+    def y_true(self) -> np.ndarray | None:
+        return self.holdout.y_true
+
+    @property
+    def n_rows(self) -> int:
+        return len(self.holdout.frame)
+
+    def model(self, run: str = "candidate"):
+        return self.runs[run].model
+
+    def scores(self, run: str = "candidate") -> np.ndarray:
+        return self.runs[run].scores
+
+    def decision(self, run: str = "candidate") -> np.ndarray:
+        return self.runs[run].decision
+
+    def favorable_rows(self, run: str = "candidate") -> np.ndarray:
+        """Boolean: the row received the favourable decision."""
+        return self._cached(("favorable", run),
+                            lambda: favorable_decision(self.decision(run), self.favorable))
+
+    def outcome(self, metric: str, run: str = "candidate") -> tuple[np.ndarray, np.ndarray]:
+        """The metric's per-row 0/1 outcome and its base population (see :mod:`probe.metrics`)."""
+        m = get_metric(metric)
+        return self._cached(("outcome", m.name, run), lambda: tuple(
+            _read_only(a) for a in m.outcome(self.y_true, self.decision(run),
+                                             favorable=self.favorable)))
+
+    def attribute(self, column: str) -> tuple[np.ndarray, tuple]:
+        """A protected attribute's exact-level codes (``-1`` missing) and levels, derived once."""
+        return self._cached(("attribute", column), lambda: _attribute(self.frame[column]))
+
+    def _cached(self, key, make):
+        if key not in self._cache:
+            self._cache[key] = make()
+        return self._cache[key]
+
+
+def _attribute(series: pd.Series):
+    codes, levels = attribute_codes(series)
+    return _read_only(codes), levels
