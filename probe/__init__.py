@@ -23,7 +23,6 @@ from .pipeline import run_plan
 from .plan import Plan, load_plan, plan_from_dict
 from .policy import Verdict, judge
 from .proxies import ProxyFindings, find_proxies
-from .scenarios import build_scenario
 from .slices import Slice, SliceFindings, find_slices, metric_outcome, search_slices
 from .stats import Estimate
 
@@ -47,7 +46,6 @@ __all__ = [
     "SliceFindings",
     "TrustError",
     "Verdict",
-    "build_scenario",
     "compare_models",
     "encode_columns",
     "find_proxies",

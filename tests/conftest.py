@@ -16,3 +16,11 @@ def built():
         return cache[name]
 
     return get
+
+
+@pytest.fixture(scope="session")
+def slice_mask():
+    """The scenarios' predicate evaluator (``scenarios/_build/predicates.py``)."""
+    from probe.scenarios import scenario_module
+
+    return scenario_module("_build.predicates").slice_mask

@@ -8,7 +8,6 @@ from statsmodels.stats.contingency_tables import mcnemar
 from probe.adapters import load_model
 from probe.compare import compare_models, paired_difference
 from probe.errors import DataError
-from probe.scenarios import slice_mask
 
 
 def test_paired_difference_against_brute_force_and_statsmodels():
@@ -60,7 +59,7 @@ def test_independent_disagreements_raise_no_false_alarm():
 
 
 @pytest.mark.slow
-def test_compare_finds_the_planted_regression_there_and_only_there(built):
+def test_compare_finds_the_planted_regression_there_and_only_there(built, slice_mask):
     # Planted truth: the lending candidate was trained with a defect confined to one region
     # (scenarios/lending/README.md, truths["defect"]).
     scenario = built("lending")

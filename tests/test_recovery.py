@@ -20,7 +20,7 @@ import pytest
 
 from probe.adapters import load_model
 from probe.plan import load_plan
-from probe.scenarios import SCENARIOS, slice_mask
+from probe.scenarios import SCENARIOS
 from probe.slices import find_slices
 
 pytestmark = pytest.mark.slow
@@ -34,7 +34,9 @@ def _jaccard(a: np.ndarray, b: np.ndarray) -> float:
 
 
 @pytest.mark.parametrize("name", SCENARIOS)
-def test_planted_slices_come_out_in_the_top_three_with_covering_intervals(name, built):
+def test_planted_slices_come_out_in_the_top_three_with_covering_intervals(
+    name, built, slice_mask
+):
     scenario = built(name)
     truths = scenario.truths
     plan = load_plan(scenario.plan_path)

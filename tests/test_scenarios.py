@@ -1,4 +1,5 @@
-"""Tests of the invented demo scenarios and their builder (probe/scenarios.py).
+"""Tests of the invented demo scenarios, their build recipe (scenarios/_build/) and the builder
+(probe/scenarios.py).
 
 The planted truths are checked against independent computations: the models are loaded with
 lightgbm / skops directly (not through probe's adapter), rates are counted with pandas, the
@@ -8,7 +9,6 @@ sklearn.metrics.mutual_info_score.
 
 from __future__ import annotations
 
-import importlib.util
 import json
 import shutil
 import sys
@@ -29,7 +29,8 @@ from probe.scenarios import (
     build_scenario,
     cache_root,
     scenario_dir,
-    slice_mask,
+    scenario_module,
+    scenarios_root,
 )
 
 if sys.version_info >= (3, 11):
@@ -47,14 +48,6 @@ def scenario_cache(tmp_path_factory):
 def built(scenario_cache):
     """Every scenario built once per session into a temporary cache."""
     return {name: build_scenario(name, cache_dir=scenario_cache) for name in SCENARIOS}
-
-
-def _generator(name):
-    path = scenario_dir(name) / "generate.py"
-    spec = importlib.util.spec_from_file_location(f"_test_scenario_{name}", path)
-    module = importlib.util.module_from_spec(spec)
-    spec.loader.exec_module(module)
-    return module
 
 
 def _scores(model_path: Path, frame: pd.DataFrame) -> np.ndarray:
@@ -105,7 +98,7 @@ def holdouts(built):
 
 @pytest.mark.parametrize("name", SCENARIOS)
 def test_generate_is_deterministic_for_a_seed_and_differs_across_seeds(name):
-    generator = _generator(name)
+    generator = scenario_module(f"{name}.generate")
     first = generator.generate(3_000, seed=7)
     pd.testing.assert_frame_equal(first, generator.generate(3_000, seed=7))
     other = generator.generate(3_000, seed=8)
@@ -142,7 +135,9 @@ def test_exactly_one_scenario_uses_a_protected_attribute_as_input(built):
 
 
 @pytest.mark.parametrize("name", SCENARIOS)
-def test_planted_slice_rate_on_the_holdout_matches_its_true_rate(name, built, holdouts):
+def test_planted_slice_rate_on_the_holdout_matches_its_true_rate(
+    name, built, holdouts, slice_mask
+):
     b, frame = built[name], holdouts[name]
     y = (frame[b.truths["label"]] == b.truths["positive"]).to_numpy()
     decision = _scores(b.model_path, frame) >= b.truths["build"]["threshold"]
@@ -177,7 +172,7 @@ def test_planted_proxy_has_the_highest_mutual_information(name, built, holdouts)
 
 
 @pytest.mark.parametrize("name", SCENARIOS)
-def test_defect_candidate_is_worse_in_the_defect_slice_only(name, built, holdouts):
+def test_defect_candidate_is_worse_in_the_defect_slice_only(name, built, holdouts, slice_mask):
     b, frame = built[name], holdouts[name]
     y = (frame[b.truths["label"]] == b.truths["positive"]).to_numpy()
     production = _scores(b.baseline_path, frame) >= 0.5
@@ -250,15 +245,30 @@ def test_second_build_is_a_cache_hit_and_force_rebuilds(built, scenario_cache):
     assert not [s for s in siblings if s.startswith(".")]  # no staging folder left behind
 
 
-def test_build_key_changes_with_the_sources_and_the_seed(tmp_path):
-    source = tmp_path / "lending"
-    shutil.copytree(scenario_dir("lending"), source, ignore=shutil.ignore_patterns("__pycache__"))
-    key = _build_key("lending", source, 0)
-    assert _build_key("lending", source, 0) == key
-    assert _build_key("lending", source, 1) != key
-    with (source / "generate.py").open("a", encoding="utf-8") as handle:
+@pytest.mark.parametrize("changed", ["lending/generate.py", "_build/truths.py", "_build/training.py"])
+def test_build_key_changes_with_the_sources_and_the_seed(tmp_path, changed):
+    root = tmp_path / "scenarios"
+    shutil.copytree(scenarios_root(), root, ignore=shutil.ignore_patterns("__pycache__"))
+    key = _build_key("lending", root, 0)
+    assert _build_key("lending", root, 0) == key
+    assert _build_key("lending", root, 1) != key
+    other = _build_key("hiring", root, 0)
+    with (root / "claims" / "generate.py").open("a", encoding="utf-8") as handle:
         handle.write("\n# changed\n")
-    assert _build_key("lending", source, 0) != key
+    assert _build_key("lending", root, 0) == key  # another scenario's file is not a source
+    with (root / changed).open("a", encoding="utf-8") as handle:
+        handle.write("\n# changed\n")
+    assert _build_key("lending", root, 0) != key
+    assert (_build_key("hiring", root, 0) != other) == changed.startswith("_build/")
+
+
+def test_scenario_module_imports_the_scenarios_folder_as_one_package():
+    generator = scenario_module("lending.generate")
+    predicates = scenario_module("_build.predicates")
+    assert Path(generator.__file__) == scenario_dir("lending") / "generate.py"
+    assert Path(predicates.__file__) == scenarios_root() / "_build" / "predicates.py"
+    assert generator.slice_mask is predicates.slice_mask  # one shared copy, not one per loader
+    assert scenario_module("lending.generate") is generator
 
 
 def test_unknown_scenario_is_a_data_error_listing_the_names(tmp_path):
@@ -279,7 +289,7 @@ def test_cache_root_follows_the_environment(monkeypatch, tmp_path):
     assert cache_root() == tmp_path / ".cache" / "probe"
 
 
-def test_slice_mask_agrees_with_direct_pandas_filters():
+def test_slice_mask_agrees_with_direct_pandas_filters(slice_mask):
     frame = pd.DataFrame(
         {
             "a": ["x", "y", None, "x", "z"],

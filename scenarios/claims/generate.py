@@ -7,8 +7,9 @@ README.md in this folder for the story and the planted truths with their measure
 The positive class is ``straightforward == 1``: the claim turned out to need no adjustment, and
 the model's positive decision (fast-track, pay without investigation) is the favourable one.
 
-The module is loaded by file path by ``probe.scenarios.build_scenario``; it needs numpy,
-pandas, lightgbm and a few helpers of ``probe.scenarios``. Its interface:
+The module is imported by ``probe.scenarios.scenario_module("claims.generate")``, inside the
+scenarios folder, so it reaches the shared helpers of ``../_build/`` by relative import; it needs
+numpy, pandas and lightgbm. Its interface:
 
 - ``generate(n_rows, *, seed)`` draws a table;
 - ``train(frame, *, seed, defect)`` fits the LightGBM model and returns ``(booster, save)`` where
@@ -22,7 +23,8 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from probe.scenarios import categorical_design, slice_mask, train_lightgbm
+from .._build.predicates import slice_mask
+from .._build.training import categorical_design, train_lightgbm
 
 MODEL_FILE = "model.txt"
 CANDIDATE_FILE = "candidate.txt"

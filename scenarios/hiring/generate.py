@@ -8,8 +8,9 @@ This is the scenario with *direct dependence*: ``sex`` is a model input and the 
 screening decisions used as labels penalised women, so the model's decisions move when ``sex`` is
 flipped.
 
-The module is loaded by file path by ``probe.scenarios.build_scenario``; it needs numpy,
-pandas, scikit-learn, skops and ``probe.scenarios.slice_mask``. Its interface:
+The module is imported by ``probe.scenarios.scenario_module("hiring.generate")``, inside the
+scenarios folder, so it reaches the shared helpers of ``../_build/`` by relative import; it needs
+numpy, pandas, scikit-learn and skops. Its interface:
 
 - ``generate(n_rows, *, seed)`` draws a table;
 - ``train(frame, *, seed, defect)`` fits the scikit-learn pipeline and returns
@@ -23,7 +24,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from probe.scenarios import slice_mask
+from .._build.predicates import slice_mask
 
 MODEL_FILE = "model.skops"
 CANDIDATE_FILE = "candidate.skops"

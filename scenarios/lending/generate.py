@@ -4,8 +4,9 @@ Every name here (the lender, the districts, the groups) is invented; the data ar
 the effects are planted on purpose so that probe's analyses can be checked against them. See
 README.md in this folder for the story and the planted truths with their measured rates.
 
-The module is loaded by file path by ``probe.scenarios.build_scenario``; it needs numpy,
-pandas, lightgbm and a few helpers of ``probe.scenarios``. Its interface:
+The module is imported by ``probe.scenarios.scenario_module("lending.generate")``, inside the
+scenarios folder, so it reaches the shared helpers of ``../_build/`` by relative import; it needs
+numpy, pandas and lightgbm. Its interface:
 
 - ``generate(n_rows, *, seed)`` draws a table (the holdout, a training draw, or a large draw used
   to measure the true rates);
@@ -20,7 +21,8 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from probe.scenarios import categorical_design, slice_mask, train_lightgbm
+from .._build.predicates import slice_mask
+from .._build.training import categorical_design, train_lightgbm
 
 MODEL_FILE = "model.txt"
 CANDIDATE_FILE = "candidate.txt"
