@@ -15,6 +15,7 @@ __all__ = ["load_column"]
 
 
 def load_column(text: str, opts: Options) -> Model:
+    """A Model that reads its scores from the data column ``column:NAME`` names."""
     name = text[len("column:"):].strip()
     if not name:
         raise ModelError(f"model spec `{text}` names no column (column:NAME)")

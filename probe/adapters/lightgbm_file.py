@@ -30,6 +30,7 @@ _PROBABILITY_OBJECTIVES = ("binary", "cross_entropy", "xentropy")
 
 
 def load_lightgbm(data: bytes, text: str, opts: Options) -> Model:
+    """A Model from the bytes of a LightGBM model file."""
     import lightgbm
 
     sha = hashlib.sha256(data).hexdigest()
@@ -37,9 +38,7 @@ def load_lightgbm(data: bytes, text: str, opts: Options) -> Model:
         model_str = data.decode("utf-8")
         booster = lightgbm.Booster(model_str=model_str)
     except Exception as exc:
-        raise ModelError(
-            f"cannot load LightGBM model file `{text}`: {cause(exc)}"
-        ) from exc
+        raise ModelError(f"cannot load LightGBM model file `{text}`: {cause(exc)}") from exc
     header = _lightgbm_header(model_str)
     objective = header.get("objective", "")
     num_class = int(header.get("num_class", "1") or 1)

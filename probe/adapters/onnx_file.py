@@ -26,6 +26,7 @@ __all__ = ["load_onnx"]
 
 
 def load_onnx(data: bytes, text: str, opts: Options) -> Model:
+    """A Model from the bytes of an ONNX file, run by onnxruntime on the CPU."""
     try:
         import onnxruntime as ort
     except ImportError as exc:
@@ -36,9 +37,7 @@ def load_onnx(data: bytes, text: str, opts: Options) -> Model:
     try:
         session = ort.InferenceSession(data, providers=["CPUExecutionProvider"])
     except Exception as exc:
-        raise ModelError(
-            f"cannot load ONNX model file `{text}`: {cause(exc)}"
-        ) from exc
+        raise ModelError(f"cannot load ONNX model file `{text}`: {cause(exc)}") from exc
     inputs = session.get_inputs()
     outputs = session.get_outputs()
     prob_out = _onnx_probability_output(outputs, text)

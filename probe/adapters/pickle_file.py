@@ -21,6 +21,7 @@ __all__ = ["load_pickle"]
 
 
 def load_pickle(data: bytes, text: str, opts: Options) -> Model:
+    """A Model from the bytes of a pickle or joblib file (the caller checked ``trust_pickle``)."""
     import joblib
 
     sha = hashlib.sha256(data).hexdigest()
@@ -31,7 +32,5 @@ def load_pickle(data: bytes, text: str, opts: Options) -> Model:
             f"loading model file `{text}` needs the module `{exc.name}`, which is not installed"
         ) from exc
     except Exception as exc:
-        raise ModelError(
-            f"cannot load model file `{text}`: {cause(exc)}"
-        ) from exc
+        raise ModelError(f"cannot load model file `{text}`: {cause(exc)}") from exc
     return wrap_python(obj, spec=text, kind="pickle", sha256=sha, opts=opts, details={})

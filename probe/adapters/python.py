@@ -39,6 +39,7 @@ __all__ = ["load_python", "wrap_python"]
 
 
 def load_python(text: str, opts: Options) -> Model:
+    """A Model from ``py:MODULE:ATTR``: a module file or a dotted module, then its attribute."""
     rest = text[3:].strip()
     module_part, sep, attr = rest.rpartition(":")
     if not sep or not module_part or not attr:

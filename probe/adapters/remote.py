@@ -1,12 +1,14 @@
 """Kinds ``command`` and ``http``: models in another process, scored once per batch.
 
-``cmd:COMMAND`` runs the command (split like a shell would, in ``base_dir``) with the batch as CSV
-with a header on stdin and reads one score per line from stdout. ``http(s)://HOST:PORT/PATH``
-POSTs ``{"records": [...]}`` and reads a JSON list of numbers or ``{"scores": [...]}``.
+``cmd:COMMAND`` splits the command with :func:`shlex.split` (no shell), runs it in ``base_dir``
+with the batch as CSV with a header on stdin, and reads one score per line from stdout.
+``http(s)://HOST:PORT/PATH`` POSTs ``{"records": [...]}`` and reads a JSON list of numbers or
+``{"scores": [...]}``.
 
 These are the only kinds that honour ``timeout`` (seconds per batch): a command still running
-after it is killed; a request gives up when the endpoint stays silent that long (connecting or
-between reads). Either way the batch fails with a :class:`~probe.errors.ModelError`.
+after ``timeout`` seconds is killed; a request gives up when the endpoint stays silent that long
+(connecting or between reads). Either way the batch fails with a
+:class:`~probe.errors.ModelError`.
 """
 
 from __future__ import annotations
@@ -34,6 +36,7 @@ __all__ = ["load_command", "load_http"]
 
 
 def load_command(text: str, opts: Options) -> Model:
+    """A Model that runs ``cmd:COMMAND`` once per batch, within ``opts.timeout`` seconds."""
     command = text[4:].strip()
     try:
         argv = shlex.split(command)
@@ -93,6 +96,7 @@ def load_command(text: str, opts: Options) -> Model:
 
 
 def load_http(text: str, opts: Options) -> Model:
+    """A Model that POSTs each batch to the URL, giving up after ``opts.timeout`` s of silence."""
     url = text
     timeout = opts.timeout
 

@@ -19,15 +19,14 @@ __all__ = ["load_skops"]
 
 
 def load_skops(data: bytes, text: str, opts: Options) -> Model:
+    """A Model from the bytes of a skops file, once every non-default type is trusted."""
     import skops.io as sio
 
     sha = hashlib.sha256(data).hexdigest()
     try:
         untrusted = list(sio.get_untrusted_types(data=data))
     except Exception as exc:
-        raise ModelError(
-            f"cannot read model file `{text}` as skops: {cause(exc)}"
-        ) from exc
+        raise ModelError(f"cannot read model file `{text}` as skops: {cause(exc)}") from exc
     refused = [t for t in untrusted if t not in opts.trusted_types]
     if refused:
         listed = ", ".join(f'"{t}"' for t in refused)
@@ -40,9 +39,7 @@ def load_skops(data: bytes, text: str, opts: Options) -> Model:
     try:
         obj = sio.loads(data, trusted=untrusted)
     except Exception as exc:
-        raise ModelError(
-            f"cannot load model file `{text}`: {cause(exc)}"
-        ) from exc
+        raise ModelError(f"cannot load model file `{text}`: {cause(exc)}") from exc
     return wrap_python(
         obj, spec=text, kind="skops", sha256=sha, opts=opts,
         details={"trusted_types": sorted(untrusted)},
