@@ -1,0 +1,36 @@
+"""Kind ``pickle``: ``.joblib``, ``.pkl`` and ``.pickle`` files, unpickled with joblib.
+
+Unpickling executes whatever code the file names, so :func:`~probe.adapters.load_model` refuses
+these files unless ``trust_pickle`` is set. The bytes are read once: the recorded SHA-256 is of the
+bytes that were loaded.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import io
+
+from probe.errors import ModelError
+
+from .messages import cause
+from .model import Model
+from .options import Options
+from .python import wrap_python
+
+__all__ = ["load_pickle"]
+
+
+def load_pickle(data: bytes, text: str, opts: Options) -> Model:
+    """A Model from the bytes of a pickle or joblib file (the caller checked ``trust_pickle``)."""
+    import joblib
+
+    sha = hashlib.sha256(data).hexdigest()
+    try:
+        obj = joblib.load(io.BytesIO(data))
+    except ModuleNotFoundError as exc:
+        raise ModelError(
+            f"loading model file `{text}` needs the module `{exc.name}`, which is not installed"
+        ) from exc
+    except Exception as exc:
+        raise ModelError(f"cannot load model file `{text}`: {cause(exc)}") from exc
+    return wrap_python(obj, spec=text, kind="pickle", sha256=sha, opts=opts, details={})
