@@ -129,9 +129,16 @@ def rule_summary(rule: Mapping) -> str:
 
 
 def verdict_word(verdict: Mapping | None) -> str:
-    """``PASSED``, ``FAILED``, ``INCONCLUSIVE`` or ``NO POLICY``."""
+    """``PASSED``, ``FAILED``, ``INCONCLUSIVE`` or ``NO POLICY``, from ``status`` (else ``passed``).
+
+    The status is the verdict as judged: a policy with inconclusive rules that are not counted as
+    failures exits 0 yet is ``INCONCLUSIVE``, not ``PASSED``.
+    """
     if not verdict or not verdict.get("rules"):
         return "NO POLICY"
+    word = {"pass": "PASSED", "fail": "FAILED", "inconclusive": "INCONCLUSIVE"}
+    if verdict.get("status") in word:
+        return word[verdict["status"]]
     passed = verdict.get("passed")
     return "PASSED" if passed is True else "FAILED" if passed is False else "INCONCLUSIVE"
 
