@@ -16,7 +16,7 @@ import xml.etree.ElementTree as ET
 from collections.abc import Mapping
 from typing import Any
 
-from .markdown import caution_of, rule_status, rule_summary, rule_title
+from .fmt import caution_of, rule_status, rule_summary, rule_title
 
 __all__ = ["render_junit"]
 

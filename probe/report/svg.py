@@ -2,12 +2,9 @@
 
 Each picture is an interval plot: one row per item, a dot at the estimate and a bar across its
 interval, on a shared horizontal axis with ticks, an axis label and optional vertical reference lines.
-The three pictures of the HTML report are thin wrappers over it:
-
-- :func:`slice_forest` — the top slices' rates against the overall rate;
-- :func:`group_rates` — one attribute's groups' selection rates with the four-fifths line
-  (0.8 × the highest group's rate);
-- :func:`flip_rates` — flip rates per attribute, mode and direction.
+What is plotted and every word on the picture come from a :class:`~probe.report.model.Plot` of the
+report model (groups' selection rates with the four-fifths line at 0.8 × the reference group's rate,
+the top slices against the overall rate, the flip rates); this module only draws it.
 
 Every picture has ``role="img"``, a ``<title>`` and a ``<desc>`` (referenced by ``aria-labelledby``),
 and each row its own ``<title>`` with the exact numbers, so screen readers and hover both get them.
@@ -17,13 +14,12 @@ All text is XML-escaped. The output is meant to be inlined in an HTML5 document.
 from __future__ import annotations
 
 import math
-from collections.abc import Mapping, Sequence
-from dataclasses import dataclass
 from html import escape
 
-from .markdown import fmt_est, metric_name, slice_label
+from .fmt import is_number as _ok
+from .model import Plot
 
-__all__ = ["Line", "Row", "flip_rates", "group_rates", "interval_plot", "slice_forest"]
+__all__ = ["render_plot"]
 
 _WIDTH = 760
 _ROW_H = 24
@@ -32,31 +28,6 @@ _BOTTOM = 52
 _RIGHT = 24
 _CHAR_W = 7.2  # average advance of a 12 px sans-serif glyph, to size the label column
 _MAX_LABEL = 42
-
-
-@dataclass(frozen=True)
-class Row:
-    """One plotted item: a label and an estimate (``value``, ``low``, ``high`` may be None)."""
-
-    label: str
-    value: float | None
-    low: float | None = None
-    high: float | None = None
-    note: str = ""  # the exact numbers, for the row's tooltip / accessible name
-    flagged: bool = False  # drawn in the warning colour
-
-
-@dataclass(frozen=True)
-class Line:
-    """A vertical reference line at ``x`` with a short legend text."""
-
-    x: float
-    label: str
-    dashed: bool = True
-
-
-def _ok(x) -> bool:
-    return isinstance(x, (int, float)) and not isinstance(x, bool) and math.isfinite(x)
 
 
 def _nice_step(span: float, target: int = 5) -> float:
@@ -100,41 +71,25 @@ def _short(label: str) -> str:
     return label if len(label) <= _MAX_LABEL else label[: _MAX_LABEL - 1] + "…"
 
 
-def interval_plot(
-    rows: Sequence[Row],
-    *,
-    title: str,
-    x_label: str,
-    uid: str,
-    description: str = "",
-    lines: Sequence[Line] = (),
-    clamp: tuple[float, float] | None = None,
-    include_zero: bool = False,
-) -> str:
-    """An accessible SVG plot of estimates with intervals, one row each.
+def render_plot(plot: Plot, *, uid: str) -> str:
+    """An accessible SVG interval plot of ``plot``'s rows, one row each.
 
     Parameters
     ----------
-    rows : sequence of Row
-        The items, top to bottom. A row without a finite value is listed with ``n/a``.
-    title, x_label : str
-        The picture's title (also its accessible name) and the horizontal axis label.
+    plot : Plot
+        Rows top to bottom (a row without a finite value is listed with ``n/a``), reference lines
+        (each with a legend entry), the title (also the accessible name), axis label and description,
+        the axis bounds to keep within (``clamp``) and whether the axis starts at zero.
     uid : str
         A prefix unique within the page, for the ``id`` attributes.
-    description : str, default=""
-        A longer text description (``<desc>``).
-    lines : sequence of Line, default=()
-        Vertical reference lines, each with a legend entry.
-    clamp : (float, float) or None, default=None
-        Keep the axis within these bounds (``(0, 1)`` for rates).
-    include_zero : bool, default=False
-        Start the axis at zero, so lengths compare as ratios.
 
     Returns
     -------
     str
         One ``<svg>`` element.
     """
+    rows, lines, title, x_label = plot.rows, plot.lines, plot.title, plot.x_label
+    description, clamp, include_zero = plot.description, plot.clamp, plot.include_zero
     lo, hi, step = _domain(rows, lines, clamp, include_zero)
     labels = [_short(r.label) for r in rows]
     left = int(min(max((len(s) for s in labels), default=4) * _CHAR_W + 20, 320))
@@ -229,99 +184,3 @@ def interval_plot(
         out.append("".join(parts))
     out.append("</svg>")
     return "\n".join(out)
-
-
-def _v(est: Mapping | None, key: str):
-    return (est or {}).get(key)
-
-
-def slice_forest(slices: Mapping, *, uid: str = "slices", top: int = 10) -> str:
-    """Forest plot of the top slices' rates with intervals, and the overall rate as a line."""
-    metric = metric_name(slices.get("metric"))
-    overall = slices.get("overall") or {}
-    rows = [
-        Row(
-            label=f"{f.get('rank', i)}. {slice_label(f)}",
-            value=_v(f.get("rate"), "value"),
-            low=_v(f.get("rate"), "low"),
-            high=_v(f.get("rate"), "high"),
-            note=f"rate {fmt_est(f.get('rate'))}, {f.get('rows')} rows",
-        )
-        for i, f in enumerate((slices.get("found") or [])[:top], 1)
-    ]
-    lines = (
-        [Line(overall["value"], f"overall {metric} {fmt_est(overall)}")]
-        if _ok(overall.get("value"))
-        else []
-    )
-    return interval_plot(
-        rows,
-        title=f"Top slices by {metric}",
-        x_label=f"{metric} (dot) with its interval (bar)",
-        uid=uid,
-        description=f"Each slice's {metric} with its interval; the dashed line is the overall rate.",
-        lines=lines,
-        clamp=(0.0, 1.0),
-    )
-
-
-def group_rates(attribute: str, groups: Sequence[Mapping], *, uid: str) -> str:
-    """One attribute's selection rates with intervals and the four-fifths line."""
-    rows = [
-        Row(
-            label=str(g.get("group")),
-            value=_v(g.get("selection_rate"), "value"),
-            low=_v(g.get("selection_rate"), "low"),
-            high=_v(g.get("selection_rate"), "high"),
-            note=f"selection rate {fmt_est(g.get('selection_rate'))}, impact ratio "
-            f"{fmt_est(g.get('impact_ratio'))}",
-            flagged=bool(g.get("four_fifths_flag")),
-        )
-        for g in groups
-    ]
-    rates = [r.value for r in rows if _ok(r.value)]
-    lines = []
-    if rates:
-        top = max(rates)
-        lines = [
-            Line(top, f"highest rate {top:.3f}", dashed=False),
-            Line(0.8 * top, f"four-fifths line {0.8 * top:.3f}"),
-        ]
-    return interval_plot(
-        rows,
-        title=f"Selection rate by {attribute}",
-        x_label="selection rate (dot) with its interval (bar); squares: impact ratio below 0.8",
-        uid=uid,
-        description=(
-            f"Selection rate of each {attribute} group with its interval; the solid line is the "
-            "highest group's rate and the dashed line 0.8 times it (the four-fifths rule of thumb)."
-        ),
-        lines=lines,
-        clamp=(0.0, 1.0),
-        include_zero=True,
-    )
-
-
-def flip_rates(flips: Sequence[Mapping], *, uid: str = "flips") -> str:
-    """Flip rates with intervals, one row per attribute, mode and direction."""
-    rows = [
-        Row(
-            label=f"{f.get('attribute')} {f.get('from')} → {f.get('to')} ({f.get('mode')})",
-            value=None if f.get("impossible") else _v(f.get("flip_rate"), "value"),
-            low=_v(f.get("flip_rate"), "low"),
-            high=_v(f.get("flip_rate"), "high"),
-            note="not possible"
-            if f.get("impossible")
-            else f"flip rate {fmt_est(f.get('flip_rate'))}",
-        )
-        for f in flips
-    ]
-    return interval_plot(
-        rows,
-        title="Decisions that flip under a counterfactual change",
-        x_label="flip rate (dot) with its interval (bar)",
-        uid=uid,
-        description="The share of decisions that change, per attribute, direction and mode.",
-        lines=[Line(0.0, "no flips", dashed=False)],
-        clamp=(0.0, 1.0),
-    )
