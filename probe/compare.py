@@ -16,7 +16,9 @@ import numpy as np
 import pandas as pd
 
 from .errors import DataError, PlanError
-from .slices import METRICS, metric_outcome, search_slices
+from .metrics import METRICS, metric_outcome
+from .options import SliceOptions
+from .slices import search_slices
 from .stats import Estimate, mcnemar_pvalue, wilson
 
 __all__ = ["MetricComparison", "Comparison", "compare_models", "paired_difference"]
@@ -161,12 +163,7 @@ def compare_models(
     *,
     metric: str = "error",
     favorable: bool = True,
-    depth: int = 3,
-    min_rows: int | None = None,
-    bins: int = 5,
-    columns=None,
-    exclude=(),
-    top: int = 10,
+    options: SliceOptions | None = None,
     confidence_level: float = 0.95,
     n_resamples: int = 4000,
     rng=0,
@@ -184,8 +181,9 @@ def compare_models(
     metric : {"error", "fpr", "fnr", "selection"}, default="error"
         The metric the worse-slice search runs on (all four are compared overall).
     favorable : bool, default=True
-    depth, min_rows, bins, columns, exclude, top
-        Passed to the slice search.
+    options : SliceOptions, optional
+        The worse-slice search's options (its ``metric`` is not used: the search runs on ``metric``'s
+        paired difference).
     confidence_level : float, default=0.95
     n_resamples : int, default=4000
         Paired bootstrap resamples (of the four cell counts).
@@ -232,10 +230,8 @@ def compare_models(
     if metric in _WORSE_IS_LOWER:
         worse = -worse
     found = search_slices(
-        X, worse, base=mask, depth=depth, min_rows=min_rows, bins=bins, columns=columns,
-        exclude=exclude,
-        top=top, confidence_level=confidence_level, rng=search_seed,
-        metric=f"paired {metric} difference (candidate worse > 0)",
+        X, worse, base=mask, options=options, confidence_level=confidence_level, rng=search_seed,
+        label=f"paired {metric} difference (candidate worse > 0)",
     )
     agreement = float(np.mean(outcomes["selection"][0] == outcomes["selection"][1]))
     return Comparison(metric, tuple(results), found, agreement, confidence_level)

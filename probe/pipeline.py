@@ -27,6 +27,7 @@ from .data import Holdout, close_names, prepare_holdout, read_table, sha256_file
 from .errors import DataError
 from .flips import flip_test
 from .groups import group_metrics
+from .options import SliceOptions
 from .plan import Plan
 from .policy import judge
 from .proxies import find_proxies
@@ -110,6 +111,14 @@ def _slice_exclude(plan: Plan, holdout: Holdout, model) -> list[str]:
     return list(dict.fromkeys(exclude))
 
 
+def _compare_slice_options(plan: Plan, holdout: Holdout, model) -> SliceOptions:
+    """The worse-slice search's options: the plan's depth, rows, bins and columns (the rest at their
+    defaults)."""
+    s = plan.slices or SliceOptions()
+    return SliceOptions(depth=s.depth, min_rows=s.min_rows, bins=s.bins, columns=s.columns,
+                        exclude=tuple(_slice_exclude(plan, holdout, model)))
+
+
 def run_plan(plan: Plan, *, command: str | None = None, progress: Progress | None = None) -> dict:
     """Run everything ``plan`` asks for and return the report dict (``report.json``'s content).
 
@@ -159,10 +168,8 @@ def run_plan(plan: Plan, *, command: str | None = None, progress: Progress | Non
         s = plan.slices
         with clock.step("slices"):
             found = find_slices(
-                frame, holdout.y_true, decision, metric=s.metric, favorable=favorable,
-                depth=s.depth, min_rows=s.min_rows, columns=s.columns,
-                exclude=_slice_exclude(plan, holdout, model), bins=s.bins, top=s.top,
-                split=s.split, confidence_level=cl, interval=s.interval, rng=seed,
+                frame, holdout.y_true, decision, options=s, favorable=favorable,
+                exclude=tuple(_slice_exclude(plan, holdout, model)), confidence_level=cl, rng=seed,
             )
         slices = found.to_dict()
 
@@ -207,11 +214,8 @@ def run_plan(plan: Plan, *, command: str | None = None, progress: Progress | Non
             result = compare_models(
                 frame, holdout.y_true, decision, base_scores >= plan.model.threshold,
                 metric=plan.compare.metric, favorable=favorable,
-                exclude=_slice_exclude(plan, holdout, model), confidence_level=cl, rng=seed,
-                depth=plan.slices.depth if plan.slices else 3,
-                min_rows=plan.slices.min_rows if plan.slices else None,
-                bins=plan.slices.bins if plan.slices else 5,
-                columns=plan.slices.columns if plan.slices else None,
+                options=_compare_slice_options(plan, holdout, model), confidence_level=cl,
+                rng=seed,
             )
             comparison = {"baseline": baseline.describe(), **result.to_dict()}
 
