@@ -118,7 +118,8 @@ class SliceCounter:
         N = len(self.y)
         buf = np.empty(min(N, _CHUNK_ROWS), dtype=dtype)
         values = () if self.binary else (self.y, self.y_sq, self.y_pos)
-        hist = [np.zeros(cells) for _ in range(1 + len(values))]
+        hist = [np.zeros(cells, dtype=np.int64 if i == 0 else float)
+                for i in range(1 + len(values))]
         for start in range(0, N, _CHUNK_ROWS):
             rows = slice(start, min(start + _CHUNK_ROWS, N))
             key = buf[: rows.stop - start]
@@ -129,9 +130,9 @@ class SliceCounter:
             if self.binary:
                 key *= 2
                 key += self.y[rows]
-            hist[0] += weighted_bincount(key, cells)
+            weighted_bincount(key, cells, out=hist[0])
             for h, v in zip(hist[1:], values):
-                h += weighted_bincount(key, cells, v[rows])
+                weighted_bincount(key, cells, v[rows], out=h)
         return hist[0] if self.binary else tuple(hist)
 
     def _marginal(self, hist, block, cols):
@@ -142,7 +143,7 @@ class SliceCounter:
             if axes:
                 h = h.sum(axis=axes)
             h = h.reshape(-1, 2)
-            return h.sum(axis=1), h[:, 1].copy()
+            return h.sum(axis=1).astype(float), h[:, 1].astype(float)
         parts = []
         for arr in hist:
             h = arr.reshape(shape)
