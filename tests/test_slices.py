@@ -113,9 +113,9 @@ def test_pruned_search_equals_exhaustive_enumeration(seed):
     assert res.tested == n_supported  # no split: nothing pruned, every supported slice counted
     # the pruned lattice (as used with a split) finds the same top scores while pruning
     enc = encode_columns(frame)
-    ranked, _, not_pruned = Lattice([c.codes for c in enc.columns], [c.n_levels for c in enc.columns],
-                                    outcome.astype(np.uint8), True, depth=3, min_rows=30, pool=8,
-                                    confidence_level=0.95).run()
+    ranked, _, not_pruned = Lattice([c.codes for c in enc.columns],
+                                    [c.n_levels for c in enc.columns], outcome.astype(np.uint8),
+                                    True, depth=3, min_rows=30, pool=8, confidence_level=0.95).run()
     top = sorted(eligible.values(), reverse=True)[:8]
     np.testing.assert_allclose([r[0] for r in ranked], top, rtol=1e-9, atol=1e-12)
     assert not_pruned < 0.8 * n_supported  # the bound did prune
@@ -437,3 +437,26 @@ def test_bootstrap_of_a_slice_with_every_event_keeps_a_real_interval():
     assert top.label == "a = p and b = u" and top.rate.value == 1.0
     low, high = proportion_confint(top.rows, top.rows, method="wilson")  # reference: statsmodels
     assert top.rate.low == pytest.approx(low, abs=1e-12) and top.rate.low < 1.0
+
+
+def test_a_shared_encoding_and_options_give_the_same_findings_as_keywords():
+    # equivalence: the run's Encoding passed in (not re-encoded) and options given as a SliceOptions
+    # give exactly what the keyword call that encodes X itself gives
+    from probe.options import SliceOptions
+
+    frame = _random_frame(3, n=3000)
+    r = np.random.default_rng(3)
+    y = r.random(3000) < 0.5
+    pred = np.where(r.random(3000) < np.where(frame.a == "q", 0.3, 0.1), ~y, y)
+    plain = find_slices(frame, y, pred, depth=2, bins=4, rng=2)
+    opts = SliceOptions(depth=2, bins=4)
+    enc = encode_columns(frame, bins=4)
+    shared = find_slices(frame, y, pred, options=opts, encoding=enc, rng=2)
+    assert shared.to_dict() == plain.to_dict()
+    # keywords replace the options' fields
+    again = find_slices(frame, y, pred, options=SliceOptions(depth=1, bins=4), depth=2, rng=2)
+    assert again.to_dict() == plain.to_dict()
+    only_a = find_slices(frame, y, pred, options=opts, encoding=enc, columns=["a"], rng=2)
+    assert only_a.settings["columns"] == ["a"]
+    with pytest.raises(DataError, match="`encoding` has 3000 rows but `X` has 100"):
+        find_slices(frame.head(100), y[:100], pred[:100], encoding=enc)

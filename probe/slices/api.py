@@ -153,7 +153,8 @@ def search_slices(X: pd.DataFrame, outcome, *, base=None, direction: str = "high
 
 def _search(X, outcome, base, label, direction, opts, confidence_level, rng, encoding, similarity,
             strata) -> SliceFindings:
-    inputs = _search_iv(X, outcome, base, direction, opts, confidence_level, similarity, strata, rng)
+    inputs = _search_iv(X, outcome, base, direction, opts, confidence_level, similarity, strata,
+                        rng)
     return run(_encoding(X, opts, encoding), label, inputs)
 
 
@@ -187,7 +188,7 @@ def _column(X, name, what):
 
 
 def _encoding(X, opts: SliceOptions, encoding) -> Encoding:
-    """The encoded slice columns: ``encoding`` restricted to the options' columns, else ``X`` encoded."""
+    """The slice columns: ``encoding`` restricted to the options' columns, else ``X`` encoded."""
     if encoding is None:
         enc = encode_columns(X, columns=opts.columns, exclude=opts.exclude, bins=opts.bins)
     else:

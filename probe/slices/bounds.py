@@ -89,8 +89,8 @@ class Scorer:
             return x / n - (self.total - x) / (self.N - n)
 
     def within_parent(self, st, parent_st, pk):
-        """Lower limit of (slice rate - rate of the parent's other rows), per slice: Newcombe for 0/1
-        outcomes, Wald from the sums otherwise; -inf where the parent has no other rows.
+        """Lower limit of (slice rate - rate of the parent's other rows), per slice: Newcombe for
+        0/1 outcomes, Wald from the sums otherwise; -inf where the parent has no other rows.
 
         ``pk`` maps each slice to its parent's key."""
         n, x = st[0].astype(float), st[1].astype(float)
@@ -99,7 +99,8 @@ class Scorer:
         with np.errstate(invalid="ignore", divide="ignore"):
             if self.binary:
                 low, _ = newcombe_interval(x, np.maximum(n, 1), np.clip(rx, 0, None),
-                                           np.maximum(rn, 1), confidence_level=self.confidence_level)
+                                           np.maximum(rn, 1),
+                                           confidence_level=self.confidence_level)
             else:
                 sq, rsq = st[2], parent_st[2][pk] - st[2]
                 m1, m2 = x / n, rx / rn
@@ -116,11 +117,11 @@ class Scorer:
     def _binary_bound(self, x, n):
         """An upper bound on the score of any refinement (>= ``min_rows`` rows) of a slice (n, x).
 
-        Newcombe's lower limit ``d - sqrt((p1 - l1)² + (u2 - p2)²)`` is at most ``l1 - p2``. Over the
-        refinements (n' in [min_rows, n], x' <= min(x, n')), the Wilson limit ``l1(x', n')`` grows
-        with ``x'`` and, for fixed ``x'``, falls with ``n'``; for a pure slice (x' = n') it grows with
-        ``n'``. The rest's rate ``(X - x') / (N - n')`` behaves the opposite way in each case, so both
-        terms are best at ``n' = clip(x, min_rows, n)``, ``x' = min(x, n')``.
+        Newcombe's lower limit ``d - sqrt((p1 - l1)² + (u2 - p2)²)`` is at most ``l1 - p2``. Over
+        the refinements (n' in [min_rows, n], x' <= min(x, n')), the Wilson limit ``l1(x', n')``
+        grows with ``x'`` and, for fixed ``x'``, falls with ``n'``; for a pure slice (x' = n') it
+        grows with ``n'``. The rest's rate ``(X - x') / (N - n')`` behaves the opposite way in each
+        case, so both terms are best at ``n' = clip(x, min_rows, n)``, ``x' = min(x, n')``.
         """
         n_star = np.clip(x, self.min_rows, n)
         x_star = np.minimum(x, n_star)

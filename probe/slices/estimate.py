@@ -116,11 +116,13 @@ def estimate(carried, masks, y, *, binary, direction, confidence_level, interval
     if binary:
         rate = rate_estimates(s1, n1, sq1, True, cl)
         g_low, g_high = newcombe_interval(s1, n1, s2, n2, confidence_level=cl)
-        gap = [Estimate(float(v), float(a), float(b), "newcombe") for v, a, b in zip(gap_val, g_low, g_high)]
+        gap = [Estimate(float(v), float(a), float(b), "newcombe")
+               for v, a, b in zip(gap_val, g_low, g_high)]
         r_low, r_high = ratio_interval(s1, n1, s2, n2, confidence_level=cl)
         with np.errstate(invalid="ignore", divide="ignore"):
             r_val = np.where(s2 > 0, (s1 / n1) / (s2 / np.where(n2 > 0, n2, 1)), np.nan)
-        ratio = [Estimate(float(v), float(a), float(b), "mover-wilson") for v, a, b in zip(r_val, r_low, r_high)]
+        ratio = [Estimate(float(v), float(a), float(b), "mover-wilson")
+                 for v, a, b in zip(r_val, r_low, r_high)]
         p = two_proportion_pvalue(s1, n1, s2, n2, alternative=alt)
     else:
         limits = (float(y.min()), float(y.max())) if len(y) else None
