@@ -23,7 +23,8 @@ from .pipeline import run_plan
 from .plan import Plan, load_plan, plan_from_dict
 from .policy import Verdict, judge
 from .proxies import ProxyFindings, find_proxies
-from .slices import Slice, SliceFindings, find_slices, metric_outcome, search_slices
+from .metrics import metric_outcome
+from .slices import Slice, SliceFindings, find_slices, search_slices
 from .stats import Estimate
 
 __all__ = [

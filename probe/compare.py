@@ -17,6 +17,7 @@ import pandas as pd
 
 from .errors import DataError, PlanError
 from .metrics import METRIC_NAMES, get_metric, metric_outcome
+from .options import SliceOptions
 from .slices import search_slices
 from .stats import Estimate, mcnemar_pvalue, wilson
 
@@ -183,15 +184,11 @@ def compare_models(
     *,
     metric: str = "error",
     favorable: bool = True,
-    depth: int = 3,
-    min_rows: int | None = None,
-    bins: int = 5,
-    columns=None,
-    exclude=(),
-    top: int = 10,
+    options: SliceOptions | None = None,
     confidence_level: float = 0.95,
     n_resamples: int = 4000,
     rng=0,
+    encoding=None,
 ) -> Comparison:
     """Compare a candidate's decisions with a baseline's on the same labelled rows.
 
@@ -206,12 +203,15 @@ def compare_models(
     metric : {"error", "fpr", "fnr", "selection"}, default="error"
         The metric the worse-slice search runs on (all four are compared overall).
     favorable : bool, default=True
-    depth, min_rows, bins, columns, exclude, top
-        Passed to the slice search.
+    options : SliceOptions, optional
+        The worse-slice search's options (its ``metric`` is not used: the search runs on ``metric``'s
+        paired difference).
     confidence_level : float, default=0.95
     n_resamples : int, default=4000
         Paired bootstrap resamples (of the four cell counts).
     rng : None, int or numpy.random.Generator
+    encoding : Encoding, optional
+        The slice columns already encoded (the run's evidence); default: encode ``X``.
 
     Returns
     -------
@@ -252,10 +252,8 @@ def compare_models(
     c_out, b_out, mask = outcomes[metric]
     worse = get_metric(metric).sign * (c_out.astype(float) - b_out.astype(float))
     found = search_slices(
-        X, worse, base=mask, depth=depth, min_rows=min_rows, bins=bins, columns=columns,
-        exclude=exclude,
-        top=top, confidence_level=confidence_level, rng=search_seed,
-        metric=f"paired {metric} difference (candidate worse > 0)",
+        X, worse, base=mask, options=options, confidence_level=confidence_level, rng=search_seed,
+        label=f"paired {metric} difference (candidate worse > 0)", encoding=encoding,
     )
     agreement = float(np.mean(outcomes["selection"][0] == outcomes["selection"][1]))
     return Comparison(metric, tuple(results), found, agreement, confidence_level)

@@ -28,17 +28,30 @@ __all__ = ["CellCounts", "cell_keys", "count_cells", "weighted_bincount"]
 _DENSE_CELLS = 1 << 22  # up to this many possible cells, key by mixed radix (no sort needed)
 
 
-def weighted_bincount(key: np.ndarray, n_cells: int, values=None, weights=None) -> np.ndarray:
-    """``sum(values * weights)`` per cell of ``key`` (counts when both are None), as float64."""
+def weighted_bincount(key: np.ndarray, n_cells: int, values=None, weights=None, *,
+                      out: np.ndarray | None = None) -> np.ndarray:
+    """``sum(values * weights)`` per cell of ``key`` (counts when both are None), as float64.
+
+    With ``out``, the sums are added to ``out`` in place and ``out`` is returned: the way to
+    accumulate over chunks of rows (an integer ``out`` keeps plain counts integer, with no
+    conversion per chunk)."""
     if values is None and weights is None:
-        return np.bincount(key, minlength=n_cells).astype(np.float64)
+        counts = np.bincount(key, minlength=n_cells)
+        if out is not None:
+            out += counts
+            return out
+        return counts.astype(np.float64)
     if values is None:
         w = weights
     elif weights is None:
         w = values
     else:
         w = np.asarray(values, dtype=np.float64) * weights
-    return np.bincount(key, weights=w, minlength=n_cells)
+    sums = np.bincount(key, weights=w, minlength=n_cells)
+    if out is not None:
+        out += sums
+        return out
+    return sums
 
 
 def cell_keys(codes: Sequence[np.ndarray], n_levels: Sequence[int] | None = None):

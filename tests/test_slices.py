@@ -12,7 +12,10 @@ from statsmodels.stats.proportion import confint_proportions_2indep
 
 from probe.encode import encode_columns
 from probe.errors import DataError, PlanError
-from probe.slices import _lattice_search, find_slices, metric_outcome, search_slices
+from probe.metrics import metric_outcome
+from probe.slices import find_slices, search_slices
+from probe.slices.counter import SliceCounter
+from probe.slices.lattice import Lattice
 
 Z95 = sps.norm.ppf(0.975)
 
@@ -110,9 +113,9 @@ def test_pruned_search_equals_exhaustive_enumeration(seed):
     assert res.tested == n_supported  # no split: nothing pruned, every supported slice counted
     # the pruned lattice (as used with a split) finds the same top scores while pruning
     enc = encode_columns(frame)
-    ranked, _, not_pruned = _lattice_search([c.codes for c in enc.columns],
-                                            [c.n_levels for c in enc.columns],
-                                            outcome.astype(np.uint8), True, 3, 30, 8, 0.95)
+    ranked, _, not_pruned = Lattice([c.codes for c in enc.columns],
+                                    [c.n_levels for c in enc.columns], outcome.astype(np.uint8),
+                                    True, depth=3, min_rows=30, pool=8, confidence_level=0.95).run()
     top = sorted(eligible.values(), reverse=True)[:8]
     np.testing.assert_allclose([r[0] for r in ranked], top, rtol=1e-9, atol=1e-12)
     assert not_pruned < 0.8 * n_supported  # the bound did prune
@@ -135,8 +138,9 @@ def test_without_split_the_multiplicity_counts_every_slice_scored():
     frame = _random_frame(7, n=1500)
     outcome = (np.random.default_rng(7).random(1500) < 0.2).astype(float)
     # a pool larger than the lattice: nothing is pruned, so every supported slice is scored
-    res = search_slices(frame, outcome, depth=2, min_rows=30, top=100_000, split=False,
+    res = search_slices(frame, outcome, depth=2, min_rows=30, top=1000, split=False,
                         similarity=None)
+    assert len(res.found) < 1000  # the pool held every eligible slice
     _, n_supported = _brute_force(frame, outcome, depth=2, min_rows=30, binary=True)
     assert res.tested == n_supported
     p = np.array([s.p_value for s in res.found])
@@ -235,8 +239,8 @@ def test_berkeley_department_by_gender_admission_rates():
         ("F", "Female"): (24, 341), ("F", "Male"): (22, 373),
     }
     # department x gender slices (depth 2): each reported one has the published count and rate
-    res = find_slices(X, None, admitted, metric="selection", direction="higher", depth=2,
-                      min_rows=20, split=False, top=50, similarity=None)
+    res = search_slices(X, admitted.astype(float), label="selection", direction="higher", depth=2,
+                        min_rows=20, split=False, top=50, similarity=None)
     assert res.overall.value == pytest.approx(1755 / 4526, abs=1e-12)  # §6a aggregate
     pairs = {(s.predicates[0]["value"], s.predicates[1]["value"]): s for s in res.found
              if [p["column"] for p in s.predicates] == ["Dept", "Gender"]}
@@ -250,7 +254,7 @@ def test_berkeley_department_by_gender_admission_rates():
     for dept in "ABCDEF":
         for direction in ("higher", "lower"):
             res = search_slices(X, admitted.astype(float), base=(X.Dept == dept).to_numpy(),
-                                metric="selection", direction=direction, depth=1, min_rows=20,
+                                label="selection", direction=direction, depth=1, min_rows=20,
                                 split=False, columns=["Gender"])
             (s,) = res.found
             seen[(dept, s.predicates[0]["value"])] = (s.events, s.rows, s.rate.value)
@@ -338,7 +342,13 @@ def test_bad_input_gives_one_clear_error():
     with pytest.raises(PlanError, match="`metric` must be one of"):
         find_slices(frame, y, y, metric="accuracy")
     with pytest.raises(PlanError, match="`direction`"):
+        search_slices(frame, y, direction="up")
+    with pytest.raises(PlanError, match="`direction` is not an option"):  # the metric decides it
         find_slices(frame, y, y, direction="up")
+    with pytest.raises(PlanError, match="`depth` must be 1 to 4, got 6"):  # SliceOptions' range
+        find_slices(frame, y, y, depth=6)
+    with pytest.raises(PlanError, match="`metric` is not an option of search_slices"):
+        search_slices(frame, y, metric="error")
     with pytest.raises(DataError, match="did you mean `a`"):
         find_slices(frame, y, y, columns=["aa", "b"])
     with pytest.raises(DataError, match="`outcome` has 1 missing"):
@@ -394,15 +404,13 @@ def test_pruned_search_equals_exhaustive_enumeration_with_wide_columns(kind):
 
 def test_shared_counting_passes_give_every_column_sets_counts():
     # every column set's per-slice rows and events against pandas groupby, with levels from 2 to 40
-    from probe.slices import _Counter
-
     r = np.random.default_rng(5)
     n = 20_000
     levels = [2, 3, 5, 7, 40, 4, 2, 11]
     codes = [r.integers(0, k, n).astype(np.uint8) for k in levels]
     y = (r.random(n) < 0.2).astype(float)
     frame = pd.DataFrame({str(i): c for i, c in enumerate(codes)}).assign(_y=y)
-    counter = _Counter(codes, levels, y, True)
+    counter = SliceCounter(codes, levels, y, True)
     for d in (1, 2, 3):
         sets = list(combinations(range(len(levels)), d))
         counts = counter.count(sets)
@@ -429,3 +437,26 @@ def test_bootstrap_of_a_slice_with_every_event_keeps_a_real_interval():
     assert top.label == "a = p and b = u" and top.rate.value == 1.0
     low, high = proportion_confint(top.rows, top.rows, method="wilson")  # reference: statsmodels
     assert top.rate.low == pytest.approx(low, abs=1e-12) and top.rate.low < 1.0
+
+
+def test_a_shared_encoding_and_options_give_the_same_findings_as_keywords():
+    # equivalence: the run's Encoding passed in (not re-encoded) and options given as a SliceOptions
+    # give exactly what the keyword call that encodes X itself gives
+    from probe.options import SliceOptions
+
+    frame = _random_frame(3, n=3000)
+    r = np.random.default_rng(3)
+    y = r.random(3000) < 0.5
+    pred = np.where(r.random(3000) < np.where(frame.a == "q", 0.3, 0.1), ~y, y)
+    plain = find_slices(frame, y, pred, depth=2, bins=4, rng=2)
+    opts = SliceOptions(depth=2, bins=4)
+    enc = encode_columns(frame, bins=4)
+    shared = find_slices(frame, y, pred, options=opts, encoding=enc, rng=2)
+    assert shared.to_dict() == plain.to_dict()
+    # keywords replace the options' fields
+    again = find_slices(frame, y, pred, options=SliceOptions(depth=1, bins=4), depth=2, rng=2)
+    assert again.to_dict() == plain.to_dict()
+    only_a = find_slices(frame, y, pred, options=opts, encoding=enc, columns=["a"], rng=2)
+    assert only_a.settings["columns"] == ["a"]
+    with pytest.raises(DataError, match="`encoding` has 3000 rows but `X` has 100"):
+        find_slices(frame.head(100), y[:100], pred[:100], encoding=enc)

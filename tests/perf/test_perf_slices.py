@@ -16,7 +16,8 @@ import pandas as pd
 import pytest
 
 from probe.encode import encode_columns
-from probe.slices import _lattice_search, search_slices
+from probe.slices import search_slices
+from probe.slices.lattice import Lattice
 from probe.stats import newcombe_interval
 
 pytestmark = pytest.mark.perf
@@ -108,8 +109,8 @@ def test_perf_one_million_rows_depth_three():
     rows = naive["rows"]
     arrays = [c.codes[rows] for c in enc.columns]
     levels = [c.n_levels for c in enc.columns]
-    search, _ = _best_of(3, lambda: _lattice_search(arrays, levels, outcome[rows], True, 3,
-                                                    min_rows, 20, 0.95))
+    search, _ = _best_of(3, lambda: Lattice(arrays, levels, outcome[rows], True, depth=3,
+                                            min_rows=min_rows, pool=20, confidence_level=0.95).run())
 
     encoded_bytes = sum(c.codes.nbytes for c in enc.columns)
     frame_bytes = int(frame.memory_usage(deep=True).sum())

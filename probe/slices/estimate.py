@@ -1,0 +1,228 @@
+"""The estimate stage: which slices are carried, and their rates, gaps, ratios, p- and q-values.
+
+Everything here is computed on the estimate part only (all rows without a split): Wilson rates,
+Newcombe gaps and MOVER-R ratios for a 0/1 outcome, Wald ones for a real-valued outcome, the
+one-sided p-value, Benjamini-Hochberg q-values over the ``tested`` hypotheses, and, on request, a
+bootstrap of all carried slices at once.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from scipy import special
+
+from ..stats import (
+    Estimate,
+    bh_adjust,
+    newcombe_interval,
+    ratio_interval,
+    two_proportion_pvalue,
+    wilson_interval,
+    z_value,
+)
+
+__all__ = ["N_RESAMPLES", "carry", "estimate", "rate_estimates"]
+
+N_RESAMPLES = 2000  # bootstrap resamples of the carried slices
+
+
+def _member(codes, cols, levels):
+    mask = codes[cols[0]] == levels[0]
+    for c, lv in zip(cols[1:], levels[1:]):
+        mask &= codes[c] == lv
+    return mask
+
+
+def carry(ranked, codes, similarity, top):
+    """The slices carried to the estimate stage, and their rows there.
+
+    Greedy by rank over ``ranked`` (:class:`~probe.slices.lattice.Candidate`): a slice whose rows in
+    ``codes`` (the estimate part's) overlap a kept one with Jaccard >= ``similarity`` is dropped
+    (``None`` keeps them all); at most ``top`` are kept."""
+    kept, masks, sizes = [], [], []
+    for entry in ranked:
+        if len(kept) >= top:
+            break
+        mask = _member(codes, entry.cols, entry.levels)
+        size = int(mask.sum())
+        if similarity is not None:
+            dup = False
+            for m, s in zip(masks, sizes):
+                inter = int(np.count_nonzero(mask & m))
+                union = size + s - inter
+                if union > 0 and inter / union >= similarity:
+                    dup = True
+                    break
+            if dup:
+                continue
+        kept.append(entry)
+        masks.append(mask)
+        sizes.append(size)
+    return kept, masks
+
+
+def rate_estimates(s, n, sq, binary, cl, limits=None):
+    """Rate estimates: Wilson for 0/1, Wald for real-valued (vectorised), the Wald limits clipped to
+    the outcome's range ``limits`` (a mean of values in [-1, 1] cannot exceed 1)."""
+    if binary:
+        low, high = wilson_interval(s, n, confidence_level=cl)
+        method = "wilson"
+    else:
+        z = z_value(cl)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            m = s / n
+            v = np.maximum(sq - s * m, 0.0) / (n - 1)
+            half = z * np.sqrt(v / n)
+        low, high, method = m - half, m + half, "wald"
+        if limits is not None:
+            low, high = np.clip(low, *limits), np.clip(high, *limits)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        value = s / n
+    return [Estimate(float(a), float(b), float(c), method) for a, b, c in zip(value, low, high)]
+
+
+def estimate(carried, masks, y, *, binary, direction, confidence_level, interval, tested, rng):
+    """Per carried slice: rates, gap, ratio, p-value and q-value on the estimate part.
+
+    ``masks`` are the carried slices' rows of ``y`` (the outcome as given, not oriented);
+    ``tested`` is the number of hypotheses of the q-values; ``rng`` seeds the bootstrap."""
+    K = len(carried)
+    if K == 0:
+        return []
+    cl = confidence_level
+    # per slice, with no K x rows float matrix: counts for a 0/1 outcome, else one float row buffer
+    n1 = np.array([np.count_nonzero(m) for m in masks], dtype=float)
+    if binary:
+        events = y == 1
+        s1 = np.array([np.count_nonzero(m & events) for m in masks], dtype=float)
+        sq1 = s1.copy()  # y * y = y
+        del events
+    else:
+        s1, sq1 = np.empty(K), np.empty(K)
+        y_sq = y * y
+        buf = np.empty(len(y))
+        for k, mask in enumerate(masks):
+            np.copyto(buf, mask)
+            s1[k] = buf @ y
+            sq1[k] = buf @ y_sq
+        del buf, y_sq
+    N, S, SQ = float(len(y)), float(y.sum()), float((y * y).sum())
+    n2, s2, sq2 = N - n1, S - s1, SQ - sq1
+    alt = "greater" if direction == "higher" else "less"
+    with np.errstate(invalid="ignore", divide="ignore"):
+        gap_val = s1 / n1 - s2 / n2
+    if binary:
+        rate = rate_estimates(s1, n1, sq1, True, cl)
+        g_low, g_high = newcombe_interval(s1, n1, s2, n2, confidence_level=cl)
+        gap = [Estimate(float(v), float(a), float(b), "newcombe")
+               for v, a, b in zip(gap_val, g_low, g_high)]
+        r_low, r_high = ratio_interval(s1, n1, s2, n2, confidence_level=cl)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            r_val = np.where(s2 > 0, (s1 / n1) / (s2 / np.where(n2 > 0, n2, 1)), np.nan)
+        ratio = [Estimate(float(v), float(a), float(b), "mover-wilson")
+                 for v, a, b in zip(r_val, r_low, r_high)]
+        p = two_proportion_pvalue(s1, n1, s2, n2, alternative=alt)
+    else:
+        limits = (float(y.min()), float(y.max())) if len(y) else None
+        rate = rate_estimates(s1, n1, sq1, False, cl, limits)
+        z = z_value(cl)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            v1 = np.maximum(sq1 - s1 * s1 / n1, 0.0) / (n1 - 1)
+            v2 = np.maximum(sq2 - s2 * s2 / n2, 0.0) / (n2 - 1)
+            se = np.sqrt(v1 / n1 + v2 / n2)
+            zstat = gap_val / se
+        span = (limits[1] - limits[0]) if limits else np.inf
+        gap = [Estimate(float(v), float(max(v - z * e, -span)), float(min(v + z * e, span)), "wald")
+               for v, e in zip(gap_val, se)]
+        ratio = [Estimate(math.nan, math.nan, math.nan, "none")] * K
+        p = special.ndtr(-zstat) if alt == "greater" else special.ndtr(zstat)
+        p = np.where(se > 0, p, 1.0)  # no spread at all: no evidence either way
+    if interval == "bootstrap":
+        rate, gap = _bootstrap_estimates(masks, y, rng, confidence_level, rate, gap)
+    p = np.where(np.isnan(p), 1.0, p)
+    # BH over `tested` hypotheses; those not carried are set aside with p = 1 (conservative)
+    padded = np.concatenate([p, np.ones(max(int(tested) - K, 0))])
+    q = bh_adjust(padded)[:K]
+    return [
+        {"rows": int(n1[k]), "share": n1[k] / N if N else math.nan, "events": float(s1[k]),
+         "rate": rate[k], "gap": gap[k], "ratio": ratio[k], "p": float(p[k]), "q": float(q[k]),
+         "rest_rate": s2[k] / n2[k] if n2[k] else math.nan}
+        for k in range(K)
+    ]
+
+
+def _bootstrap_estimates(masks, y, rng, confidence_level, rate, gap):
+    """Bootstrap rate and gap intervals for every carried slice at once.
+
+    A slice's rate and gap depend on the rows only through the counts in the cells (inside, outside)
+    x (distinct outcome value), so resampling the N rows with replacement is drawing the cell counts
+    from a multinomial(N, cell shares): one call for all slices and resamples. The BCa acceleration
+    comes from the jackknife, which is also cell-wise (leaving out any row of a cell gives the same
+    value), weighted by the cell counts.
+    """
+    values, inv = np.unique(y, return_inverse=True)
+    J = len(values)
+    N = len(y)
+    K = len(masks)
+    cells = np.empty((K, 2 * J))
+    for k, mask in enumerate(masks):
+        cells[k, :J] = np.bincount(inv[mask], minlength=J)
+        cells[k, J:] = np.bincount(inv[~mask], minlength=J)
+    probs = cells / N
+    draws = rng.multinomial(N, probs, size=(N_RESAMPLES, K)).astype(float)  # (B, K, 2J)
+
+    def stats(c):
+        n_in = c[..., :J].sum(axis=-1)
+        n_out = c[..., J:].sum(axis=-1)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            r_in = (c[..., :J] @ values) / n_in
+            r_out = (c[..., J:] @ values) / n_out
+        return r_in, r_in - r_out
+
+    boot_rate, boot_gap = stats(draws)  # (B, K)
+    obs_rate, obs_gap = stats(cells)  # (K,)
+    # jackknife: drop one row from cell j -> counts - e_j; shape (K, 2J)
+    jack = cells[:, None, :] - np.eye(2 * J)[None, :, :]
+    jack_rate, jack_gap = stats(jack)
+    alpha = (1 - confidence_level) / 2
+    out_rate, out_gap = [], []
+    for k in range(K):
+        for dist, obs, jv, prior, out in (
+            (boot_rate[:, k], obs_rate[k], jack_rate[k], rate[k], out_rate),
+            (boot_gap[:, k], obs_gap[k], jack_gap[k], gap[k], out_gap),
+        ):
+            if np.ptp(dist) == 0:
+                # every resample gives the same value (e.g. a slice with no events): the bootstrap
+                # has no spread to offer, so the closed-form interval stands
+                out.append(prior)
+                continue
+            lo, hi, method = _boot_interval(dist, obs, jv, cells[k], alpha)
+            out.append(Estimate(prior.value, lo, hi, method))
+    return out_rate, out_gap
+
+
+def _boot_interval(dist, obs, jack_values, weights, alpha):
+    """Percentile or BCa interval; BCa when z0 and the acceleration are finite (Efron & Tibshirani
+    1993, ch. 14), with the jackknife values given per cell and weighted by the cell counts."""
+    dist = dist[np.isfinite(dist)]
+    if len(dist) == 0 or not np.isfinite(obs):
+        return math.nan, math.nan, "bootstrap-percentile"
+    lo_q, hi_q, method = alpha, 1 - alpha, "bootstrap-percentile"
+    below = np.mean(dist < obs) + 0.5 * np.mean(dist == obs)
+    w = np.where(weights > 0, weights, 0.0)
+    jv = np.where(w > 0, jack_values, 0.0)
+    if 0.0 < below < 1.0 and np.all(np.isfinite(jv)):
+        z0 = special.ndtri(below)
+        mean_j = np.sum(w * jv) / np.sum(w)
+        dj = np.where(w > 0, mean_j - jv, 0.0)
+        denom = 6.0 * np.sum(w * dj * dj) ** 1.5
+        if denom > 0 and np.isfinite(denom):
+            a = np.sum(w * dj**3) / denom
+            qs = []
+            for zq in (special.ndtri(alpha), special.ndtri(1 - alpha)):
+                qs.append(float(special.ndtr(z0 + (z0 + zq) / (1 - a * (z0 + zq)))))
+            lo_q, hi_q, method = qs[0], qs[1], "bootstrap-bca"
+    low, high = np.quantile(dist, [lo_q, hi_q])
+    return float(low), float(high), method

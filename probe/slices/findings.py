@@ -1,0 +1,208 @@
+"""What a slice search returns: each :class:`Slice` found and the :class:`SliceFindings`, with the
+report's JSON objects, a table and one plain sentence per slice."""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from ..encode import Encoding
+from ..stats import Estimate
+
+__all__ = ["Slice", "SliceFindings", "make_slice"]
+
+
+@dataclass(frozen=True)
+class Slice:
+    """One slice found, with its estimates on the estimate part.
+
+    Attributes
+    ----------
+    rank : int
+        1 for the first.
+    predicates : tuple of dict
+        ``{"column", "op", "value"}`` each; the slice is their conjunction.
+    label : str
+        The predicates' labels joined by ``and``.
+    rows : int
+        Base rows of the estimate part in the slice (the rows ``rate`` is computed on).
+    share : float
+        ``rows`` over the estimate part's base rows.
+    events : float
+        Sum of the outcome over those rows (the errors, false positives, ...).
+    rate : Estimate
+        The slice's rate (mean outcome).
+    gap : Estimate
+        The slice's rate minus the rate of the rest of the base population.
+    effect_ratio : Estimate
+        The slice's rate over the rest's (MOVER-R; NaN for real-valued outcomes).
+    p_value : float
+        One-sided, in the metric's bad direction.
+    q_value : float
+        Benjamini–Hochberg over ``SliceFindings.tested`` hypotheses.
+    score : float
+        The ranking score on the search part: the lower confidence bound of the gap (bad direction).
+    search_rows : int
+        Base rows of the search part in the slice.
+    sentence : str
+        The finding in one plain sentence.
+    """
+
+    rank: int
+    predicates: tuple
+    label: str
+    rows: int
+    share: float
+    events: float
+    rate: Estimate
+    gap: Estimate
+    effect_ratio: Estimate
+    p_value: float
+    q_value: float
+    score: float
+    search_rows: int
+    sentence: str
+
+    def to_dict(self) -> dict:
+        """The report's found-slice object."""
+        return {
+            "rank": self.rank,
+            "predicates": [dict(p) for p in self.predicates],
+            "label": self.label,
+            "rows": self.rows,
+            "share": _jf(self.share),
+            "events": _jf(self.events),
+            "rate": self.rate.to_dict(),
+            "gap": self.gap.to_dict(),
+            "effect_ratio": self.effect_ratio.to_dict(),
+            "p_value": _jf(self.p_value),
+            "q_value": _jf(self.q_value),
+            "score": _jf(self.score),
+            "search_rows": self.search_rows,
+            "sentence": self.sentence,
+        }
+
+
+@dataclass(frozen=True)
+class SliceFindings:
+    """The result of a slice search.
+
+    Attributes
+    ----------
+    metric : str
+        ``"error"``, ``"fpr"``, ``"fnr"``, ``"selection"`` or a caller's name (``"custom"``).
+    direction : str
+        ``"higher"`` (high rates are the finding) or ``"lower"``.
+    overall : Estimate
+        The rate over all base rows (both parts).
+    tested : int
+        The number of hypotheses the q-values are taken over: the slices carried to the estimate
+        stage (split), or every slice scored during the search (no split).
+    search_rows, estimate_rows, base_rows : int
+        Base rows in the search part, in the estimate part, and in all.
+    found : tuple of Slice
+        Best first.
+    notes : tuple of str
+        Columns left out and other remarks.
+    settings : dict
+        The options used (for the report's provenance).
+    """
+
+    metric: str
+    direction: str
+    overall: Estimate
+    tested: int
+    search_rows: int
+    estimate_rows: int
+    base_rows: int
+    found: tuple
+    notes: tuple
+    settings: dict = field(default_factory=dict)
+
+    def to_dict(self) -> dict:
+        """The report's ``slices`` section."""
+        return {
+            "metric": self.metric,
+            "direction": self.direction,
+            "overall": self.overall.to_dict(),
+            "tested": self.tested,
+            "search_rows": self.search_rows,
+            "estimate_rows": self.estimate_rows,
+            "base_rows": self.base_rows,
+            "found": [s.to_dict() for s in self.found],
+            "notes": list(self.notes),
+            "settings": dict(self.settings),
+        }
+
+    def to_frame(self) -> pd.DataFrame:
+        """One row per slice found."""
+        cols = ["rank", "label", "rows", "share", "rate", "rate_low", "rate_high", "gap", "gap_low",
+                "gap_high", "effect_ratio", "p_value", "q_value", "score", "search_rows"]
+        rows = [
+            {"rank": s.rank, "label": s.label, "rows": s.rows, "share": s.share,
+             "rate": s.rate.value, "rate_low": s.rate.low, "rate_high": s.rate.high,
+             "gap": s.gap.value, "gap_low": s.gap.low, "gap_high": s.gap.high,
+             "effect_ratio": s.effect_ratio.value, "p_value": s.p_value, "q_value": s.q_value,
+             "score": s.score, "search_rows": s.search_rows}
+            for s in self.found
+        ]
+        return pd.DataFrame(rows, columns=cols)
+
+    def sentences(self) -> list:
+        """One plain-language sentence per slice found."""
+        return [s.sentence for s in self.found]
+
+
+def _jf(x):
+    x = float(x)
+    return None if math.isnan(x) or math.isinf(x) else x
+
+
+_WORDING = {
+    "error": ("Rows with {s}", "misclassified"),
+    "fpr": ("Among true negatives, rows with {s}", "wrongly flagged positive"),
+    "fnr": ("Among true positives, rows with {s}", "missed"),
+    "selection": ("Rows with {s}", "given the favourable decision"),
+}
+
+
+def make_slice(rank, cand, est, enc: Encoding, metric, confidence_level, binary) -> Slice:
+    """The :class:`Slice` of a carried candidate ``(score, cols, levels, search_rows)`` and its
+    estimates (a dict from :func:`probe.slices.estimate.estimate`)."""
+    score, cols, levels, search_rows = cand
+    columns = [enc.columns[c] for c in cols]
+    preds = tuple(dict(col.predicates[lv]) for col, lv in zip(columns, levels))
+    label = " and ".join(col.labels[lv] for col, lv in zip(columns, levels))
+    return Slice(
+        rank=rank, predicates=preds, label=label, rows=est["rows"], share=float(est["share"]),
+        events=est["events"], rate=est["rate"], gap=est["gap"], effect_ratio=est["ratio"],
+        p_value=est["p"], q_value=est["q"], score=score, search_rows=search_rows,
+        sentence=_sentence(label, metric, est, confidence_level, binary),
+    )
+
+
+def _fmt_ratio(v):
+    return f"{v:.0f}" if v >= 10 else f"{v:.1f}" if v >= 1 else f"{v:.2f}"
+
+
+def _sentence(label, metric, est, cl, binary):
+    level = f"{cl * 100:g} %"
+    rate, rest = est["rate"].value, est["rest_rate"]
+    subject, verb = _WORDING.get(metric, ("Rows with {s}", None))
+    subject = subject.format(s=label)
+    ratio = est["ratio"]
+    if binary and verb and np.isfinite(ratio.value) and np.isfinite(ratio.low) and np.isfinite(ratio.high):
+        return (
+            f"{subject} are {verb} {_fmt_ratio(ratio.value)} times as often as the rest "
+            f"({level} interval {_fmt_ratio(ratio.low)}–{_fmt_ratio(ratio.high)}; "
+            f"{rate:.1%} against {rest:.1%})"
+        )
+    gap = est["gap"]
+    what = "rate" if binary else "mean outcome"
+    return (
+        f"{subject} have a {what} of {rate:.3g} against {rest:.3g} for the rest "
+        f"(difference {gap.value:+.3g}, {level} interval {gap.low:+.3g} to {gap.high:+.3g})"
+    )
