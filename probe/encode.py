@@ -29,7 +29,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from .data import close_names
+from .data import close_names, is_numeric
 from .errors import DataError, PlanError
 
 __all__ = ["EncodedColumn", "Encoding", "encode_columns"]
@@ -212,7 +212,7 @@ def _encode_one(name, series, bins, max_levels, min_level_share):
     values = series.array if isinstance(series.dtype, pd.CategoricalDtype) else series.to_numpy()
     missing = pd.isna(series).to_numpy()
     n, n_missing = len(series), int(missing.sum())
-    numeric = pd.api.types.is_numeric_dtype(series) and not pd.api.types.is_bool_dtype(series)
+    numeric = is_numeric(series)
     if numeric:  # one sort serves the distinct count, the quantiles and the edges
         if isinstance(values, np.ndarray) and values.dtype.kind in "iuf":
             x = values  # no copy: only read
