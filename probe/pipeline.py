@@ -24,12 +24,13 @@ from . import __version__
 from .adapters import load_model
 from .compare import compare_models
 from .data import Holdout, close_names, prepare_holdout, read_table, sha256_file
+from .encode import encode_columns
 from .errors import DataError
 from .flips import flip_test
 from .groups import group_metrics
 from .plan import Plan
 from .policy import judge
-from .proxies import find_proxies
+from .proxies import ProxyFindings, find_proxies
 from .report.json import SCHEMA
 from .slices import find_slices
 
@@ -166,6 +167,8 @@ def run_plan(plan: Plan, *, command: str | None = None, progress: Progress | Non
             )
         slices = found.to_dict()
 
+    # one proxy ranking per attribute, for the proxies table and transport flips alike
+    rankings = _ProxyRankings(plan, frame, model.feature_names, holdout.label, holdout.protected)
     flips = None
     if plan.flips is not None:
         attributes = plan.flips.attributes or holdout.protected
@@ -175,17 +178,22 @@ def run_plan(plan: Plan, *, command: str | None = None, progress: Progress | Non
         jobs = [(a, m) for a in attributes for m in plan.flips.modes]
         tick = _bar(progress, "flip tests")
         with clock.step("flips"):
+            # the breakdown's columns, encoded once for every attribute and mode
+            encoding = encode_columns(frame, columns=plan.search.columns, bins=plan.search.bins,
+                                      exclude=_slice_exclude(plan, holdout, model))
             for done, (attribute, mode) in enumerate(jobs):
                 if tick:
                     tick(done, len(jobs))
                 if attribute not in frame.columns:
                     raise DataError(f"flip attribute `{attribute}` is not in the data"
                                     + close_names(attribute, list(frame.columns)))
+                # transport moves the proxies of the ranking the proxies table shows
+                ranking = (rankings(attribute)
+                           if mode == "transport" and plan.flips.proxies is None else None)
                 result = flip_test(
-                    model, inputs, attribute, mode=mode, reference=plan.flips.reference,
-                    proxies=plan.flips.proxies, n_proxies=plan.flips.n_proxies,
-                    threshold=plan.model.threshold, favorable=favorable, k=plan.flips.k,
-                    confidence_level=cl, rng=seed, scores=scores,
+                    model, inputs, attribute, options=plan.flips, mode=mode,
+                    threshold=plan.model.threshold, favorable=favorable, confidence_level=cl,
+                    rng=seed, scores=scores, encoding=encoding, proxy_ranking=ranking,
                 )
                 rows.extend(result.to_dict())
                 rows.extend(_note_rows(result, attribute, mode))
@@ -196,8 +204,7 @@ def run_plan(plan: Plan, *, command: str | None = None, progress: Progress | Non
     proxies = None
     if plan.proxies is not None:
         with clock.step("proxies"):
-            proxies = _proxies(plan, frame, model.feature_names, holdout.label,
-                               holdout.protected)
+            proxies = _proxies(plan, frame, holdout.protected, rankings)
 
     comparison = None
     if plan.compare is not None:
@@ -247,9 +254,35 @@ def _provenance(plan: Plan, command, clock, model: dict | None, data: dict) -> d
     }
 
 
-def _proxies(plan: Plan, frame: pd.DataFrame, model_features, label: str | None,
-             protected: tuple[str, ...]) -> list[dict]:
-    """Proxy rankings for each attribute over the plan's features, else the model's, else all."""
+class _ProxyRankings:
+    """:func:`find_proxies` once per attribute, over the plan's features, else the model's, else
+    all columns but the label and the protected attributes: the proxies table and transport flips
+    read the same ranking. The multivariate check runs for the attributes the table shows."""
+
+    def __init__(self, plan: Plan, frame: pd.DataFrame, model_features, label: str | None,
+                 protected: tuple[str, ...]):
+        self.plan, self.frame, self.model_features = plan, frame, model_features
+        self.skip = {label, *protected}
+        self.table = set((plan.proxies.attributes or protected) if plan.proxies else ())
+        self.found: dict = {}
+
+    def __call__(self, attribute: str) -> ProxyFindings:
+        if attribute not in self.found:
+            plan = self.plan
+            features = (plan.proxies.features if plan.proxies else None) or self.model_features
+            if features:
+                features = [c for c in features if c != attribute]
+            else:
+                features = [c for c in self.frame.columns if c not in self.skip | {attribute}]
+            self.found[attribute] = find_proxies(
+                self.frame, attribute, features=features, confidence_level=plan.confidence_level,
+                rng=plan.seed, multivariate=attribute in self.table)
+        return self.found[attribute]
+
+
+def _proxies(plan: Plan, frame: pd.DataFrame, protected: tuple[str, ...],
+             rankings: _ProxyRankings) -> list[dict]:
+    """The proxies table: each attribute's ranking."""
     attributes = plan.proxies.attributes or protected
     if not attributes:
         raise DataError("[proxies] needs `attributes` (or protected attributes in [data])")
@@ -258,14 +291,7 @@ def _proxies(plan: Plan, frame: pd.DataFrame, model_features, label: str | None,
         if attribute not in frame.columns:
             raise DataError(f"proxy attribute `{attribute}` is not in the data"
                             + close_names(attribute, list(frame.columns)))
-        features = plan.proxies.features or model_features
-        if features:
-            features = [c for c in features if c != attribute]
-        else:
-            skip = {label, attribute, *protected}
-            features = [c for c in frame.columns if c not in skip]
-        out.append(find_proxies(frame, attribute, features=features,
-                                confidence_level=plan.confidence_level, rng=plan.seed).to_dict())
+        out.append(rankings(attribute).to_dict())
     return out
 
 
@@ -281,7 +307,8 @@ def _run_proxies_only(plan: Plan, command, clock) -> dict:
         raise DataError(f"label column `{label}` is not in `{path}`"
                         + close_names(label, list(frame.columns)))
     with clock.step("proxies"):
-        proxies = _proxies(plan, frame, None, label, protected)
+        proxies = _proxies(plan, frame, protected,
+                           _ProxyRankings(plan, frame, None, label, protected))
     report = {"schema": SCHEMA, "caution": CAUTION, "proxies": proxies,
               "verdict": judge({}, plan.policy).to_dict()}
     report["provenance"] = _provenance(plan, command, clock, None, data)
@@ -295,4 +322,5 @@ def _note_rows(result, attribute, mode) -> list:
     return [{"attribute": attribute, "mode": mode, "from": None, "to": None, "rows": 0,
              "flip_rate": None, "to_favorable": None, "to_unfavorable": None,
              "mean_score_change": None, "applicable": False,
-             "sentence": "; ".join(result.notes) or f"{mode} flips do not apply to `{attribute}`"}]
+             "sentence": "; ".join(result.notes) or f"{mode} flips do not apply to `{attribute}`",
+             "notes": list(result.notes)}]

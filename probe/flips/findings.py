@@ -224,7 +224,9 @@ def pair_sentence(attribute, mode, src, dst, ests, confidence_level, moved, is_i
                 f"{pct(flip.value)} % of decisions {tail}")
     if mode == "transport":
         what = ", ".join(m for m in moved if m != attribute)
-        if is_input:
+        if not what:  # the attribute is an input but no feature stands in for it enough to move
+            lead = f"Changing {attribute} from {src} to {dst} (no proxy was moved)"
+        elif is_input:
             lead = (f"Changing {attribute} from {src} to {dst} and moving its proxies ({what}) to "
                     f"where they sit in the {dst} group")
         else:
