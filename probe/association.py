@@ -1,11 +1,11 @@
 """Association between a column of level codes and a protected attribute, from counts alone.
 
-The single-feature measures of :func:`probe.proxies.find_proxies`, on codes ``0 .. n_codes - 1`` of a
-feature (the shared encoder's levels) and ``0 .. n_levels - 1`` of the attribute:
+The single-feature measures of :func:`probe.proxies.find_proxies`, on codes ``0 .. n_codes - 1``
+of a feature (the shared encoder's levels) and ``0 .. n_levels - 1`` of the attribute:
 
 - :func:`uncertainty_coefficient`: ``I(A; F) / H(A)`` (Theil 1970), in [0, 1];
-- :func:`crossfit_auc`: the attribute rate of the feature's level, estimated on the other folds (with
-  one pseudo-row of the overall rate as a prior), used as a score for the attribute; macro
+- :func:`crossfit_auc`: the attribute rate of the feature's level, estimated on the other folds
+  (with one pseudo-row of the overall rate as a prior), used as a score for the attribute; macro
   one-vs-rest for more than two levels;
 - :func:`auc`: the Mann-Whitney AUC (ties count one half) from counts per distinct score.
 

@@ -108,7 +108,7 @@ def _slice_exclude(plan: Plan, holdout: Holdout, model) -> list[str]:
     exclude = [holdout.label, *plan.slices.exclude] if plan.slices else [holdout.label]
     if model.kind == "column":
         exclude.append(model.spec.split(":", 1)[1])
-    return list(dict.fromkeys(exclude))
+    return [c for c in dict.fromkeys(exclude) if c]  # flips run without a label
 
 
 def run_plan(plan: Plan, *, command: str | None = None, progress: Progress | None = None) -> dict:

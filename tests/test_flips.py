@@ -704,7 +704,7 @@ def test_every_report_row_carries_the_notes_of_its_test():
 
 
 def _satisfies(frame, pred):
-    """Evaluate one predicate dict on a frame, by its stated meaning (independent of the encoder)."""
+    """One predicate dict evaluated on a frame by its stated meaning (not by the encoder)."""
     col = frame[pred["column"]]
     if pred["op"] == "==":
         return (col == pred["value"]).to_numpy()
@@ -784,4 +784,5 @@ def test_transport_moves_the_proxies_of_the_ranking_it_is_given():
     assert any("`income` (AUC " in n for n in res.notes)
     with pytest.raises(PlanError, match="`proxy_ranking` must be the ProxyFindings of `group`"):
         flip_test(model, X, "group", mode="transport",
-                  proxy_ranking=find_proxies(X, "postcode", features=["income"], multivariate=False))
+                  proxy_ranking=find_proxies(X, "postcode", features=["income"],
+                                             multivariate=False))

@@ -33,8 +33,8 @@ def flip_test(model, X: pd.DataFrame, attribute: str, *, options: FlipOptions | 
     - **transport** (:mod:`probe.flips.transport`): move the attribute's proxies to where they sit
       in the ``to`` group (quantile mapping, fewest-changes coupling of levels), and the attribute
       too when it is a model input;
-    - **twins** (:mod:`probe.flips.twins`): compare with the ``k`` nearest people of the other group,
-      against the ``k`` nearest of their own group as a control (situation testing).
+    - **twins** (:mod:`probe.flips.twins`): compare with the ``k`` nearest people of the other
+      group, against the ``k`` nearest of their own group as a control (situation testing).
 
     Every share has a Wilson interval; the mean score change a t interval; the twins' excess a Wald
     interval on the per-person paired differences. The largest absolute score change is a plain
@@ -101,7 +101,8 @@ def flip_test(model, X: pd.DataFrame, attribute: str, *, options: FlipOptions | 
         mode = opts.modes[0]
     check_option(_MODES, mode, "mode")
     if mode not in opts.modes:
-        raise PlanError(f"`mode` {mode!r} is not among the options' modes ({', '.join(opts.modes)})")
+        raise PlanError(f"`mode` {mode!r} is not among the options' modes "
+                        f"({', '.join(opts.modes)})")
     ctx = flip_context(model, X, attribute, reference=opts.reference, threshold=threshold,
                        favorable=favorable, confidence_level=confidence_level, scores=scores,
                        encoding=encoding)

@@ -1,7 +1,7 @@
 """Where flips concentrate: the slices of a source group with the highest flip rates.
 
-The slices are the levels of the shared encoding (:func:`probe.encode.encode_columns`: quantile bins,
-frequent levels, ``other`` and ``missing``, with the encoder's predicates and labels) and the
+The slices are the levels of the shared encoding (:func:`probe.encode.encode_columns`: quantile
+bins, frequent levels, ``other`` and ``missing``, with the encoder's predicates and labels) and the
 two-column conjunctions of them; the top few by flip rate among those with at least 30 rows and at
 least one flip are reported, each with a Wilson interval. The slices are chosen by their flip rate,
 so these intervals do not account for the selection (the report says so beside them).

@@ -1,5 +1,5 @@
 """What every flip mode needs, validated once: the attribute's levels and groups, the pairs to flip,
-the model's inputs and known levels, scoring, and turning per-row outcomes into a :class:`FlipRow`."""
+the model's inputs and known levels; scoring; turning per-row outcomes into a :class:`FlipRow`."""
 
 from __future__ import annotations
 
@@ -92,7 +92,8 @@ def flip_context(model, X, attribute, *, reference, threshold, favorable, confid
     check_option(_THRESHOLD, threshold, "threshold")
     favorable = as_favorable(favorable)
     if not 0.0 < confidence_level < 1.0:
-        raise PlanError(f"`confidence_level` must lie strictly between 0 and 1, got {confidence_level!r}")
+        raise PlanError("`confidence_level` must lie strictly between 0 and 1, "
+                        f"got {confidence_level!r}")
     if encoding is not None and (not isinstance(encoding, Encoding) or encoding.n_rows != len(X)):
         raise DataError(f"`encoding` must be an Encoding of the {len(X)} rows of `X`")
     names = getattr(model, "feature_names", None)
@@ -132,7 +133,8 @@ def flip_context(model, X, attribute, *, reference, threshold, favorable, confid
         scores = np.asarray(scores, dtype=float)
         if scores.shape != (len(X),) or not np.all(np.isfinite(scores) & (scores >= 0)
                                                     & (scores <= 1)):
-            raise DataError(f"`scores` must be {len(X)} probabilities in [0, 1], one per row of `X`")
+            raise DataError(f"`scores` must be {len(X)} probabilities in [0, 1], one per row "
+                            "of `X`")
     return FlipContext(model, X, attribute, inputs, attribute in inputs, known, levels, pairs,
                        group_rows, float(threshold), favorable, confidence_level, notes, scores,
                        encoding)
@@ -209,7 +211,8 @@ def impossible_row(ctx: FlipContext, mode, src, dst, moved=None) -> FlipRow:
                      f"flips from {src!r} into it were not scored")
     return FlipRow(ctx.attribute, mode, src, dst, len(ctx.group_rows[src]), nan, nan, nan,
                    Estimate(math.nan, math.nan, math.nan, "t"), math.nan, True,
-                   tuple(moved or (ctx.attribute,)), (), impossible_sentence(ctx.attribute, src, dst))
+                   tuple(moved or (ctx.attribute,)), (),
+                   impossible_sentence(ctx.attribute, src, dst))
 
 
 def _mean_t(change, confidence_level) -> Estimate:

@@ -7,11 +7,11 @@ its group sits at ``q = (r - 1/2) / n`` and moves to the ``to`` group's empirica
 nearest order statistic so values stay in the observed support). Ties share a mid-rank and so move
 together; mapping a group onto itself is the identity. A categorical proxy is moved by the coupling
 of the two level distributions that changes the fewest rows (optimal transport with a 0-1 cost):
-the target counts are the ``to`` group's shares times the group size (largest-remainder rounding, so
-the shares are preserved exactly up to whole rows); each level keeps ``min(have, need)`` of its rows,
-the surplus rows (chosen by a seeded permutation) are dealt to the levels in deficit in a fixed level
-order. Missing proxy values stay missing. Whether a column is numeric is :func:`probe.data.is_numeric`,
-the encoder's rule.
+the target counts are the ``to`` group's shares times the group size (largest-remainder rounding,
+so the shares are preserved exactly up to whole rows); each level keeps ``min(have, need)`` of its
+rows, the surplus rows (chosen by a seeded permutation) are dealt to the levels in deficit in a
+fixed level order. Missing proxy values stay missing. Whether a column is numeric is
+:func:`probe.data.is_numeric`, the encoder's rule.
 
 The proxies moved are the ones given, else the top ``n_proxies`` model inputs of the attribute's
 proxy ranking (:func:`probe.proxies.find_proxies`, the same ranking as the report's proxies table)
@@ -104,7 +104,7 @@ def _given_proxies(ctx, proxies) -> list:
 
 
 def _ranked_proxies(ctx, ranking: ProxyFindings | None, n_proxies) -> list:
-    """The top ``n_proxies`` model inputs of the ranking, those at or above :data:`MIN_PROXY_AUC`."""
+    """The top ``n_proxies`` model inputs of the ranking that reach :data:`MIN_PROXY_AUC`."""
     if ranking is None:  # no model input besides the attribute
         return []
     if not isinstance(ranking, ProxyFindings) or ranking.attribute != ctx.attribute:

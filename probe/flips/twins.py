@@ -4,8 +4,8 @@ and with the ``k`` nearest of their own group as a control.
 Distances are on the non-protected model features: numerics (:func:`probe.data.is_numeric`, the
 encoder's rule) standardised with the pooled mean and standard deviation of the two groups, missing
 values set to that mean; categoricals one-hot on the levels of the shared encoder
-(:func:`probe.encode.encode_columns` with up to 20 named levels, the rest ``other``, missing a level)
-with each indicator scaled by ``1/sqrt(2)`` so that a level mismatch costs the same as one standard
+(:func:`probe.encode.encode_columns` with up to 20 named levels, the rest ``other``, missing a
+level) with each indicator scaled by ``1/sqrt(2)`` so that a level mismatch costs the same as one standard
 deviation. Neighbours come from scikit-learn's ``NearestNeighbors`` fitted on the other group: a k-d
 tree up to 8 encoded dimensions, beyond that its brute-force search, which sklearn runs in chunks
 under a working-memory bound (on 20 dimensions it is about 20 times faster than a tree). Queries go
@@ -16,8 +16,8 @@ an even ``k`` counts as no difference), split by direction, and the mean of (twi
 score). Near the decision boundary neighbours disagree whatever the group, so that share is well
 above zero even for a model blind to the group; the *control* repeats the search in the person's own
 group (themselves excluded), on a pool of the same size as the cross-group one (the larger is
-subsampled, seeded: a k-NN search reaches farther in a smaller pool and finds more disagreement), and
-the *excess* — the mean per-person paired difference of the cross-group and own-group flip
+subsampled, seeded: a k-NN search reaches farther in a smaller pool and finds more disagreement),
+and the *excess* — the mean per-person paired difference of the cross-group and own-group flip
 indicators (and of the twins' scores) — is the part attributable to the group.
 
 Self-exclusion: the own-group search asks for ``k + 1`` neighbours and drops the person themself;
