@@ -20,7 +20,7 @@ import pandas as pd
 from .errors import DataError
 
 __all__ = ["read_table", "sha256_file", "prepare_holdout", "Holdout", "close_names", "rows_text",
-           "require_finite"]
+           "require_finite", "is_numeric", "attribute_levels", "MAX_LEVELS"]
 
 _READERS = {
     ".csv": "csv",
@@ -61,12 +61,44 @@ def rows_text(positions: np.ndarray, limit: int = 5) -> str:
     return f"{word} {shown}" + (f" and {more} more" if more > 0 else "")
 
 
+def is_numeric(s: pd.Series) -> bool:
+    """A numeric column (binned, standardised, quantile-mapped) rather than a categorical one:
+    numbers that are not booleans. Every analysis asks this one rule."""
+    return bool(pd.api.types.is_numeric_dtype(s.dtype) and not pd.api.types.is_bool_dtype(s.dtype))
+
+
+MAX_LEVELS = 50
+"""The most levels a protected attribute may have (flips score every pair; proxies predict each)."""
+
+
+def attribute_levels(s: pd.Series, name: str, *, max_levels: int | None = -1) -> tuple:
+    """The observed levels of the protected attribute ``name`` in a fixed order: category order, else
+    sorted (as text when values do not compare); more than ``max_levels`` (by default
+    :data:`MAX_LEVELS`; None for no cap) is a `DataError`."""
+    s = s.dropna()
+    if isinstance(s.dtype, pd.CategoricalDtype):
+        present = set(s.unique())
+        levels = tuple(c for c in s.cat.categories if c in present)
+    else:
+        vals = list(pd.unique(s))
+        try:
+            levels = tuple(sorted(vals))
+        except TypeError:
+            levels = tuple(sorted(vals, key=str))
+    cap = MAX_LEVELS if max_levels == -1 else max_levels
+    if cap is not None and len(levels) > cap:
+        raise DataError(f"protected attribute `{name}` has {len(levels)} levels (at most "
+                        f"{MAX_LEVELS}: flips score every pair, proxies predict each); bin it "
+                        "first, e.g. ages into bands")
+    return levels
+
+
 def require_finite(frame: pd.DataFrame, columns: Sequence[str]) -> None:
     """Raise a `DataError` naming the first numeric column among ``columns`` with an infinite value
     (missing values are allowed: every analysis treats them as their own level)."""
     for name in columns:
         col = frame[name]
-        if pd.api.types.is_numeric_dtype(col) and not pd.api.types.is_bool_dtype(col):
+        if is_numeric(col):
             bad = np.flatnonzero(np.isinf(col.to_numpy(dtype=float, na_value=np.nan)))
             if len(bad):
                 raise DataError(f"column `{name}` has {len(bad)} infinite values "

@@ -29,10 +29,10 @@ import numpy as np
 import pandas as pd
 
 from .bins import fmt_number, quantile_edges
-from .data import close_names
+from .data import attribute_levels, close_names, is_numeric
 from .errors import DataError, PlanError
 
-__all__ = ["EncodedColumn", "Encoding", "encode_columns", "attribute_codes", "is_numeric"]
+__all__ = ["EncodedColumn", "Encoding", "encode_columns", "attribute_codes"]
 
 _NEAR_UNIQUE = 0.5  # a string column with distinct values on more than half its rows identifies rows
 
@@ -193,17 +193,12 @@ def encode_columns(
     return Encoding(tuple(encoded), len(frame), tuple(notes))
 
 
-def is_numeric(series: pd.Series) -> bool:
-    """Numeric (binned, quantile-mapped, standardised) rather than categorical: numbers, not booleans."""
-    return bool(pd.api.types.is_numeric_dtype(series.dtype)
-                and not pd.api.types.is_bool_dtype(series.dtype))
-
-
 def attribute_codes(series: pd.Series) -> tuple[np.ndarray, tuple]:
-    """A protected attribute's exact levels: every observed value is a group, none is merged.
+    """A protected attribute's exact levels as codes: every observed value is a group, none merged.
 
-    Levels come in a fixed order: a categorical's category order, else numbers in numeric order,
-    else text order. Missing values get code ``-1`` (in no group).
+    The levels and their order are :func:`probe.data.attribute_levels`' (category order, else sorted);
+    missing values get code ``-1`` (in no group). No cap on the number of levels: an intersection of
+    several attributes may have many groups.
 
     Returns
     -------
@@ -211,14 +206,7 @@ def attribute_codes(series: pd.Series) -> tuple[np.ndarray, tuple]:
     levels : tuple
         The observed values, in code order.
     """
-    present = series.dropna()
-    if isinstance(series.dtype, pd.CategoricalDtype):
-        seen = set(present.unique())
-        levels = [lv for lv in series.cat.categories if lv in seen]
-    else:
-        values = list(pd.unique(present))
-        numbers = (int, float, np.integer, np.floating, bool, np.bool_)
-        levels = sorted(values) if all(isinstance(v, numbers) for v in values) else sorted(values, key=str)
+    levels = attribute_levels(series, str(series.name), max_levels=None)
     codes = pd.Index(levels, dtype=object).get_indexer(pd.Index(series.to_numpy(), dtype=object)) \
         if len(levels) else np.full(len(series), -1)
     return np.asarray(codes, dtype=np.int64), tuple(_py(v) for v in levels)
@@ -242,7 +230,7 @@ def _encode_one(name, series, bins, max_levels, min_level_share):
     values = series.array if isinstance(series.dtype, pd.CategoricalDtype) else series.to_numpy()
     missing = pd.isna(series).to_numpy()
     n, n_missing = len(series), int(missing.sum())
-    numeric = pd.api.types.is_numeric_dtype(series) and not pd.api.types.is_bool_dtype(series)
+    numeric = is_numeric(series)
     if numeric:  # one sort serves the distinct count, the quantiles and the edges
         if isinstance(values, np.ndarray) and values.dtype.kind in "iuf":
             x = values  # no copy: only read

@@ -182,8 +182,11 @@ def _ranking(plan: Plan, frame, attribute, model_features, label, protected, ran
         else:
             skip = {label, attribute, *protected}
             features = [c for c in frame.columns if c not in skip]
+        # the multivariate check runs only for the attributes the proxies table shows
+        shown = (plan.proxies.attributes or protected) if plan.proxies else ()
         rankings[attribute] = find_proxies(frame, attribute, features=features,
-                                           confidence_level=plan.confidence_level, rng=plan.seed)
+                                           confidence_level=plan.confidence_level, rng=plan.seed,
+                                           multivariate=attribute in shown)
     return rankings[attribute]
 
 

@@ -4,10 +4,12 @@ For one protected attribute and each candidate feature, three views of how much 
 about the attribute:
 
 - **mutual information**, normalised by the attribute's entropy (the *uncertainty coefficient*
-  ``I(A; F) / H(A)``: 0 when the feature says nothing, 1 when it determines the attribute). Numeric
-  features are cut into up to ten quantile bins; categorical levels are used as they are; a missing
-  value is a level of its own. It is computed in-sample, so a feature with very many levels scores
-  high by chance; the cross-fitted AUC below does not have that weakness.
+  ``I(A; F) / H(A)``: 0 when the feature says nothing, 1 when it determines the attribute), on the
+  levels of the shared encoder (:func:`probe.encode.encode_columns`): numeric features in up to ten
+  quantile bins, categorical levels as they are (up to 250, the rest ``other``), a missing value a
+  level of its own; columns the encoder leaves out (constant, identifiers, dates) are left out with
+  its note. It is computed in-sample, so a feature with very many levels scores high by chance; the
+  cross-fitted AUC below does not have that weakness.
 - **single-feature AUC**: the attribute rate of the feature's level (or bin) used as a score for the
   attribute, *cross-fitted*: each row's score comes from rates estimated on the other folds (with one
   pseudo-row of the overall rate as a prior, so unseen levels score the prior). One-vs-rest macro AUC
@@ -39,14 +41,17 @@ import numpy as np
 import pandas as pd
 from scipy import stats as _sps
 
-from .data import require_finite
+from .association import crossfit_auc, fold_ids, uncertainty_coefficient
+from .data import attribute_levels, require_finite
+from .encode import encode_columns
 from .errors import DataError, PlanError
 from .stats import Estimate
 
 __all__ = ["find_proxies", "ProxyFindings", "ProxyRow"]
 
 _N_BINS = 10
-_MAX_HGB_LEVELS = 250  # HistGradientBoosting needs categorical codes below max_bins (255)
+_MAX_LEVELS = 250  # named levels per categorical: with `other` and `missing`, HistGradientBoosting's
+# categorical codes stay below its max_bins (255)
 
 
 @dataclass(frozen=True)
@@ -214,13 +219,19 @@ def find_proxies(
         notes.append(f"subsampled {max_rows} of {n_before} rows (seeded)")
     n_levels = len(levels)
 
-    fold = _fold_ids(len(y), cv, fold_seed)
+    enc = encode_columns(frame, bins=_N_BINS, max_levels=_MAX_LEVELS, min_level_share=0.0)
+    notes.extend(enc.notes)
+    features = list(enc.names)
+    if not features:
+        raise DataError(f"no candidate feature for `{attribute}` is left: " + "; ".join(enc.notes))
+    fold = fold_ids(len(y), cv, fold_seed)
     single = []
-    for name in features:
-        codes, kind, n_codes = _encode_for_association(frame[name])
-        mi = _uncertainty_coefficient(y, codes, n_levels, n_codes)
-        auc = _crossfit_auc(y, codes, n_levels, n_codes, fold, cv)
-        single.append((name, kind, n_codes, mi, auc))
+    for col in enc.columns:
+        codes = col.codes.astype(np.int64)
+        mi = uncertainty_coefficient(y, codes, n_levels, col.n_levels)
+        auc = crossfit_auc(y, codes, n_levels, col.n_levels, fold, cv)
+        kind = "numeric" if col.kind == "numeric" else "categorical"
+        single.append((col.name, kind, col.n_levels, mi, auc))
 
     imp = {name: (math.nan, math.nan) for name in features}
     m_auc = None
@@ -231,7 +242,7 @@ def find_proxies(
                 f"multivariate check skipped: the smallest level of `{attribute}` has "
                 f"{int(counts.min())} rows, fewer than cv={cv}")
         else:
-            m_auc, imp = _multivariate(frame, features, y, n_levels, cv, n_repeats,
+            m_auc, imp = _multivariate(frame, enc, y, n_levels, cv, n_repeats,
                                        confidence_level, fold_seed, model_seed)
 
     order = sorted(single, key=lambda r: (-_nan_low(r[4]), -_nan_low(r[3]), r[0]))
@@ -284,156 +295,42 @@ def _find_proxies_iv(X, attribute, features, cv, n_repeats, confidence_level, ma
     else:
         frame = X[features]
         attr = X[attribute]
-    levels = attribute_levels(attr)
+    levels = attribute_levels(attr, attribute)
     if len(levels) < 2:
         raise DataError(f"protected attribute `{attribute}` needs at least two observed levels, "
                         f"got {len(levels)}: {list(levels)}")
-    if len(levels) > MAX_LEVELS:
-        raise DataError(f"protected attribute `{attribute}` has {len(levels)} levels (at most "
-                        f"{MAX_LEVELS}); bin it first, e.g. ages into bands")
     y = pd.Categorical(attr, categories=list(levels)).codes.astype(np.int64)
     return frame, features, y, levels, dropped, notes
-
-
-MAX_LEVELS = 50
-"""The most levels a protected attribute may have (flips score every pair; proxies predict each)."""
-
-
-def attribute_levels(s: pd.Series) -> tuple:
-    """The observed levels of a column in a fixed order: category order, else sorted (as text on ties)."""
-    s = s.dropna()
-    if isinstance(s.dtype, pd.CategoricalDtype):
-        present = set(s.unique())
-        return tuple(c for c in s.cat.categories if c in present)
-    vals = list(pd.unique(s))
-    try:
-        return tuple(sorted(vals))
-    except TypeError:
-        return tuple(sorted(vals, key=str))
-
-
-def is_numeric(s: pd.Series) -> bool:
-    """Numeric (binned / quantile-mapped) rather than categorical: numbers that are not booleans."""
-    return bool(pd.api.types.is_numeric_dtype(s.dtype) and not pd.api.types.is_bool_dtype(s.dtype))
-
-
-# ---------------------------------------------------------------------------------------------
-# single-feature measures
-
-
-def _encode_for_association(s: pd.Series):
-    """Small integer codes 0..m-1 with "missing" as its own code; numerics in quantile bins."""
-    if is_numeric(s):
-        v = s.to_numpy(dtype=float, na_value=np.nan)
-        ok = ~np.isnan(v)
-        uniq = np.unique(v[ok])
-        codes = np.empty(len(v), dtype=np.int64)
-        if len(uniq) <= _N_BINS:
-            codes[ok] = np.searchsorted(uniq, v[ok])
-            m = len(uniq)
-        else:
-            edges = np.unique(np.quantile(v[ok], np.linspace(0, 1, _N_BINS + 1)[1:-1]))
-            codes[ok] = np.searchsorted(edges, v[ok], side="right")
-            m = len(edges) + 1
-        if not ok.all():
-            codes[~ok] = m
-            m += 1
-        return codes, "numeric", m
-    codes, uniques = pd.factorize(s, use_na_sentinel=True)
-    codes = codes.astype(np.int64)
-    m = len(uniques)
-    if (codes < 0).any():
-        codes[codes < 0] = m
-        m += 1
-    return codes, "categorical", m
-
-
-def _entropy(counts) -> float:
-    p = counts[counts > 0] / counts.sum()
-    return float(-(p * np.log(p)).sum())
-
-
-def _uncertainty_coefficient(y, codes, n_levels, n_codes) -> float:
-    table = np.bincount(codes * n_levels + y, minlength=n_codes * n_levels).reshape(n_codes, n_levels)
-    n = table.sum()
-    h_a = _entropy(table.sum(axis=0))
-    h_f = _entropy(table.sum(axis=1))
-    h_af = _entropy(table.ravel())
-    mi = max(h_a + h_f - h_af, 0.0)
-    return mi / h_a if h_a > 0 and n > 0 else math.nan
-
-
-def _fold_ids(n, cv, seed):
-    perm = np.random.default_rng(seed).permutation(n)
-    fold = np.empty(n, dtype=np.int64)
-    fold[perm] = np.arange(n) % cv
-    return fold
-
-
-def _auc(target: np.ndarray, score: np.ndarray) -> float:
-    """ROC AUC with ties counted as one half (the Mann-Whitney form), from counts per distinct score:
-    the same number as ``sklearn.metrics.roc_auc_score`` without its per-call validation cost."""
-    values, inv = np.unique(score, return_inverse=True)
-    pos = np.bincount(inv, weights=target, minlength=len(values))
-    neg = np.bincount(inv, minlength=len(values)) - pos
-    n_pos, n_neg = pos.sum(), neg.sum()
-    if n_pos == 0 or n_neg == 0:
-        return float("nan")
-    below = np.cumsum(neg) - neg
-    return float(np.sum(pos * (below + 0.5 * neg)) / (n_pos * n_neg))
-
-
-def _crossfit_auc(y, codes, n_levels, n_codes, fold, cv) -> float:
-    """AUC of the out-of-fold level rate of the attribute as a score (macro one-vs-rest)."""
-    cells = (fold * n_codes + codes) * n_levels + y
-    c = np.bincount(cells, minlength=cv * n_codes * n_levels).reshape(cv, n_codes, n_levels)
-    total = c.sum(axis=0)
-    train = total[None, :, :] - c  # (cv, n_codes, n_levels): counts outside each fold
-    prior = np.bincount(y, minlength=n_levels) / len(y)
-    rates = (train + prior) / (train.sum(axis=2, keepdims=True) + 1.0)
-    score = rates[fold, codes, :]  # (n, n_levels)
-    targets = [n_levels - 1] if n_levels == 2 else range(n_levels)
-    aucs = [_auc((y == lv).astype(float), score[:, lv]) for lv in targets]
-    return float(np.mean(aucs))
 
 
 # ---------------------------------------------------------------------------------------------
 # multivariate check
 
 
-def _design(frame, features):
-    """A float matrix for HistGradientBoosting: numerics as they are, categoricals as codes (NaN missing)."""
+def _design(frame, enc):
+    """A float matrix for HistGradientBoosting: numerics as they are, other columns as the encoder's
+    level codes (a missing value NaN), and which columns are categorical."""
     cols, is_cat = [], []
-    for name in features:
-        s = frame[name]
-        if is_numeric(s):
-            cols.append(s.to_numpy(dtype=float, na_value=np.nan))
-            is_cat.append(False)
+    for col in enc.columns:
+        if col.kind == "numeric":
+            cols.append(frame[col.name].to_numpy(dtype=float, na_value=np.nan))
         else:
-            codes, uniques = pd.factorize(s, use_na_sentinel=True)
-            codes = codes.astype(float)
-            if len(uniques) > _MAX_HGB_LEVELS:
-                # keep the most frequent levels; the rest share one code
-                freq = np.bincount(codes[codes >= 0].astype(np.int64), minlength=len(uniques))
-                keep = np.argsort(-freq, kind="stable")[: _MAX_HGB_LEVELS - 1]
-                remap = np.full(len(uniques), _MAX_HGB_LEVELS - 1, dtype=float)
-                remap[keep] = np.arange(len(keep))
-                ok = codes >= 0
-                codes[ok] = remap[codes[ok].astype(np.int64)]
-            codes[codes < 0] = np.nan
+            codes = col.codes.astype(float)
+            if col.predicates[-1]["op"] == "missing":
+                codes[col.codes == col.n_levels - 1] = np.nan
             cols.append(codes)
-            is_cat.append(True)
+        is_cat.append(col.kind != "numeric")
     return np.column_stack(cols), np.array(is_cat, dtype=bool)
 
 
-def _multivariate(frame, features, y, n_levels, cv, n_repeats, confidence_level, fold_seed,
+def _multivariate(frame, enc, y, n_levels, cv, n_repeats, confidence_level, fold_seed,
                   model_seed):
     from sklearn.ensemble import HistGradientBoostingClassifier
     from sklearn.inspection import permutation_importance
     from sklearn.metrics import roc_auc_score
     from sklearn.model_selection import StratifiedKFold
 
-    Z, is_cat = _design(frame, features)
+    Z, is_cat = _design(frame, enc)
     scoring = "roc_auc" if n_levels == 2 else "roc_auc_ovr"
     splitter = StratifiedKFold(n_splits=cv, shuffle=True, random_state=fold_seed)
     fold_aucs, drops = [], []
@@ -456,7 +353,7 @@ def _multivariate(frame, features, y, n_levels, cv, n_repeats, confidence_level,
     m_auc = Estimate(mean, max(mean - half, 0.0), min(mean + half, 1.0), "cv-fold-t")
     allv = np.concatenate(drops, axis=1)  # (n_features, cv * n_repeats)
     imp = {name: (float(allv[j].mean()), float(allv[j].std(ddof=1)) if allv.shape[1] > 1 else math.nan)
-           for j, name in enumerate(features)}
+           for j, name in enumerate(enc.names)}
     return m_auc, imp
 
 

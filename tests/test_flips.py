@@ -497,18 +497,18 @@ def test_twins_excess_finds_a_planted_direct_dependence():
 
 
 def test_own_group_twins_exclude_self_even_among_exact_duplicates():
-    from probe.flips import _own_twins
+    from probe.flips.twins import _own_twins
 
     g = np.random.default_rng(3)
     Z = g.normal(size=(60, 2))
     Z[10:17] = Z[10]  # seven identical people: more than k + 1 = 4 at distance zero
     for m in (59, 40):  # the whole group, and a subsample of 41
-        nb = _own_twins(Z, 3, m, np.random.default_rng(0), None)
+        nb = _own_twins(Z, 3, m, np.random.default_rng(0))
         assert nb.shape == (60, 3)
         assert not (nb == np.arange(60)[:, None]).any()
-        again = _own_twins(Z, 3, m, np.random.default_rng(0), None)
+        again = _own_twins(Z, 3, m, np.random.default_rng(0))
         assert np.array_equal(nb, again)
-    nb = _own_twins(Z, 3, 59, np.random.default_rng(0), None)
+    nb = _own_twins(Z, 3, 59, np.random.default_rng(0))
     d = ((Z[:, None, :] - Z[None, :, :]) ** 2).sum(-1)
     np.fill_diagonal(d, np.inf)
     # each duplicate's twins are three of the other six copies (distance zero)
@@ -520,13 +520,13 @@ def test_own_group_twins_exclude_self_even_among_exact_duplicates():
 
 
 def test_matched_cross_twins_equal_a_direct_search_of_the_subsample():
-    from probe.flips import _cross_twins
+    from probe.flips.twins import _cross_twins
 
     g = np.random.default_rng(4)
     Zt, Zs = g.normal(size=(500, 3)), g.normal(size=(200, 3))
     for keep in (450, 100):  # the deeper-search path and the separate-search path
         sub = np.sort(g.choice(500, keep, replace=False))
-        raw, matched = _cross_twins(Zt, Zs, 5, sub, None)
+        raw, matched = _cross_twins(Zt, Zs, 5, sub)
         d = ((Zs[:, None, :] - Zt[None, :, :]) ** 2).sum(-1)
         assert np.array_equal(raw, np.argsort(d, axis=1)[:, :5])
         assert np.array_equal(sub[matched], sub[np.argsort(d[:, sub], axis=1)[:, :5]])
@@ -598,7 +598,7 @@ def test_validation_messages():
         flip_test(model, X, "sex", threshold=1.5)
     with pytest.raises(PlanError, match="`reference`"):
         flip_test(model, X, "sex", reference="Q")
-    with pytest.raises(PlanError, match="`k`"):
+    with pytest.raises(PlanError, match=r"`flips\.k`"):
         flip_test(model, X, "sex", mode="twins", k=0)
     with pytest.raises(DataError, match="`proxies`"):
         flip_test(model, X, "sex", mode="transport", proxies=["nope"])
@@ -670,3 +670,119 @@ def test_infinite_feature_values_are_named_not_a_traceback():
         flip_test(model, X, "group", mode="twins")
     with pytest.raises(DataError, match="column `x1` has 1 infinite values"):
         find_proxies(X, "group", features=["x1", "x2"])
+
+
+# --- shared options, encoder and proxy ranking ----------------------------------------------------
+
+
+def test_options_and_keyword_options_are_one_rule():
+    from probe.options import FlipOptions
+
+    X = _credit(n=400)
+    model = _sklearn_model(X)
+    a = flip_test(model, X, "sex", options=FlipOptions(k=3, reference="M"), mode="twins")
+    b = flip_test(model, X, "sex", mode="twins", k=3, reference="M")
+    assert a.to_dict() == b.to_dict() and a.extras["k"] == 3
+    with pytest.raises(PlanError, match="unknown option `depth`"):
+        flip_test(model, X, "sex", depth=2)
+    with pytest.raises(PlanError, match=r"`flips\.n_proxies` must be 1 to 50"):
+        flip_test(model, X, "sex", mode="transport", n_proxies=0)
+    with pytest.raises(PlanError, match="not among the options' modes"):
+        flip_test(model, X, "sex", options=FlipOptions(modes=("direct",)), mode="twins")
+
+
+def test_every_report_row_carries_the_notes_of_its_test():
+    X = _twin_data(n=3000, seed=4)
+    X.loc[X.index[:3], "group"] = None
+    model = Wrapped(lambda f: expit(f["x1"] + f["x2"] / 3), ["x1", "x2", "kind"])
+    res = flip_test(model, X, "group", mode="twins")
+    rows = res.to_dict()
+    assert rows and all(r["notes"] == list(res.notes) for r in rows)
+    assert any("3 rows with missing `group`" in n for n in rows[0]["notes"])
+    assert any(n.startswith("twins matched on `x1`, `x2`, `kind`") for n in rows[0]["notes"])
+    json.dumps(rows)
+
+
+def _satisfies(frame, pred):
+    """One predicate dict evaluated on a frame by its stated meaning (not by the encoder)."""
+    col = frame[pred["column"]]
+    if pred["op"] == "==":
+        return (col == pred["value"]).to_numpy()
+    if pred["op"] == "missing":
+        return col.isna().to_numpy()
+    if pred["op"] == "not in":
+        return (col.notna() & ~col.isin(pred["value"])).to_numpy()
+    lo, hi = pred["value"]
+    v = col.to_numpy(dtype=float)
+    return (v >= (-np.inf if lo is None else lo)) & (v < (np.inf if hi is None else hi))
+
+
+def test_breakdown_reads_the_shared_encoding_and_its_counts_equal_brute_force():
+    from probe.encode import encode_columns
+
+    X = _credit(n=3000, seed=6)
+    # planted: sex matters only for high incomes, so flips concentrate there
+    model = Wrapped(lambda f: np.clip(0.45 + 0.1 * ((f["sex"] == "M") & (f["income"] > 58)), 0, 1),
+                    ["sex", "region", "income", "debt"])
+    enc = encode_columns(X, exclude=["sex"])
+    res = flip_test(model, X, "sex", reference="M", encoding=enc)
+    assert res.to_dict() == flip_test(model, X, "sex", reference="M").to_dict()
+    labels = {p: lab for c in enc.columns for p, lab in zip(map(repr, c.predicates), c.labels)}
+    old, new = model.scores(X), model.scores(X.assign(sex="M"))
+    flip = (old >= 0.5) != (new >= 0.5)
+    for row in res.rows:
+        source = (X["sex"] == row.from_).to_numpy()
+        assert row.by_slice and row.by_slice[0].predicates[0]["column"] == "income"
+        for s in row.by_slice:
+            # every predicate and label is the encoder's own
+            assert s.label == " & ".join(labels[repr(p)] for p in s.predicates)
+            inside = source.copy()
+            for p in s.predicates:
+                inside &= _satisfies(X, p)
+            assert s.rows == inside.sum()
+            assert s.flip_rate.value == flip[inside].mean()
+    with pytest.raises(DataError, match="`encoding` must be an Encoding of the 3000 rows"):
+        flip_test(model, X, "sex", encoding=encode_columns(X.iloc[:10]))
+
+
+def test_transport_without_a_proxy_to_move_equals_the_direct_flip():
+    # planted: `noise` tells nothing about sex, so only the attribute moves and transport is direct
+    X = _credit(n=1500, seed=3)
+    X["noise"] = np.random.default_rng(9).normal(size=len(X))
+    model = Wrapped(lambda f: expit(f["noise"] + 0.8 * (f["sex"] == "M")), ["sex", "noise"])
+    direct = flip_test(model, X, "sex", mode="direct")
+    transport = flip_test(model, X, "sex", mode="transport")
+    for d, t in zip(direct.rows, transport.rows):
+        assert (t.flip_rate, t.to_favorable, t.mean_score_change) == (
+            d.flip_rate, d.to_favorable, d.mean_score_change)
+        assert t.moved == ("sex",) and "(no proxy was moved)" in t.sentence
+    assert any("nothing but the attribute is moved" in n for n in transport.notes)
+
+
+def test_transport_moves_the_proxies_of_the_ranking_it_is_given():
+    g = np.random.default_rng(5)
+    n = 4000
+    group = g.choice(["a", "b"], n)
+    X = pd.DataFrame({"group": group,
+                      "postcode": np.where(g.random(n) < 0.9, np.where(group == "a", "P1", "P2"),
+                                           g.choice(["P1", "P2"], n)),
+                      "income": g.normal(50, 10, n) + 4 * (group == "a"),
+                      "noise": g.normal(size=n)})
+    model = Wrapped(lambda f: expit((f["income"] - 50) / 5 + (f["postcode"] == "P1")),
+                    ["postcode", "income", "noise"])
+    # the default ranking is find_proxies over the model inputs with its own defaults and the seed
+    ranking = find_proxies(X, "group", features=["postcode", "income", "noise"], rng=4,
+                           multivariate=False)
+    assert ranking.top(2) == ("postcode", "income")
+    given = flip_test(model, X, "group", mode="transport", rng=4, proxy_ranking=ranking)
+    assert given.to_dict() == flip_test(model, X, "group", mode="transport", rng=4).to_dict()
+    assert given.rows[0].moved == ("postcode", "income")
+    # a ranking that puts `income` alone at the top moves `income` alone
+    only = find_proxies(X, "group", features=["income", "noise"], rng=4, multivariate=False)
+    res = flip_test(model, X, "group", mode="transport", n_proxies=1, proxy_ranking=only)
+    assert res.rows[0].moved == ("income",)
+    assert any("`income` (AUC " in n for n in res.notes)
+    with pytest.raises(PlanError, match="`proxy_ranking` must be the ProxyFindings of `group`"):
+        flip_test(model, X, "group", mode="transport",
+                  proxy_ranking=find_proxies(X, "postcode", features=["income"],
+                                             multivariate=False))

@@ -76,3 +76,19 @@ def test_renderer_matches_golden_file(report, name):
     assert path.exists(), f"no golden file {path}; run with PROBE_UPDATE_GOLDEN=1 once"
     expected = path.read_text(encoding="utf-8")
     assert text == expected, f"{name} differs from its golden file; review and regenerate"
+
+
+def test_transport_moves_the_proxies_the_proxies_table_ranks(report):
+    # one ranking: the features transport moves for `group` are the proxies table's top
+    # `n_proxies` (3) at or above MIN_PROXY_AUC, in the table's order, after the attribute itself
+    # (the golden model reads every column, `group` included)
+    from probe.flips import MIN_PROXY_AUC
+
+    table = next(p for p in report["proxies"] if p["attribute"] == "group")
+    top = [f["feature"] for f in table["features"][:3] if f["auc"] >= MIN_PROXY_AUC]
+    assert top == ["region"]
+    rows = [r for r in report["flips"] if r["attribute"] == "group" and r["mode"] == "transport"]
+    assert len(rows) == 6
+    for row in rows:
+        assert row["moved"] == ["group", *top]
+        assert any(f"`region` (AUC {table['features'][0]['auc']:.3f})" in n for n in row["notes"])

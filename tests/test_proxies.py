@@ -10,6 +10,7 @@ import pytest
 from scipy.stats import entropy
 from sklearn.metrics import mutual_info_score, roc_auc_score
 
+from probe.encode import encode_columns
 from probe.errors import DataError, PlanError
 from probe.proxies import find_proxies
 
@@ -62,9 +63,11 @@ def test_mutual_information_matches_sklearn():
     mi = mutual_info_score(X["group"], X["postcode"]) / entropy(X["group"].value_counts())
     assert f.rows[0].feature == "postcode"
     assert f.rows[0].mutual_information == pytest.approx(mi, rel=1e-10)
-    # numeric: the same ten quantile bins built here independently
+    # numeric: the shared encoder's ten quantile bins, cut here from the edges in its predicates
     v = X["income"].to_numpy()
-    bins = np.searchsorted(np.quantile(v, np.linspace(0, 1, 11)[1:-1]), v, side="right")
+    edges = [p["value"][0] for p in encode_columns(X[["income"]], bins=10)["income"].predicates[1:]]
+    assert len(edges) == 9
+    bins = np.searchsorted(edges, v, side="right")
     mi_num = mutual_info_score(X["group"], bins) / entropy(X["group"].value_counts())
     assert f.rows[1].mutual_information == pytest.approx(mi_num, rel=1e-10)
 
@@ -79,13 +82,17 @@ def test_crossfitted_auc_close_to_in_sample_for_few_levels():
     assert f.rows[0].auc == pytest.approx(roc_auc_score(y, rate), abs=0.01)
 
 
-def test_identifier_does_not_win_by_overfitting():
+def test_many_levels_do_not_win_by_overfitting_and_identifiers_are_left_out():
     X = _planted()
     X["row_id"] = [f"id{i}" for i in range(len(X))]
+    X["batch"] = [f"b{i % 250}" for i in range(len(X))]  # 250 levels of 12 rows, unrelated to group
     f = find_proxies(X, "group", multivariate=False)
-    row = next(r for r in f.rows if r.feature == "row_id")
-    assert row.mutual_information == pytest.approx(1.0)  # in-sample MI is fooled ...
-    assert abs(row.auc - 0.5) < 0.02  # ... the cross-fitted AUC is not
+    assert "row_id" not in [r.feature for r in f.rows]
+    assert any("`row_id` left out: it identifies rows" in n for n in f.notes)
+    batch, colour = (next(r for r in f.rows if r.feature == c) for c in ("batch", "colour"))
+    assert batch.levels == 250
+    assert batch.mutual_information > 20 * colour.mutual_information  # in-sample MI is fooled ...
+    assert abs(batch.auc - 0.5) < 0.03  # ... the cross-fitted AUC is not
     assert f.top(1) == ("postcode",)
 
 
@@ -207,10 +214,10 @@ def test_scenario_planted_proxies_rank_first(name, built):
 def test_fast_auc_equals_scikit_learn_with_ties():
     from sklearn.metrics import roc_auc_score
 
-    from probe.proxies import _auc
+    from probe.association import auc
 
     rng = np.random.default_rng(3)
     for _ in range(20):
         target = rng.random(500) < rng.uniform(0.05, 0.6)
         score = rng.integers(0, rng.integers(2, 12), 500) / 7.0  # heavy ties, as level rates give
-        assert _auc(target.astype(float), score) == pytest.approx(roc_auc_score(target, score), abs=1e-12)
+        assert auc(target.astype(float), score) == pytest.approx(roc_auc_score(target, score), abs=1e-12)

@@ -79,7 +79,7 @@ def model_and_data():
 @pytest.mark.parametrize("mode, kwargs", [
     ("direct", {}),
     ("transport", {"proxies": ["region", "income"]}),
-    ("transport", {}),  # proxies found by probe (single-feature measures on 20,000 rows)
+    ("transport", {}),  # proxies found by probe (the proxies section's ranking, 50,000 rows)
 ])
 def test_flip_overhead_against_raw_model_calls(model_and_data, mode, kwargs):
     model, X = model_and_data
@@ -105,7 +105,7 @@ def test_flip_overhead_against_raw_model_calls(model_and_data, mode, kwargs):
     for r in res.rows:
         print("  ", r.sentence)
     assert len(frames) == 1 + len(res.rows)
-    # probe's overhead at most 20 %, the proxy search (single-feature measures on 20,000 rows)
+    # probe's overhead at most 20 %, the proxy ranking (single-feature measures on 50,000 rows)
     # included when probe chooses the proxies
     assert ratio <= 1.2
 

@@ -1,0 +1,128 @@
+"""The flip test's one entry point: validate, seed, dispatch to a mode."""
+
+from __future__ import annotations
+
+from dataclasses import fields, replace
+
+import numpy as np
+import pandas as pd
+
+from ..errors import PlanError
+from ..options import FlipOptions, check_option
+from .context import flip_context
+from .direct import direct_flips
+from .findings import FlipFindings
+from .transport import transport_flips
+from .twins import twin_flips
+
+__all__ = ["flip_test"]
+
+_MODES = next(f for f in fields(FlipOptions) if f.name == "modes")
+
+
+def flip_test(model, X: pd.DataFrame, attribute: str, *, options: FlipOptions | None = None,
+              mode: str | None = None, threshold: float = 0.5, favorable=True,
+              confidence_level: float = 0.95, rng=0, scores=None, encoding=None,
+              proxy_ranking=None, **kwargs) -> FlipFindings:
+    """Counterfactual flip test of ``model`` on ``X`` for one protected ``attribute`` in one mode.
+
+    Each mode is reported per ``(from, to)`` pair of the attribute's observed levels (or only into
+    ``options.reference``):
+
+    - **direct** (:mod:`probe.flips.direct`): change only the attribute, all else equal;
+    - **transport** (:mod:`probe.flips.transport`): move the attribute's proxies to where they sit
+      in the ``to`` group (quantile mapping, fewest-changes coupling of levels), and the attribute
+      too when it is a model input;
+    - **twins** (:mod:`probe.flips.twins`): compare with the ``k`` nearest people of the other
+      group, against the ``k`` nearest of their own group as a control (situation testing).
+
+    Every share has a Wilson interval; the mean score change a t interval; the twins' excess a Wald
+    interval on the per-person paired differences. The largest absolute score change is a plain
+    number (the bootstrap is not consistent for a maximum). Where the flips concentrate is shown by
+    slice (:mod:`probe.flips.breakdown`). A target level the model never saw (absent from
+    ``model.categories[attribute]``) is not scored: the row carries ``impossible=True`` and a note.
+
+    Parameters
+    ----------
+    model : object
+        Anything with ``scores(frame) -> array`` of positive-class probabilities; optional
+        ``feature_names`` (tuple of the columns it reads, or None: every column of ``X``) and
+        ``categories`` (dict column -> tuple of levels it knows).
+    X : pandas.DataFrame
+        The rows to test, including ``attribute``. Not modified.
+    attribute : str
+    options : FlipOptions, optional
+        ``modes``, ``reference``, ``proxies``, ``n_proxies``, ``k`` (see :class:`probe.options.
+        FlipOptions`); default its defaults. Any of them may also be given as a keyword argument,
+        which replaces the option's value (and is checked by the same rule).
+    mode : {"direct", "transport", "twins"}, optional
+        The mode to run, one of ``options.modes`` (default: the first of them).
+    threshold : float, default=0.5
+        Decision = ``scores >= threshold``.
+    favorable : bool or {"positive", "negative"}, default=True
+        Whether the positive decision is the favourable one.
+    confidence_level : float, default=0.95
+    rng : None, int or numpy.random.Generator, default=0
+        Seeds the categorical transport, the proxy ranking (when probe makes it) and the twins'
+        size-matched pools.
+    scores : array_like, optional
+        The model's scores of ``X`` as it is, when the caller has them (saves one model call).
+    encoding : Encoding, optional
+        The encoded columns of ``X`` for the by-slice breakdown (the pipeline's, built once per run
+        with the slice options); default ``encode_columns(X, exclude=[attribute])``, built once.
+    proxy_ranking : ProxyFindings, optional
+        Transport: the attribute's proxy ranking (the one the report's proxies table shows); the
+        proxies moved are its top ``n_proxies`` model inputs. Default: :func:`probe.proxies.
+        find_proxies` over the model inputs with its defaults, seeded by ``rng``.
+
+    Returns
+    -------
+    FlipFindings
+
+    Raises
+    ------
+    DataError, PlanError, ModelError
+
+    Examples
+    --------
+    >>> import numpy as np, pandas as pd
+    >>> class Model:
+    ...     feature_names = ("sex", "income")
+    ...     def scores(self, f):
+    ...         return np.clip(f["income"].to_numpy() / 100 + 0.1 * (f["sex"] == "M"), 0, 1)
+    >>> X = pd.DataFrame({"sex": ["F", "M"] * 50, "income": np.linspace(0, 99, 100)})
+    >>> res = flip_test(Model(), X, "sex", reference="M")
+    >>> print(res.rows[0].sentence)  # doctest: +NORMALIZE_WHITESPACE
+    Changing sex from F to M, all else equal, changes 10.0 % of decisions
+    (95 % interval 4.3–21.4 %): 10.0 % become favourable, 0.0 % unfavourable.
+    """
+    opts = _options(options, kwargs)
+    if mode is None:
+        mode = opts.modes[0]
+    check_option(_MODES, mode, "mode")
+    if mode not in opts.modes:
+        raise PlanError(f"`mode` {mode!r} is not among the options' modes "
+                        f"({', '.join(opts.modes)})")
+    ctx = flip_context(model, X, attribute, reference=opts.reference, threshold=threshold,
+                       favorable=favorable, confidence_level=confidence_level, scores=scores,
+                       encoding=encoding)
+    gen = np.random.default_rng(rng)
+    pair_seeds = [int(s) for s in gen.integers(0, 2**31 - 1, size=len(ctx.pairs))]
+    if mode == "direct":
+        return direct_flips(ctx)
+    if mode == "transport":
+        return transport_flips(ctx, proxies=opts.proxies, n_proxies=opts.n_proxies,
+                               proxy_ranking=proxy_ranking, pair_seeds=pair_seeds, rng=rng)
+    return twin_flips(ctx, k=opts.k, pair_seeds=pair_seeds)
+
+
+def _options(options, kwargs) -> FlipOptions:
+    if options is not None and not isinstance(options, FlipOptions):
+        raise PlanError(f"`options` must be a FlipOptions, got {type(options).__name__}")
+    names = [f.name for f in fields(FlipOptions)]
+    unknown = [k for k in kwargs if k not in names]
+    if unknown:
+        raise PlanError(f"flip_test got unknown option{'s' if len(unknown) > 1 else ''} "
+                        + ", ".join(f"`{k}`" for k in unknown) + f"; the options are "
+                        + ", ".join(f"`{n}`" for n in names))
+    return replace(options or FlipOptions(), **kwargs)

@@ -1,0 +1,228 @@
+"""What every flip mode needs, validated once: the attribute's levels and groups, the pairs to flip,
+the model's inputs and known levels; scoring; turning per-row outcomes into a :class:`FlipRow`."""
+
+from __future__ import annotations
+
+import math
+import warnings
+from dataclasses import dataclass, fields
+from functools import cached_property
+
+import numpy as np
+import pandas as pd
+from scipy import stats as _sps
+
+from ..data import attribute_levels, require_finite
+from ..encode import Encoding, encode_columns
+from ..errors import DataError, DegenerateWarning, ModelError, PlanError, ProbeError
+from ..metrics import as_favorable, favorable_decision
+from ..options import ModelOptions, check_option, coerce_option
+from ..stats import Estimate, wilson_interval
+from .breakdown import slice_breakdown
+from .findings import FlipRow, impossible_sentence, pair_sentence
+
+__all__ = ["FlipContext", "flip_context", "score", "set_column"]
+
+_THRESHOLD = next(f for f in fields(ModelOptions) if f.name == "threshold")
+
+
+@dataclass
+class FlipContext:
+    """One attribute of one frame, ready to flip.
+
+    ``group_rows[level]`` holds the positions of that level's rows; ``pairs`` the ``(from, to)``
+    pairs in report order; ``notes`` collects what each mode adds.
+    """
+
+    model: object
+    X: pd.DataFrame
+    attribute: str
+    inputs: tuple
+    is_input: bool
+    known: tuple | None
+    levels: tuple
+    pairs: list
+    group_rows: dict
+    threshold: float
+    favorable: bool
+    confidence_level: float
+    notes: list
+    given_scores: np.ndarray | None
+    given_encoding: Encoding | None
+
+    def unknown(self, level) -> bool:
+        """The model never saw ``level`` as a value of the attribute."""
+        return self.known is not None and level not in self.known
+
+    @property
+    def features(self) -> list:
+        """The model inputs present in the data, other than the attribute."""
+        return [c for c in self.inputs if c != self.attribute and c in self.X.columns]
+
+    @cached_property
+    def base_scores(self) -> np.ndarray:
+        """The model's scores of the rows as they are: the caller's, else one call."""
+        if self.given_scores is None:
+            return score(self.model, self.X, "the original rows")
+        return self.given_scores
+
+    @cached_property
+    def breakdown(self) -> tuple:
+        """The encoded columns the by-slice breakdown reads (all but the attribute)."""
+        enc = self.given_encoding
+        if enc is None:  # built at most once per flip test, and only when a row has flips
+            enc = encode_columns(self.X, exclude=[self.attribute])
+        return tuple(c for c in enc.columns if c.name != self.attribute)
+
+    def decisions(self, s) -> np.ndarray:
+        """Boolean: the favourable decision at these scores."""
+        return favorable_decision(s >= self.threshold, self.favorable)
+
+
+def flip_context(model, X, attribute, *, reference, threshold, favorable, confidence_level,
+                 scores, encoding) -> FlipContext:
+    """Check every input of a flip test once and build its :class:`FlipContext`."""
+    if not callable(getattr(model, "scores", None)):
+        raise ModelError(f"the model ({type(model).__name__}) has no `scores(frame)` method")
+    if not isinstance(X, pd.DataFrame):
+        raise DataError(f"`X` must be a pandas DataFrame, got {type(X).__name__}")
+    if attribute not in X.columns:
+        raise DataError(f"protected attribute `{attribute}` is not a column of the data")
+    threshold = coerce_option(_THRESHOLD, threshold, "threshold")
+    check_option(_THRESHOLD, threshold, "threshold")
+    favorable = as_favorable(favorable)
+    if not 0.0 < confidence_level < 1.0:
+        raise PlanError("`confidence_level` must lie strictly between 0 and 1, "
+                        f"got {confidence_level!r}")
+    if encoding is not None and (not isinstance(encoding, Encoding) or encoding.n_rows != len(X)):
+        raise DataError(f"`encoding` must be an Encoding of the {len(X)} rows of `X`")
+    names = getattr(model, "feature_names", None)
+    inputs = tuple(names) if names is not None else tuple(X.columns)
+    cats = getattr(model, "categories", None) or {}
+    known = tuple(cats[attribute]) if cats.get(attribute) is not None else None
+    notes = []
+    col = X[attribute]
+    missing = col.isna().to_numpy()
+    if missing.any():
+        notes.append(f"{int(missing.sum())} rows with missing `{attribute}` were left out")
+    levels = attribute_levels(col, attribute)
+    if len(levels) < 2 and reference is None:
+        raise DataError(f"protected attribute `{attribute}` needs at least two observed levels, "
+                        f"got {list(levels)}")
+    codes = pd.Categorical(col, categories=list(levels)).codes
+    order = np.argsort(codes, kind="stable")
+    bounds = np.searchsorted(codes[order], np.arange(len(levels) + 1))
+    group_rows = {lv: order[bounds[i]:bounds[i + 1]] for i, lv in enumerate(levels)}
+    if reference is not None:
+        if reference not in levels and (known is None or reference not in known):
+            raise PlanError(f"`reference` {reference!r} is not an observed level of `{attribute}` "
+                            f"(levels: {', '.join(map(str, levels))})")
+        pairs = [(lv, reference) for lv in levels if lv != reference]
+        group_rows.setdefault(reference, np.empty(0, dtype=np.int64))
+    else:
+        pairs = [(a, b) for a in levels for b in levels if a != b]
+    if not pairs:
+        raise DataError(f"nothing to flip: `{attribute}` has only the level {reference!r}")
+    if known is not None:
+        unseen = [lv for lv in levels if lv not in known]
+        if unseen:
+            notes.append(f"the data hold levels of `{attribute}` the model never saw: "
+                         + ", ".join(map(repr, unseen)))
+    require_finite(X, [c for c in inputs if c in X.columns])
+    if scores is not None:
+        scores = np.asarray(scores, dtype=float)
+        if scores.shape != (len(X),) or not np.all(np.isfinite(scores) & (scores >= 0)
+                                                    & (scores <= 1)):
+            raise DataError(f"`scores` must be {len(X)} probabilities in [0, 1], one per row "
+                            "of `X`")
+    return FlipContext(model, X, attribute, inputs, attribute in inputs, known, levels, pairs,
+                       group_rows, float(threshold), favorable, confidence_level, notes, scores,
+                       encoding)
+
+
+def score(model, frame, what) -> np.ndarray:
+    """The model's scores of ``frame``, checked; any failure is one :class:`ModelError` line."""
+    try:
+        s = model.scores(frame)
+    except ProbeError:
+        raise
+    except Exception as exc:  # the model's own failure, turned into one line
+        raise ModelError(f"scoring {what} failed: {type(exc).__name__}: {exc}") from exc
+    try:
+        s = np.asarray(s, dtype=float)
+    except (TypeError, ValueError) as exc:
+        raise ModelError(f"scoring {what}: scores are not numbers ({exc})") from exc
+    if s.shape != (len(frame),):
+        raise ModelError(f"scoring {what}: expected {len(frame)} scores, got shape {np.shape(s)}")
+    bad = ~np.isfinite(s) | (s < 0) | (s > 1)
+    if bad.any():
+        i = int(np.flatnonzero(bad)[0])
+        raise ModelError(f"scoring {what}: scores must be probabilities in [0, 1]; "
+                         f"row {i} got {s[i]!r} ({int(bad.sum())} bad scores)")
+    return s
+
+
+def set_column(frame, column, value):
+    """Set every row of ``column`` to ``value`` in place, keeping the column's dtype."""
+    s = frame[column]
+    if isinstance(s.dtype, pd.CategoricalDtype):
+        if value not in s.cat.categories:
+            s = s.cat.add_categories([value])
+        frame[column] = pd.Categorical([value] * len(frame), categories=s.cat.categories,
+                                       ordered=s.cat.ordered)
+    elif len(frame):
+        frame[column] = pd.Series([value] * len(frame), index=frame.index).astype(s.dtype)
+    return frame
+
+
+# ---------------------------------------------------------------------------------------------
+# assembling rows
+
+
+def pair_row(ctx: FlipContext, mode, src, dst, idx, old, new, moved) -> FlipRow:
+    """A direct or transport row from the source group's scores before and after."""
+    fav_old, fav_new = ctx.decisions(old), ctx.decisions(new)
+    return outcome_row(ctx, mode, src, dst, idx, ~fav_old & fav_new, fav_old & ~fav_new,
+                       new - old, moved)
+
+
+def outcome_row(ctx: FlipContext, mode, src, dst, idx, to_fav, to_unfav, change, moved) -> FlipRow:
+    """A row from per-person outcomes: Wilson shares, a t interval for the mean change, the
+    breakdown by slice."""
+    n = len(idx)
+    flip = to_fav | to_unfav
+    counts = np.array([flip.sum(), to_fav.sum(), to_unfav.sum()], dtype=float)
+    lo, hi = wilson_interval(counts, np.full(3, float(n)), confidence_level=ctx.confidence_level)
+    ests = [Estimate(c / n, float(a), float(b), "wilson") for c, a, b in zip(counts, lo, hi)]
+    largest = float(np.max(np.abs(change))) if n else math.nan
+    slices = (slice_breakdown(ctx.breakdown, idx, flip, ctx.confidence_level)
+              if counts[0] > 0 else ())
+    sentence = pair_sentence(ctx.attribute, mode, src, dst, ests, ctx.confidence_level, moved,
+                             ctx.is_input)
+    return FlipRow(ctx.attribute, mode, src, dst, n, ests[0], ests[1], ests[2],
+                   _mean_t(change, ctx.confidence_level), largest, False, tuple(moved), slices,
+                   sentence)
+
+
+def impossible_row(ctx: FlipContext, mode, src, dst, moved=None) -> FlipRow:
+    """A row for a target level the model never saw: noted, not scored, estimates NaN."""
+    nan = Estimate(math.nan, math.nan, math.nan, "wilson")
+    ctx.notes.append(f"{mode}: `{ctx.attribute}` = {dst!r} is a level the model never saw; "
+                     f"flips from {src!r} into it were not scored")
+    return FlipRow(ctx.attribute, mode, src, dst, len(ctx.group_rows[src]), nan, nan, nan,
+                   Estimate(math.nan, math.nan, math.nan, "t"), math.nan, True,
+                   tuple(moved or (ctx.attribute,)), (),
+                   impossible_sentence(ctx.attribute, src, dst))
+
+
+def _mean_t(change, confidence_level) -> Estimate:
+    n = len(change)
+    if n < 2:
+        warnings.warn("a mean score change needs at least two rows for an interval",
+                      DegenerateWarning, stacklevel=3)
+        return Estimate(float(change.mean()) if n else math.nan, math.nan, math.nan, "t")
+    mean = float(change.mean())
+    sd = float(change.std(ddof=1))
+    half = float(_sps.t.ppf(0.5 + confidence_level / 2, n - 1)) * sd / math.sqrt(n)
+    # a difference of two probabilities lies in [-1, 1], and so does its mean
+    return Estimate(mean, max(mean - half, -1.0), min(mean + half, 1.0), "t")
