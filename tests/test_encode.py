@@ -178,7 +178,7 @@ def test_to_frame_lists_levels_with_counts():
 
 def test_quantiles_of_sorted_values_are_numpys_to_the_last_bit():
     # reference: numpy.quantile (default linear method); the encoder skips its copy and partial sort
-    from probe.encode import _sorted_quantile
+    from probe.bins import _sorted_quantile
 
     r = np.random.default_rng(0)
     for t in range(400):
