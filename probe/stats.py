@@ -414,3 +414,21 @@ def jackknife_values(arrays: Sequence[np.ndarray], statistic) -> np.ndarray:
         idx += idx >= rows[:, None]
         out[start:stop] = statistic(*(a[idx] for a in arrays), axis=-1)
     return out
+
+
+def mean_interval(d, critical: float, method: str, *, low: float = -1.0, high: float = 1.0,
+                  what: str = "a mean") -> Estimate:
+    """Mean of ``d`` with ``mean ± critical · sd / sqrt(n)``, kept within ``[low, high]``.
+
+    ``critical`` is the caller's quantile (a t quantile with ``n - 1`` degrees of freedom, or z).
+    Fewer than two values give NaN bounds and a :class:`DegenerateWarning`.
+    """
+    d = np.asarray(d, dtype=float)
+    n = len(d)
+    if n < 2:
+        warnings.warn(f"{what} needs at least two rows for an interval", DegenerateWarning,
+                      stacklevel=3)
+        return Estimate(float(d.mean()) if n else math.nan, math.nan, math.nan, method)
+    mean = float(d.mean())
+    half = critical * float(d.std(ddof=1)) / math.sqrt(n)
+    return Estimate(mean, max(mean - half, low), min(mean + half, high), method)

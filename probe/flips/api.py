@@ -123,6 +123,6 @@ def _options(options, kwargs) -> FlipOptions:
     unknown = [k for k in kwargs if k not in names]
     if unknown:
         raise PlanError(f"flip_test got unknown option{'s' if len(unknown) > 1 else ''} "
-                        + ", ".join(f"`{k}`" for k in unknown) + f"; the options are "
+                        + ", ".join(f"`{k}`" for k in unknown) + "; the options are "
                         + ", ".join(f"`{n}`" for n in names))
     return replace(options or FlipOptions(), **kwargs)

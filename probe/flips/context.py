@@ -4,7 +4,6 @@ the model's inputs and known levels; scoring; turning per-row outcomes into a :c
 from __future__ import annotations
 
 import math
-import warnings
 from dataclasses import dataclass, fields
 from functools import cached_property
 
@@ -14,10 +13,10 @@ from scipy import stats as _sps
 
 from ..data import attribute_levels, require_finite
 from ..encode import Encoding, encode_columns
-from ..errors import DataError, DegenerateWarning, ModelError, PlanError, ProbeError
+from ..errors import DataError, ModelError, PlanError, ProbeError
 from ..metrics import as_favorable, favorable_decision
 from ..options import ModelOptions, check_option, coerce_option
-from ..stats import Estimate, wilson_interval
+from ..stats import Estimate, mean_interval, wilson_interval
 from .breakdown import slice_breakdown
 from .findings import FlipRow, impossible_sentence, pair_sentence
 
@@ -216,13 +215,7 @@ def impossible_row(ctx: FlipContext, mode, src, dst, moved=None) -> FlipRow:
 
 
 def _mean_t(change, confidence_level) -> Estimate:
-    n = len(change)
-    if n < 2:
-        warnings.warn("a mean score change needs at least two rows for an interval",
-                      DegenerateWarning, stacklevel=3)
-        return Estimate(float(change.mean()) if n else math.nan, math.nan, math.nan, "t")
-    mean = float(change.mean())
-    sd = float(change.std(ddof=1))
-    half = float(_sps.t.ppf(0.5 + confidence_level / 2, n - 1)) * sd / math.sqrt(n)
     # a difference of two probabilities lies in [-1, 1], and so does its mean
-    return Estimate(mean, max(mean - half, -1.0), min(mean + half, 1.0), "t")
+    df = max(len(change) - 1, 1)
+    return mean_interval(change, float(_sps.t.ppf(0.5 + confidence_level / 2, df)), "t",
+                         what="a mean score change")

@@ -47,7 +47,6 @@ stratégiques 5.
 from __future__ import annotations
 
 import math
-import warnings
 from dataclasses import replace
 
 import numpy as np
@@ -55,8 +54,8 @@ from scipy import stats as _sps
 
 from ..data import is_numeric
 from ..encode import encode_columns
-from ..errors import DataError, DegenerateWarning
-from ..stats import Estimate, wilson_interval, z_value
+from ..errors import DataError
+from ..stats import Estimate, mean_interval, wilson_interval, z_value
 from .context import FlipContext, outcome_row
 from .findings import SCREEN_CAUTION, FlipFindings, twin_sentence
 
@@ -258,11 +257,4 @@ def _twin_outcomes(own_fav, fav, base, twin_rows):
 
 def _paired_wald(d, z) -> Estimate:
     """Mean of per-person paired differences with the Wald interval ``mean ± z sd / sqrt(n)``."""
-    n = len(d)
-    if n < 2:
-        warnings.warn("a paired difference needs at least two rows for an interval",
-                      DegenerateWarning, stacklevel=3)
-        return Estimate(float(d.mean()) if n else math.nan, math.nan, math.nan, "paired-wald")
-    mean = float(d.mean())
-    half = z * float(d.std(ddof=1)) / math.sqrt(n)
-    return Estimate(mean, max(mean - half, -1.0), min(mean + half, 1.0), "paired-wald")
+    return mean_interval(d, z, "paired-wald", what="a paired difference")
