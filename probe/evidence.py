@@ -2,13 +2,13 @@
 
 :class:`Evidence` holds the holdout (never modified), the label, the row weights, each model's
 scores and decisions, the favourable decision, and the slice columns encoded once by the one encoder
-(:func:`probe.encode.encode_columns`). Per-metric outcomes with their base populations and the codes of
-the protected attributes are derived on first use and kept, so no analysis derives them again:
+(:func:`probe.encode.encode_columns`):
 
-- groups and intersections read :meth:`Evidence.attribute` codes and :meth:`Evidence.decision`;
+- groups and intersections read the holdout and :meth:`Evidence.decision`;
 - the slice search, the comparison and the flip breakdown read :attr:`Evidence.encoding`;
-- the slice search and the comparison read :meth:`Evidence.outcome`;
-- flip tests reuse the scores already computed (:meth:`Evidence.scores`).
+- flip tests reuse the scores already computed (:meth:`Evidence.scores`);
+- :meth:`Evidence.outcome` gives a metric's per-row outcome and base population (from
+  :mod:`probe.metrics`), derived on first use and kept.
 
 Row weights are a column of the evidence (all ones unless given) so that weighting reaches every
 analysis from here.
@@ -23,8 +23,8 @@ import numpy as np
 import pandas as pd
 
 from .data import Holdout
-from .encode import Encoding, attribute_codes
-from .metrics import as_favorable, favorable_decision, get_metric
+from .encode import Encoding
+from .metrics import as_favorable, get_metric
 
 __all__ = ["Evidence", "ModelRun"]
 
@@ -115,11 +115,6 @@ class Evidence:
     def decision(self, run: str = "candidate") -> np.ndarray:
         return self.runs[run].decision
 
-    def favorable_rows(self, run: str = "candidate") -> np.ndarray:
-        """Boolean: the row received the favourable decision."""
-        return self._cached(("favorable", run),
-                            lambda: favorable_decision(self.decision(run), self.favorable))
-
     def outcome(self, metric: str, run: str = "candidate") -> tuple[np.ndarray, np.ndarray]:
         """The metric's per-row 0/1 outcome and its base population (see :mod:`probe.metrics`)."""
         m = get_metric(metric)
@@ -127,16 +122,7 @@ class Evidence:
             _read_only(a) for a in m.outcome(self.y_true, self.decision(run),
                                              favorable=self.favorable)))
 
-    def attribute(self, column: str) -> tuple[np.ndarray, tuple]:
-        """A protected attribute's exact-level codes (``-1`` missing) and levels, derived once."""
-        return self._cached(("attribute", column), lambda: _attribute(self.frame[column]))
-
     def _cached(self, key, make):
         if key not in self._cache:
             self._cache[key] = make()
         return self._cache[key]
-
-
-def _attribute(series: pd.Series):
-    codes, levels = attribute_codes(series)
-    return _read_only(codes), levels
