@@ -293,7 +293,7 @@ def add_flags(group, cls, *, skip: tuple[str, ...] = ()) -> None:
                                const=not default, default=None, help=help_text)
             continue
         kwargs: dict[str, Any] = {"dest": f"{cls.SECTION}__{f.name}", "default": None,
-                                  "help": help_text,
+                                  "help": help_text, "required": bool(meta.get("required")),
                                   "metavar": meta.get("metavar") or f.name.upper()}
         if ann.startswith("tuple"):
             kwargs["type"] = _comma_list
