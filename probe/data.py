@@ -71,7 +71,7 @@ MAX_LEVELS = 50
 """The most levels a protected attribute may have (flips score every pair; proxies predict each)."""
 
 
-def attribute_levels(s: pd.Series, name: str, *, max_levels: int | None = -1) -> tuple:
+def attribute_levels(s: pd.Series, name: str, *, max_levels: int | None = MAX_LEVELS) -> tuple:
     """The observed levels of the protected attribute ``name`` in a fixed order: category order, else
     sorted (as text when values do not compare); more than ``max_levels`` (by default
     :data:`MAX_LEVELS`; None for no cap) is a `DataError`."""
@@ -85,10 +85,9 @@ def attribute_levels(s: pd.Series, name: str, *, max_levels: int | None = -1) ->
             levels = tuple(sorted(vals))
         except TypeError:
             levels = tuple(sorted(vals, key=str))
-    cap = MAX_LEVELS if max_levels == -1 else max_levels
-    if cap is not None and len(levels) > cap:
+    if max_levels is not None and len(levels) > max_levels:
         raise DataError(f"protected attribute `{name}` has {len(levels)} levels (at most "
-                        f"{MAX_LEVELS}: flips score every pair, proxies predict each); bin it "
+                        f"{max_levels}: flips score every pair, proxies predict each); bin it "
                         "first, e.g. ages into bands")
     return levels
 

@@ -22,12 +22,10 @@ import pandas as pd
 from .counting import CellCounts, count_cells
 from .encode import attribute_codes
 from .errors import DataError, DegenerateWarning
-from .metrics import as_favorable, favorable_decision
+from .metrics import FOUR_FIFTHS, as_favorable, favorable_decision
 from .stats import Estimate, newcombe_interval, ratio_interval, wilson_interval
 
-__all__ = ["GroupRow", "GroupMetrics", "group_metrics", "FOUR_FIFTHS"]
-
-FOUR_FIFTHS = 0.8
+__all__ = ["GroupRow", "GroupMetrics", "group_metrics", "four_fifths_flag"]
 _RATES = ("selection_rate", "error_rate", "tpr", "fpr", "fnr", "ppv")
 
 
@@ -51,7 +49,7 @@ class GroupRow:
     reference_group : str
         The most-favoured group (highest selection rate among groups that are not small).
     four_fifths_flag : bool
-        ``impact_ratio.value < 0.8`` (strict).
+        impact ratio strictly below four-fifths, decided on the counts (:func:`four_fifths_flag`).
     spd : Estimate
         Statistical parity difference: selection rate minus the reference's (Newcombe).
     eod : Estimate
@@ -158,12 +156,13 @@ def _rates(counts: CellCounts, favorable: bool) -> dict:
 
 
 def four_fifths_flag(x, n, x_ref, n_ref) -> bool:
-    """Impact ratio strictly below 4/5, decided on the counts: ``5 x n_ref < 4 x_ref n``.
+    """Impact ratio strictly below :data:`~probe.metrics.FOUR_FIFTHS`, decided on the counts:
+    ``5 x n_ref < 4 x_ref n``.
 
     Comparing the float ratio with 0.8 flags 60/100 against 75/100, whose ratio is exactly 4/5
     (0.6 / 0.75 = 0.7999999999999999 in floating point); the rule does not flag exactly 0.80.
     """
-    return bool(5 * x * n_ref < 4 * x_ref * n)
+    return bool(FOUR_FIFTHS.denominator * x * n_ref < FOUR_FIFTHS.numerator * x_ref * n)
 
 
 def group_metrics(

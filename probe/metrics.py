@@ -19,13 +19,19 @@ negative one for, e.g., a fraud flag where "not flagged" is what a person wants)
 from __future__ import annotations
 
 from dataclasses import dataclass
+from fractions import Fraction
 
 import numpy as np
 
 from .errors import DataError, PlanError
 
-__all__ = ["Metric", "METRICS", "METRIC_NAMES", "get_metric", "as_favorable", "as_binary",
+__all__ = ["FOUR_FIFTHS", "Metric", "METRICS", "METRIC_NAMES", "get_metric", "as_favorable", "as_binary",
            "metric_outcome", "favorable_decision"]
+
+
+FOUR_FIFTHS = Fraction(4, 5)
+"""The four-fifths rule of thumb (29 CFR 1607.4(D)), kept exact so that a ratio of exactly 4/5 is
+compared on counts, not as a rounded float."""
 
 
 @dataclass(frozen=True)

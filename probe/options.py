@@ -131,13 +131,12 @@ class _Checked:
     def __post_init__(self):
         for f in fields(self):
             name = f"{self.SECTION}.{f.name}" if self.SECTION else f.name
-            value = getattr(self, f.name)
-            if isinstance(value, list):
-                object.__setattr__(self, f.name, tuple(value))
-                value = tuple(value)
-            check_option(f, value, name)
-            if f.metadata.get("required") and value in (None, ""):
+            if f.metadata.get("required") and getattr(self, f.name) in (None, ""):
                 raise PlanError(f"[{self.SECTION}] needs `{f.name}`")
+            # the type first (a keyword argument in the API arrives unchecked), then the range
+            value = coerce_option(f, getattr(self, f.name), name)
+            object.__setattr__(self, f.name, value)
+            check_option(f, value, name)
 
     def to_dict(self) -> dict:
         return {f.name: _plain(getattr(self, f.name)) for f in fields(self)}

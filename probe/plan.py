@@ -19,8 +19,8 @@ from typing import Any
 from .data import close_names
 from .errors import PlanError
 from .options import (SECTIONS, CompareOptions, DataOptions, FlipOptions, ModelOptions,
-                      PolicyOptions, ProxyOptions, ReportOptions, SliceOptions, check_option,
-                      coerce_option, option_fields)
+                      PolicyOptions, ProxyOptions, ReportOptions, SliceOptions, coerce_option,
+                      option_fields)
 
 if sys.version_info >= (3, 11):
     import tomllib
@@ -123,8 +123,7 @@ def _section(name: str, raw: Any, where: str):
     try:
         for key, value in raw.items():
             values[key] = coerce_option(known[key], value, f"{name}.{key}")
-            check_option(known[key], values[key], f"{name}.{key}")
-        return cls(**values)
+        return cls(**values)  # checks every value against its rule, named `section.key`
     except PlanError as exc:
         raise _fail(where, str(exc)) from None
 

@@ -98,3 +98,18 @@ def test_no_module_is_over_450_lines():
     sizes = {p.relative_to(PACKAGE).as_posix(): len(p.read_text().splitlines())
              for p in PACKAGE.rglob("*.py")}
     assert {k: v for k, v in sizes.items() if v > 450} == {}
+
+
+@pytest.mark.parametrize("kwargs, message", [
+    ({"depth": "3"}, r"`(slices\.)?depth` must be a whole number, got '3'"),
+    ({"split": "yes"}, r"`(slices\.)?split` must be true or false"),
+    ({"columns": [1, 2]}, r"`(slices\.)?columns` must be a list of strings"),
+])
+def test_the_api_checks_types_as_the_plan_does(kwargs, message):
+    # a keyword argument reaches the options class unchecked by any parser: one clear line
+    from probe.slices import find_slices
+
+    with pytest.raises(PlanError, match=message):
+        SliceOptions(**kwargs)
+    with pytest.raises(PlanError, match=message):
+        find_slices(None, [1, 0], [1, 0], **kwargs)

@@ -11,17 +11,14 @@ import math
 from collections.abc import Iterable, Mapping
 from typing import Any
 
+from ..assemble import CAUTION
+
 __all__ = [
     "CAUTION", "bound_text", "caution_of", "confidence_text", "fmt_bound", "fmt_count", "fmt_est",
     "fmt_interval", "fmt_num", "fmt_p", "fmt_share", "is_number", "metric_name", "rule_status",
     "rule_summary", "rule_title", "slice_label", "status_counts", "verdict_word",
 ]
 
-#: The fallback caution, used when a report dict carries none.
-CAUTION = (
-    "A statistical screen, not a legal finding. The four-fifths rule is a rule of thumb. "
-    "Defer to counsel, local law and licensed practice."
-)
 
 # -- shared formatting ------------------------------------------------------------------------
 

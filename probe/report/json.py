@@ -9,9 +9,9 @@ from typing import Any
 
 import numpy as np
 
-__all__ = ["SCHEMA", "plain", "to_json", "read_report"]
+from ..assemble import SCHEMA
 
-SCHEMA = "probe.report/1"
+__all__ = ["SCHEMA", "plain", "to_json", "read_report"]
 
 
 def plain(obj: Any) -> Any:

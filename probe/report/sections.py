@@ -9,6 +9,8 @@ from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
 
+from ..metrics import FOUR_FIFTHS
+
 from .fmt import (
     confidence_text,
     fmt_count,
@@ -73,7 +75,7 @@ def _group_plot(attribute: str, rows: Sequence[Mapping], level: str) -> Plot:
     if ref is not None and is_number(ref_rate.get("value")):
         rate = ref_rate["value"]
         lines = (Line(rate, f"reference {ref_name} {rate:.3f}", dashed=False),
-                 Line(0.8 * rate, f"four-fifths line {0.8 * rate:.3f}"))
+                 Line(float(FOUR_FIFTHS) * rate, f"four-fifths line {float(FOUR_FIFTHS) * rate:.3f}"))
     plotted = tuple(
         PlotRow(str(g.get("group")), *(((g.get("selection_rate") or {}).get(k))
                                        for k in ("value", "low", "high")),
