@@ -56,21 +56,6 @@ class Findings:
     timings: dict = field(default_factory=dict)
 
 
-def _flip_rows(flips: list) -> list:
-    rows: list = []
-    for result in flips:
-        if result.rows:
-            rows.extend(result.to_dict())
-        else:  # a mode that does not apply (a direct flip of a non-input) leaves a note, not a zero
-            rows.append({"attribute": result.attribute, "mode": result.mode, "from": None, "to": None,
-                         "rows": 0, "flip_rate": None, "to_favorable": None, "to_unfavorable": None,
-                         "mean_score_change": None, "applicable": False,
-                         "sentence": "; ".join(result.notes)
-                         or f"{result.mode} flips do not apply to `{result.attribute}`",
-                         "notes": list(result.notes)})
-    return rows
-
-
 def assemble_report(findings: Findings, verdict, provenance: dict) -> dict:
     """The report dict of a run, keys in the contract's order."""
     f = findings
@@ -85,7 +70,7 @@ def assemble_report(findings: Findings, verdict, provenance: dict) -> dict:
         "groups": None if f.groups is None else f.groups.to_dict(),
         "groups_unknown": None if f.groups is None else f.groups.unknown,
         "slices": None if f.slices is None else f.slices.to_dict(),
-        "flips": None if f.flips is None else _flip_rows(f.flips),
+        "flips": None if f.flips is None else [row for r in f.flips for row in r.to_dict()],
         "proxies": None if f.proxies is None else [p.to_dict() for p in f.proxies],
         "comparison": comparison,
     }

@@ -184,8 +184,12 @@ def test_direct_does_not_apply_when_attribute_is_not_an_input():
     X = _credit()
     model = Wrapped(lambda f: expit((f["income"] - 50) / 5), ["income", "debt"])
     res = flip_test(model, X, "sex")
-    assert res.rows == () and res.to_dict() == []
+    assert res.rows == ()
     assert any("not a model input" in n for n in res.notes)
+    # the report gets one row saying why, with no estimate (never a made-up zero)
+    (row,) = res.to_dict()
+    assert row["applicable"] is False and row["flip_rate"] is None
+    assert "not a model input" in row["sentence"] and row["notes"] == list(res.notes)
     assert model.calls == 0
 
 

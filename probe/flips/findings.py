@@ -173,7 +173,18 @@ class FlipFindings:
     extras: dict = field(default_factory=dict, compare=False)
 
     def to_dict(self) -> list:
-        """The report's ``flips`` entries: one dict per row, each with this test's ``notes``."""
+        """The report's ``flips`` entries: one dict per row, each with this test's ``notes``.
+
+        A mode that does not apply (a direct flip of a non-input) gives one row with
+        ``applicable: false``, null estimates and the reason, never a made-up zero.
+        """
+        if not self.rows:
+            return [{"attribute": self.attribute, "mode": self.mode, "from": None, "to": None,
+                     "rows": 0, "flip_rate": None, "to_favorable": None, "to_unfavorable": None,
+                     "mean_score_change": None, "applicable": False,
+                     "sentence": "; ".join(self.notes)
+                     or f"{self.mode} flips do not apply to `{self.attribute}`",
+                     "notes": list(self.notes)}]
         return [{**r.to_dict(), "notes": list(self.notes)} for r in self.rows]
 
     def to_frame(self) -> pd.DataFrame:
