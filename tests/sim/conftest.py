@@ -1,0 +1,6 @@
+"""The simulation guards import the generators and the simulations beside them."""
+
+import sys
+from pathlib import Path
+
+sys.path.insert(0, str(Path(__file__).resolve().parent))
