@@ -248,11 +248,13 @@ class PolicyOptions(_Checked):
     max_flip_rate: float | None = opt(None, lo=0.0, hi=1.0, cli=False, help="")
     max_slice_gap: float | None = opt(None, lo=0.0, hi=1.0, cli=False, help="")
     max_regression: float | None = opt(None, lo=0.0, hi=1.0, cli=False, help="")
+    min_rows: int = opt(30, lo=1, cli=False,
+                        help="a subject with fewer rows is inconclusive (common practice: 30)")
     fail_on_inconclusive: bool = opt(False, help="an inconclusive rule fails the run")
 
     def has_rules(self) -> bool:
-        return any(getattr(self, f.name) is not None for f in fields(self)
-                   if f.name.startswith(("min_", "max_")))
+        # the rules are the fields that default to "not set"; the others say how rules are judged
+        return any(getattr(self, f.name) is not None for f in fields(self) if f.default is None)
 
 
 @dataclass(frozen=True)

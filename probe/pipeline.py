@@ -154,8 +154,9 @@ def run_plan(plan: Plan, *, command: str | None = None, progress: Progress | Non
                 encoding=ev.encoding)
             found.baseline = ev.model("baseline").describe()
     with clock.step("verdict"):
-        verdict = judge(measure(groups=found.groups, slices=found.slices, flips=found.flips,
-                                comparison=found.comparison), plan.policy)
+        measured = measure(groups=found.groups, slices=found.slices, flips=found.flips,
+                           comparison=found.comparison, confidence_level=cl)
+        verdict = judge(measured, plan.policy, confidence_level=cl)
     prov = provenance(plan, command=command, timings=clock.timings,
                       model=ev.model().describe(), data=h.describe())
     return assemble_report(found, verdict, prov)
@@ -227,6 +228,6 @@ def _run_proxies_only(plan: Plan, command, clock: _Clock) -> dict:
     with clock.step("proxies"):
         attributes = _attributes(plan.proxies.attributes, protected, "proxies", frame)
         found.proxies = [_ranking(plan, frame, a, None, label, protected, {}) for a in attributes]
-    verdict = judge(measure(), plan.policy)
+    verdict = judge(measure(), plan.policy, confidence_level=plan.confidence_level)
     prov = provenance(plan, command=command, timings=clock.timings, model=None, data=data)
     return assemble_report(found, verdict, prov)

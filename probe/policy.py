@@ -1,39 +1,51 @@
-"""Judge a run's typed findings against the plan's policy: every rule on its interval, not its point value.
+"""Judge a run's typed findings against the plan's policy, with a stated error rate for the verdict.
 
-A rule with a lower bound (``min_impact_ratio``) *passes* when the whole interval lies at or above the
-bound, *fails* when the whole interval lies below it, and is *inconclusive* when the interval straddles
-it; a rule with an upper bound (``max_flip_rate``, ``max_slice_gap``, ``max_regression``) the mirror
-image. A rule whose section was not run is inconclusive ("not measured"). Inconclusive rules fail the
-run only when ``fail_on_inconclusive`` is set.
+Each rule is judged on a *family* of subjects (the groups, the flip rows, the slices, the comparison's
+overall shortfall and worse slices). A subject *passes* when its whole interval lies on the right side of
+the bound, *fails* when its whole interval lies on the wrong side, and is *inconclusive* when the
+interval straddles the bound. The intervals are simultaneous: with ``R`` rules judged and a family of
+``m`` subjects, each subject is judged on its two-sided interval at level ``1 - alpha / (R m)``
+(Bonferroni over the subjects of every rule, ``alpha = 1 - confidence_level``). So the chance that the
+verdict wrongly fails or wrongly passes any subject is at most ``alpha`` — for a model that meets
+every rule exactly at its bound, the policy fails in at most ``alpha`` of runs. With one rule of one
+subject the judged interval is the report's own.
 
-What each rule is measured on:
+Nothing passes on too little: a subject with fewer than ``min_rows`` rows, an interval of zero width,
+or an estimate that is not honest for judging (slice rates measured on the rows that chose them, when
+the search ran without a split) is inconclusive, with the reason. A rule whose section was not run is
+inconclusive ("not measured"). Inconclusive rules fail the run only when ``fail_on_inconclusive`` is
+set.
+
+What each rule is measured on (its family):
 
 - ``min_impact_ratio``: every group's impact ratio (groups and intersections), except the reference
   group and groups under 2 % of rows (the Uniform Guidelines' Q&A 11 compares groups above 2 %; NYC's
   rules allow leaving them out of impact ratios), which are listed as not judged.
-- ``max_flip_rate``: every applicable flip row's flip rate; for twins, the excess of the cross-group
-  discordance over the own-group discordance (the part attributable to the group), when reported.
-- ``max_slice_gap``: every reported slice's gap to the rest of the data (estimate part), oriented so
-  that larger is worse: for selection (where the lowest rates are the finding) the shortfall.
+- ``max_flip_rate``: every applicable flip row's judged figure: the flip rate for direct flips, the
+  excess over the placebo for transport, the excess over own-group twins for twins.
+- ``max_slice_gap``: the slices carried to the estimate part (the family the q-values are over); the
+  listed ones are judged, each slice's gap to the rest oriented so that larger is worse (for selection,
+  the shortfall). Without a split the gaps carry the selection effect and are not judged.
 - ``max_regression``: the comparison's overall shortfall in its metric (candidate minus baseline,
-  oriented by the metric so that larger is worse: for selection, fewer favourable decisions), and
-  each worse slice's mean paired shortfall.
+  oriented by the metric so that larger is worse) and each worse slice's mean paired shortfall (family:
+  one plus the worse-slice search's carried slices).
 
-:func:`measure` reads the typed results of the analyses (no report dict, no string keys) and
-returns, per rule, the estimates to judge, each oriented so that the rule's bound applies as stated;
-:func:`judge` turns those into a :class:`Verdict`.
+:func:`measure` reads the typed results of the analyses (no report dict, no string keys) and returns,
+per rule, a :class:`Family` of :class:`Measure`; :func:`judge` turns those into a :class:`Verdict`.
 """
 
 from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from typing import Mapping, Sequence
+from typing import Callable, Mapping
 
 from .options import PolicyOptions
 from .stats import Estimate
 
-__all__ = ["RULES", "Measure", "RuleResult", "Verdict", "judge", "measure"]
+__all__ = ["RULES", "Family", "Measure", "RuleResult", "Verdict", "judge", "measure"]
+
+ADJUSTMENT = "bonferroni"
 
 
 @dataclass(frozen=True)
@@ -54,18 +66,48 @@ RULES = {
 
 @dataclass(frozen=True)
 class Measure:
-    """One estimate a rule is judged on.
+    """One subject a rule is judged on.
 
     Attributes
     ----------
     subject : str
         What it measures (``sex = F (vs M)``, ``slice 2: …``, ``overall error``).
     estimate : Estimate
-        Oriented so that the rule's bound applies as written (a selection shortfall is positive).
+        At the report's confidence level, oriented so that the rule's bound applies as written (a
+        selection shortfall is positive).
+    at : callable or None
+        ``at(confidence_level) -> Estimate``: the same estimate at another two-sided level, oriented
+        the same way. None: only ``estimate`` exists, and the subject is judged on it when the
+        simultaneous level is the report's, and is inconclusive otherwise.
+    rows : int or None
+        The rows behind the estimate (None: not applicable).
+    unjudged : str or None
+        Why the estimate cannot be judged honestly (it is then inconclusive with this reason).
     """
 
     subject: str
     estimate: Estimate
+    at: Callable[[float], Estimate] | None = None
+    rows: int | None = None
+    unjudged: str | None = None
+
+    def interval(self, level: float, report_level: float) -> Estimate | None:
+        if self.at is not None:
+            return self.at(level)
+        return self.estimate if math.isclose(level, report_level) else None
+
+
+@dataclass(frozen=True)
+class Family:
+    """A rule's family: the subjects to judge and how many hypotheses the adjustment covers.
+
+    ``size`` is at least ``len(measures)``: the listed slices are chosen from a larger family fixed
+    before their estimates were looked at, and simultaneous coverage of that family covers any subset
+    of it."""
+
+    measures: tuple
+    size: int
+    what: str
 
 
 @dataclass(frozen=True)
@@ -77,14 +119,17 @@ class RuleResult:
     name : str
         The policy key (``min_impact_ratio`` …).
     subject : str
-        What it was measured on (``sex = F``, ``slice 2: …``, ``overall error``).
     threshold : float
     value : dict or None
-        The estimate object (value, low, high, method), None when not measured.
+        The estimate judged, at ``level`` (value, low, high, method); None when not measured.
     status : str
         ``"pass"``, ``"fail"`` or ``"inconclusive"``.
     message : str
-        Why, in a few words (the value and its interval are in ``value``).
+        Why, in a few words.
+    level : float or None
+        The simultaneous two-sided confidence level of the interval judged.
+    family : int
+        The number of hypotheses the rule's adjustment covers.
     """
 
     name: str
@@ -93,12 +138,14 @@ class RuleResult:
     value: dict | None
     status: str
     message: str
+    level: float | None = None
+    family: int = 0
 
     def to_dict(self) -> dict:
         passed = {"pass": True, "fail": False}.get(self.status)
         return {"name": self.name, "subject": self.subject, "threshold": self.threshold,
-                "value": self.value, "status": self.status, "passed": passed,
-                "message": self.message}
+                "value": self.value, "level": self.level, "family": self.family,
+                "status": self.status, "passed": passed, "message": self.message}
 
 
 @dataclass(frozen=True)
@@ -109,6 +156,11 @@ class Verdict:
     ----------
     rules : tuple of RuleResult
     fail_on_inconclusive : bool
+    confidence_level : float
+        One minus the verdict's stated error rate.
+    rules_judged : int
+        ``R``, the rules the error rate is split over.
+    min_rows : int
     passed : bool or None
         None when the policy has no rules; False when any rule fails (or, with
         ``fail_on_inconclusive``, is inconclusive); True otherwise.
@@ -116,6 +168,9 @@ class Verdict:
 
     rules: tuple[RuleResult, ...]
     fail_on_inconclusive: bool
+    confidence_level: float = 0.95
+    rules_judged: int = 0
+    min_rows: int = 0
 
     @property
     def passed(self) -> bool | None:
@@ -144,6 +199,9 @@ class Verdict:
     def to_dict(self) -> dict:
         return {"passed": self.passed, "status": self.status,
                 "fail_on_inconclusive": self.fail_on_inconclusive, "counts": self.counts(),
+                "error_control": {"error_rate": 1.0 - self.confidence_level,
+                                  "adjustment": ADJUSTMENT, "rules_judged": self.rules_judged,
+                                  "min_rows": self.min_rows},
                 "rules": [r.to_dict() for r in self.rules]}
 
 
@@ -151,26 +209,87 @@ def _undefined(est: Estimate | None) -> bool:
     return est is None or any(not math.isfinite(v) for v in (est.value, est.low, est.high))
 
 
-def _judge(name, subject, threshold, est: Estimate | None, *, upper: bool) -> RuleResult:
+def _pct(level: float) -> str:
+    text = f"{100 * level:.3f}".rstrip("0").rstrip(".")
+    return f"{text} %"
+
+
+def _judge_one(name, m: Measure, threshold, *, upper, level, report_level, family, min_rows):
+    def result(est, status, why):
+        return RuleResult(name, m.subject, threshold, None if est is None else est.to_dict(),
+                          status, why, level, family)
+
+    if m.unjudged:
+        return result(m.estimate, "inconclusive", m.unjudged)
+    if m.rows is not None and m.rows < min_rows:
+        return result(m.estimate, "inconclusive",
+                      f"{m.rows} rows, fewer than the policy's minimum of {min_rows}")
+    est = m.interval(level, report_level)
+    if est is None:
+        return result(m.estimate, "inconclusive", f"no interval at the simultaneous {_pct(level)} level")
     if _undefined(est):
-        return RuleResult(name, subject, threshold, None if est is None else est.to_dict(),
-                          "inconclusive", "not measured (the estimate is undefined)")
+        return result(est, "inconclusive", "not measured (the estimate is undefined)")
+    if est.high - est.low <= 0:
+        return result(est, "inconclusive", "the interval has zero width: no evidence either way")
     low, high = est.low, est.high
+    where = f"whole {_pct(level)} interval"
     if upper:
         if high <= threshold:
-            status, why = "pass", f"whole interval at or below the bound {threshold:g}"
-        elif low > threshold:
-            status, why = "fail", f"whole interval above the bound {threshold:g}"
-        else:
-            status, why = "inconclusive", f"interval straddles the bound {threshold:g}"
+            return result(est, "pass", f"{where} at or below the bound {threshold:g}")
+        if low > threshold:
+            return result(est, "fail", f"{where} above the bound {threshold:g}")
     else:
         if low >= threshold:
-            status, why = "pass", f"whole interval at or above the bound {threshold:g}"
-        elif high < threshold:
-            status, why = "fail", f"whole interval below the bound {threshold:g}"
-        else:
-            status, why = "inconclusive", f"interval straddles the bound {threshold:g}"
-    return RuleResult(name, subject, threshold, est.to_dict(), status, why)
+            return result(est, "pass", f"{where} at or above the bound {threshold:g}")
+        if high < threshold:
+            return result(est, "fail", f"{where} below the bound {threshold:g}")
+    return result(est, "inconclusive", f"the {_pct(level)} interval straddles the bound {threshold:g}")
+
+
+def judge(measured: Mapping[str, Family | None], policy: PolicyOptions, *,
+          confidence_level: float = 0.95) -> Verdict:
+    """Judge the measured families against ``policy`` at a simultaneous level.
+
+    Parameters
+    ----------
+    measured : mapping
+        Rule name -> :class:`Family` (from :func:`measure`); a missing or None entry means the
+        analysis that measures the rule was not run, and a set rule is then inconclusive.
+    policy : PolicyOptions
+    confidence_level : float, default=0.95
+        One minus the verdict's error rate: the chance that any subject of any rule is wrongly
+        failed or wrongly passed is at most ``1 - confidence_level`` (Bonferroni).
+
+    Returns
+    -------
+    Verdict
+    """
+    alpha = 1.0 - confidence_level
+    active = [name for name in RULES
+              if getattr(policy, name) is not None and measured.get(name) is not None]
+    n_rules = len(active)
+    rules: list[RuleResult] = []
+    for name, rule in RULES.items():
+        bound = getattr(policy, name)
+        if bound is None:
+            continue
+        fam = measured.get(name)
+        if fam is None:
+            rules.append(RuleResult(name, "(not run)", bound, None, "inconclusive",
+                                    f"`{name}` is set but the {rule.section} were not run; "
+                                    "nothing was measured"))
+            continue
+        size = max(fam.size, len(fam.measures), 1)
+        level = 1.0 - alpha / (n_rules * size)
+        rules.extend(
+            _judge_one(name, m, bound, upper=rule.bound == "upper", level=level,
+                       report_level=confidence_level, family=size, min_rows=policy.min_rows)
+            for m in fam.measures)
+    return Verdict(tuple(rules), policy.fail_on_inconclusive, confidence_level, n_rules,
+                   policy.min_rows)
+
+
+# -- what each rule is measured on -----------------------------------------------------------------
 
 
 def _worse_up(est: Estimate, sign: int) -> Estimate:
@@ -180,8 +299,17 @@ def _worse_up(est: Estimate, sign: int) -> Estimate:
     return Estimate(-est.value, -est.high, -est.low, est.method)
 
 
-def measure(*, groups=None, slices=None, flips=None, comparison=None) -> dict:
-    """The estimates each rule is judged on, from the typed results of the analyses.
+def _turned(at, sign):
+    return at if sign > 0 else (lambda level: _worse_up(at(level), -1))
+
+
+_SELECTED = ("no split: the {what} was estimated on the rows that chose the slice and is overstated; "
+             "search with a split to judge it")
+
+
+def measure(*, groups=None, slices=None, flips=None, comparison=None,
+            confidence_level: float = 0.95) -> dict:
+    """The family each rule is judged on, from the typed results of the analyses.
 
     Parameters
     ----------
@@ -189,69 +317,58 @@ def measure(*, groups=None, slices=None, flips=None, comparison=None) -> dict:
     slices : SliceFindings, optional
     flips : sequence of FlipFindings, optional
     comparison : Comparison, optional
+    confidence_level : float, default=0.95
+        The report's level (the estimates shown beside each judgement).
 
     Returns
     -------
     dict
-        Rule name -> list of :class:`Measure`, or None when the analysis was not run (or, for
-        flips, no test applied).
+        Rule name -> :class:`Family`, or None when the analysis was not run (or, for flips, no test
+        applied).
     """
-    out: dict[str, list[Measure] | None] = {}
-    out["min_impact_ratio"] = None if groups is None else [
-        Measure(f"{r.attribute} = {r.group} (vs {r.reference_group})", r.impact_ratio)
-        for r in groups.rows if r.group != r.reference_group and not r.small]
-    rows = [row for f in flips or () for row in f.rows if math.isfinite(row.flip_rate.value)]
-    out["max_flip_rate"] = [_flip_measure(row) for row in rows] or None
+    out: dict[str, Family | None] = {}
+    if groups is None:
+        out["min_impact_ratio"] = None
+    else:
+        ms = tuple(Measure(f"{r.attribute} = {r.group} (vs {r.reference_group})", r.impact_ratio,
+                           r.impact_ratio_at, r.n)
+                   for r in groups.rows if r.group != r.reference_group and not r.small)
+        out["min_impact_ratio"] = Family(ms, len(ms), f"{len(ms)} groups")
+    flip_ms = tuple(m for f in flips or () for row in f.rows
+                    if (m := _flip_measure(row, confidence_level)) is not None)
+    out["max_flip_rate"] = Family(flip_ms, len(flip_ms),
+                                  f"{len(flip_ms)} flip rows") if flip_ms else None
     if slices is None:
         out["max_slice_gap"] = None
     else:
-        lower = slices.direction == "lower"
-        out["max_slice_gap"] = [
-            Measure(f"slice {s.rank}: {s.label}" + (" (shortfall in selection rate)" if lower else ""),
-                    _worse_up(s.gap, -1 if lower else 1)) for s in slices.found]
+        sign = -1 if slices.direction == "lower" else 1
+        why = _SELECTED.format(what="gap") if slices.selected else None
+        ms = tuple(
+            Measure(f"slice {s.rank}: {s.label}" + (" (shortfall in selection rate)" if sign < 0
+                                                    else ""),
+                    _worse_up(s.gap, sign), _turned(s.gap_at, sign), s.rows, why)
+            for s in slices.found)
+        out["max_slice_gap"] = Family(ms, slices.family,
+                                      f"{slices.family} slices carried to the estimate part")
     if comparison is None:
         out["max_regression"] = None
     else:
-        o = comparison.overall
-        out["max_regression"] = [Measure(f"overall {o.metric}", o.shortfall)] + [
-            Measure(f"worse slice {s.rank}: {s.label}", s.rate) for s in comparison.worse]
+        o, found = comparison.overall, comparison.worse_slices
+        why = _SELECTED.format(what="shortfall") if found.selected else None
+        ms = (Measure(f"overall {o.metric}", o.shortfall, o.shortfall_at, o.rows),) + tuple(
+            Measure(f"worse slice {s.rank}: {s.label}", s.rate, s.rate_at, s.rows, why)
+            for s in comparison.worse)
+        out["max_regression"] = Family(ms, 1 + found.family,
+                                       f"the overall shortfall and {found.family} slices")
     return out
 
 
-def _flip_measure(row) -> Measure:
+def _flip_measure(row, confidence_level) -> Measure | None:
+    """The row's judged figure (None when the row does not apply: nothing was scored)."""
+    est = row.judged_at(confidence_level)
+    if est is None or not math.isfinite(est.value):
+        return None
     subject = f"{row.mode} flip of {row.attribute}: {row.from_} -> {row.to}"
-    if row.mode == "twins" and row.excess is not None:
-        # twins disagree with a person near the decision boundary whatever the group; only the
-        # excess over twins from the person's own group is attributable to the group
-        return Measure(subject + " (excess over own-group twins)", row.excess)
-    return Measure(subject, row.flip_rate)
-
-
-def judge(measured: Mapping[str, Sequence[Measure] | None], policy: PolicyOptions) -> Verdict:
-    """Judge the measured estimates against ``policy``.
-
-    Parameters
-    ----------
-    measured : mapping
-        Rule name -> measures (from :func:`measure`); a missing or None entry means the analysis
-        that measures the rule was not run, and a set rule is then inconclusive ("not measured").
-    policy : PolicyOptions
-
-    Returns
-    -------
-    Verdict
-    """
-    rules: list[RuleResult] = []
-    for name, rule in RULES.items():
-        bound = getattr(policy, name)
-        if bound is None:
-            continue
-        items = measured.get(name)
-        if items is None:
-            rules.append(RuleResult(name, "(not run)", bound, None, "inconclusive",
-                                    f"`{name}` is set but the {rule.section} were not run; "
-                                    "nothing was measured"))
-            continue
-        rules.extend(_judge(name, m.subject, bound, m.estimate, upper=rule.bound == "upper")
-                     for m in items)
-    return Verdict(tuple(rules), policy.fail_on_inconclusive)
+    if row.judged_what != "flip rate":
+        subject += f" ({row.judged_what})"
+    return Measure(subject, est, row.judged_at, row.rows)

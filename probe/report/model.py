@@ -255,10 +255,19 @@ def _verdict(report: Mapping) -> Section:
     if c["inconclusive"]:
         counted = "counted" if verdict.get("fail_on_inconclusive") else "not counted"
         inconclusive += f" ({counted} as failures)"
+    ec = verdict.get("error_control") or {}
+    rate, n_rules = ec.get("error_rate"), ec.get("rules_judged")
+    error = (f" The verdict's error rate is at most {100 * rate:g} %: each subject is judged on a "
+             f"simultaneous interval (Bonferroni over the {n_rules} rule(s) judged and each rule's "
+             "family, level in the table), so the chance that any subject is wrongly failed or "
+             "wrongly passed is at most that."
+             if is_number(rate) and n_rules else "")
+    least = (f" A subject with fewer than {ec['min_rows']} rows, or an interval of zero width, is "
+             "inconclusive." if is_number(ec.get("min_rows")) else "")
     intro = (
-        f"{len(rules)} rules: {c['pass']} passed, {c['fail']} failed, {inconclusive}. Each rule is "
-        f"judged on the {confidence_text(report)} interval: it passes only when the whole interval is "
-        "on the right side of the bound."
+        f"{len(rules)} rule checks: {c['pass']} passed, {c['fail']} failed, {inconclusive}. A subject "
+        "passes only when its whole interval is on the right side of the bound, and fails only when "
+        f"its whole interval is on the wrong side.{error}{least}"
     )
     ranked = sorted(rules, key=lambda r: _ORDER[rule_status(r)])
     by_name: dict = {}
@@ -273,7 +282,7 @@ def _verdict(report: Mapping) -> Section:
             text_cell(bound_text(worst)), Cell(tally), text_cell(worst.get("subject")),
             est_cell(worst.get("value"), 4), text_cell(worst.get("message")),
         ))
-    measured = Column("measured", f"the rule's statistic with its {confidence_text(report)} interval",
+    measured = Column("measured", "the rule's statistic with its simultaneous interval",
                       numeric=True)
     summary_columns = (
         Column("worst", "the worst status among the rule's subjects"), Column("rule"),
@@ -284,15 +293,16 @@ def _verdict(report: Mapping) -> Section:
         (
             Cell(rule_status(r), status=rule_status(r)), text_cell(r.get("name")),
             text_cell(r.get("subject")), Cell(fmt_num((r.get("value") or {}).get("value"), 4)),
-            Cell(fmt_interval(r.get("value"), 4)), text_cell(bound_text(r)),
-            text_cell(r.get("message")),
+            Cell(fmt_interval(r.get("value"), 4)), text_cell(_level_text(r)),
+            text_cell(bound_text(r)), text_cell(r.get("message")),
         )
         for r in ranked
     )
     all_columns = (
         _STATUS_COLUMN, Column("rule"), Column("subject", label=True),
         Column("measured", "the rule's statistic", numeric=True),
-        Column("interval", f"its {confidence_text(report)} interval", numeric=True),
+        Column("interval", "its simultaneous interval", numeric=True),
+        Column("level", "the interval's confidence level (family size in brackets)"),
         Column("bound"), Column("note", label=True),
     )
     return Section("verdict", title, "Verdict", (
@@ -300,6 +310,13 @@ def _verdict(report: Mapping) -> Section:
         Table(summary_columns, tuple(summary), caption="Each rule, by its worst subject"),
         Table(all_columns, rows, caption=f"All {len(rules)} rule checks", detail=True),
     ))
+
+
+def _level_text(rule: Mapping) -> str | None:
+    level, family = rule.get("level"), rule.get("family")
+    if not is_number(level):
+        return None
+    return f"{100 * level:.4g} % ({family})" if family else f"{100 * level:.4g} %"
 
 
 # -- provenance --------------------------------------------------------------------------------
