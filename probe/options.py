@@ -236,7 +236,6 @@ class CompareOptions(_Checked):
     SECTION = "compare"
     baseline: str = opt("", required=True, metavar="SPEC", help="the production model")
     metric: str = opt("error", choices=METRIC_NAMES, help="the rate compared and searched")
-    n_resamples: int = opt(4000, lo=100, hi=1_000_000, help="paired bootstrap resamples")
 
 
 @dataclass(frozen=True)

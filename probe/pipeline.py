@@ -150,7 +150,7 @@ def run_plan(plan: Plan, *, command: str | None = None, progress: Progress | Non
             found.comparison = compare_models(
                 ev.frame, ev.y_true, ev.decision(), ev.decision("baseline"),
                 metric=plan.compare.metric, favorable=ev.favorable, options=search,
-                n_resamples=plan.compare.n_resamples, confidence_level=cl, rng=seed,
+                confidence_level=cl, rng=seed,
                 encoding=ev.encoding)
             found.baseline = ev.model("baseline").describe()
     with clock.step("verdict"):
