@@ -129,7 +129,8 @@ def run_plan(plan: Plan, *, command: str | None = None, progress: Progress | Non
         with clock.step("groups"):
             found.groups = group_metrics(ev.frame, ev.y_true, ev.decision(),
                                          attributes=h.protected, intersections=h.intersections,
-                                         favorable=ev.favorable, confidence_level=cl)
+                                         favorable=ev.favorable, confidence_level=cl,
+                                         reference=plan.data.references)
     if plan.slices is not None:
         with clock.step("slices"):
             found.slices = find_slices(ev.frame, ev.y_true, ev.decision(), options=plan.slices,
