@@ -287,7 +287,7 @@ def _impact_estimate(x, n, i, ref, candidates, fixed, confidence_level) -> Estim
     x, n = np.asarray(x, dtype=float), np.asarray(n, dtype=float)
     with np.errstate(invalid="ignore", divide="ignore"):
         value = (x[i] / n[i]) / (x[ref] / n[ref]) if n[i] > 0 and x[ref] > 0 else np.nan
-    if fixed or len(candidates) < 2 and i in candidates:
+    if fixed or len(candidates) < 2:  # one eligible group: the reference is not a choice
         if i == ref:  # compared with itself: exactly 1, not an interval of two samples
             return Estimate(float(value), 1.0, 1.0, "reference")
         low, high = ratio_interval(x[i], n[i], x[ref], n[ref], confidence_level=confidence_level)

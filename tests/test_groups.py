@@ -271,3 +271,14 @@ def test_intersection_memory_follows_the_observed_groups():
     tracemalloc.stop()
     assert len(m.rows) == len(f.drop_duplicates())  # brute force: the distinct observed triples
     assert peak < 40 * 2**20, f"peak {peak / 2**20:.1f} MiB"
+
+
+def test_with_one_eligible_group_the_reference_is_no_choice():
+    # b and c are under 2 % of the rows, so a is the only eligible reference: plain MOVER-R, and a
+    # small group selected more often than a keeps its ratio above 1
+    frame, sel = _table([("a", 1000, 300), ("b", 15, 9), ("c", 15, 3)])
+    m = group_metrics(frame, sel, sel, attributes=["g"])
+    assert _row(m, "g", "a").impact_ratio.method == "reference"
+    b = _row(m, "g", "b").impact_ratio
+    assert b.method == "mover-wilson" and b.value == pytest.approx(2.0)
+    assert (b.low, b.high) == pytest.approx(_mover_r(9, 15, 300, 1000, 0.95), rel=1e-9)
