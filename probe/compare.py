@@ -1,10 +1,10 @@
 """Candidate against baseline on the same rows: paired differences, and where the candidate is worse.
 
 For each metric (error, FPR, FNR, selection) both models' rates get Wilson intervals and their paired
-difference (candidate minus baseline) an interval from a paired bootstrap. Because each row's pair of
-0/1 outcomes falls in one of four cells, resampling rows is exactly resampling the four cell counts
-from a multinomial, which is how it is done here (fast and exact, any number of rows). The p-value is
-the exact McNemar test on the discordant cells. Then the slice search runs on the per-row paired
+difference (candidate minus baseline) Tango's score interval for paired proportions
+(:func:`probe.paired.tango_interval`): it holds its level when the two models rarely disagree and is
+never of zero width, even when they agree on every row. The p-value is the exact McNemar test on the
+discordant cells. Then the slice search runs on the per-row paired
 difference, oriented so that larger is worse for the candidate (``worse_slices``).
 """
 
@@ -18,10 +18,11 @@ import pandas as pd
 from .errors import DataError, PlanError
 from .metrics import METRIC_NAMES, get_metric, metric_outcome
 from .options import SliceOptions
+from .paired import paired_difference
 from .slices import search_slices
 from .stats import Estimate, mcnemar_pvalue, wilson
 
-__all__ = ["MetricComparison", "Comparison", "compare_models", "paired_difference"]
+__all__ = ["MetricComparison", "Comparison", "compare_models"]
 
 
 @dataclass(frozen=True)
@@ -34,11 +35,14 @@ class MetricComparison:
     candidate, baseline : Estimate
         Wilson intervals.
     difference : Estimate
-        Candidate minus baseline, paired bootstrap percentile interval.
+        Candidate minus baseline, Tango's score interval for paired proportions.
     p_value : float
         Exact McNemar test on the discordant rows.
     discordant : tuple of int
         (rows where only the candidate has the outcome, rows where only the baseline has it).
+    rows : int
+        Rows in the metric's base (all rows; label-negatives for the FPR; label-positives for the
+        FNR).
     """
 
     metric: str
@@ -47,6 +51,7 @@ class MetricComparison:
     difference: Estimate
     p_value: float
     discordant: tuple[int, int]
+    rows: int
 
     @property
     def shortfall(self) -> Estimate:
@@ -55,13 +60,24 @@ class MetricComparison:
         For the error, FPR and FNR it is the difference itself; for the selection rate, where
         fewer favourable decisions is worse, it is the baseline minus the candidate.
         """
-        d = self.difference
+        return self._oriented(self.difference)
+
+    def shortfall_at(self, confidence_level: float) -> Estimate:
+        """:attr:`shortfall` with its Tango interval at ``confidence_level`` (two-sided).
+
+        At the comparison's own level it is exactly :attr:`shortfall`.
+        """
+        b, c = self.discordant
+        return self._oriented(paired_difference(b, c, self.rows,
+                                                confidence_level=confidence_level))
+
+    def _oriented(self, d: Estimate) -> Estimate:
         if get_metric(self.metric).sign > 0:
             return d
         return Estimate(-d.value, -d.high, -d.low, d.method)
 
     def to_dict(self) -> dict:
-        return {"metric": self.metric, "candidate": self.candidate.to_dict(),
+        return {"metric": self.metric, "rows": self.rows, "candidate": self.candidate.to_dict(),
                 "baseline": self.baseline.to_dict(), "difference": self.difference.to_dict(),
                 "shortfall": self.shortfall.to_dict(),
                 "p_value": self.p_value, "test": "mcnemar-exact",
@@ -144,38 +160,6 @@ def _worse_sentence(found: dict, metric: str, confidence_level: float) -> str:
             f"against {100 * rest:.1f} points on the other rows.")
 
 
-def paired_difference(cand, base, *, n_resamples: int = 4000, confidence_level: float = 0.95,
-                      rng=None) -> tuple[Estimate, float, tuple[int, int]]:
-    """Difference of two paired 0/1 rates with a paired-bootstrap interval and McNemar's p-value.
-
-    Parameters
-    ----------
-    cand, base : array_like of bool
-        Each row's outcome under the candidate and the baseline (same rows, same population).
-
-    Returns
-    -------
-    (Estimate, p_value, (b, c))
-        ``b`` rows where only the candidate has the outcome, ``c`` where only the baseline has it.
-    """
-    cand = np.asarray(cand, dtype=bool)
-    base = np.asarray(base, dtype=bool)
-    n = len(cand)
-    if n == 0:
-        nan = float("nan")
-        return Estimate(nan, nan, nan, "paired-bootstrap-percentile"), nan, (0, 0)
-    cells = np.array([np.sum(cand & base), np.sum(cand & ~base), np.sum(~cand & base),
-                      np.sum(~cand & ~base)], dtype=float)
-    rng = np.random.default_rng(rng)
-    draws = rng.multinomial(n, cells / n, size=n_resamples)
-    dist = (draws[:, 1] - draws[:, 2]) / n
-    alpha = (1 - confidence_level) / 2
-    low, high = np.quantile(dist, [alpha, 1 - alpha])
-    b, c = int(cells[1]), int(cells[2])
-    return (Estimate((b - c) / n, float(low), float(high), "paired-bootstrap-percentile"),
-            mcnemar_pvalue(b, c), (b, c))
-
-
 def compare_models(
     X: pd.DataFrame,
     y_true,
@@ -186,7 +170,6 @@ def compare_models(
     favorable: bool = True,
     options: SliceOptions | None = None,
     confidence_level: float = 0.95,
-    n_resamples: int = 4000,
     rng=0,
     encoding=None,
 ) -> Comparison:
@@ -207,8 +190,6 @@ def compare_models(
         The worse-slice search's options (its ``metric`` is not used: the search runs on ``metric``'s
         paired difference).
     confidence_level : float, default=0.95
-    n_resamples : int, default=4000
-        Paired bootstrap resamples (of the four cell counts).
     rng : None, int or numpy.random.Generator
     encoding : Encoding, optional
         The slice columns already encoded (the run's evidence); default: encode ``X``.
@@ -217,8 +198,6 @@ def compare_models(
     -------
     Comparison
     """
-    if not isinstance(n_resamples, (int, np.integer)) or n_resamples < 100:
-        raise PlanError(f"`n_resamples` must be an integer of at least 100, got {n_resamples!r}")
     if not 0.0 < confidence_level < 1.0:
         raise PlanError(
             f"`confidence_level` must lie strictly between 0 and 1, got {confidence_level!r}")
@@ -236,18 +215,17 @@ def compare_models(
             f"{len(outcomes[metric][0])} and {len(outcomes[metric][1])} decisions for {len(X)} rows"
         )
     rng = np.random.default_rng(rng)
-    boot_seed, search_seed = rng.spawn(2)
+    search_seed = rng.spawn(2)[1]  # the second child, as before the paired interval became closed-form
     results = []
     for name, (c_out, b_out, mask) in outcomes.items():
         c_in, b_in = c_out[mask].astype(bool), b_out[mask].astype(bool)
-        diff, p, disc = paired_difference(c_in, b_in, n_resamples=n_resamples,
-                                          confidence_level=confidence_level, rng=boot_seed)
-        m = int(mask.sum())
+        b, c, m = int(np.sum(c_in & ~b_in)), int(np.sum(~c_in & b_in)), int(mask.sum())
         results.append(MetricComparison(
             name,
             wilson(int(c_in.sum()), m, confidence_level=confidence_level),
             wilson(int(b_in.sum()), m, confidence_level=confidence_level),
-            diff, p, disc,
+            paired_difference(b, c, m, confidence_level=confidence_level),
+            mcnemar_pvalue(b, c), (b, c), m,
         ))
     c_out, b_out, mask = outcomes[metric]
     worse = get_metric(metric).sign * (c_out.astype(float) - b_out.astype(float))

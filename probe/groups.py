@@ -2,24 +2,33 @@
 
 For each protected attribute, and for each requested intersection of columns, every observed group gets
 its rows, share, selection rate (the favourable decision), error rate, TPR, FPR, FNR and PPV with Wilson
-intervals; the impact ratio against the most-favoured group (MOVER-R interval); the statistical parity
-difference and the equal opportunity difference against the same group (Newcombe intervals); and the
-four-fifths flag (impact ratio strictly below 0.8, 29 CFR 1607.4(D) and its Q&A 11, where exactly 0.80
-is not flagged). Groups under 2 % of the rows are flagged ``small`` and still reported; they are not
-eligible as the reference group unless every group is small. Rows whose value is missing are counted
-as unknown.
+intervals; the impact ratio against the reference group; the statistical parity difference and the
+equal opportunity difference against the same group (Newcombe intervals); and the four-fifths flag
+(impact ratio strictly below 0.8, 29 CFR 1607.4(D) and its Q&A 11, where exactly 0.80 is not flagged).
+Groups under 2 % of the rows are flagged ``small`` and still reported; they are not eligible as the
+reference group unless every group is small. Rows whose value is missing are counted as unknown.
+
+The reference group is the one the user fixes for the attribute, or else the most-favoured group
+(highest observed selection rate). A fixed reference gets the MOVER-R interval of the ratio of two
+rates. A reference chosen from the data is itself an estimate: what the impact ratio then estimates is
+the group's rate over the *truly* most-favoured group's, ``min(1, min_h r_g / r_h)`` over the eligible
+groups ``h``. Its interval is ``[min(1, min_h L_gh), min(1, min_h U_gh)]`` with MOVER-R intervals
+``(L_gh, U_gh)`` of every pairwise ratio at the Bonferroni level over the attribute's pairs, so that all
+pairwise intervals, and with them every group's interval, hold together at the stated level (the
+MOVER-R interval of ``r_h / r_g`` is the reciprocal of that of ``r_g / r_h``, so one per pair suffices).
 """
 
 from __future__ import annotations
 
 import warnings
 from dataclasses import dataclass, field
-from typing import Sequence
+from typing import Mapping, Sequence
 
 import numpy as np
 import pandas as pd
 
 from .counting import CellCounts, count_cells
+from .data import close_names
 from .encode import attribute_codes
 from .errors import DataError, DegenerateWarning
 from .metrics import FOUR_FIFTHS, as_favorable, favorable_decision
@@ -45,9 +54,15 @@ class GroupRow:
         Wilson intervals. TPR/FNR are over label-positives, FPR over label-negatives, PPV over
         positive decisions; ``selection_rate`` is the share given the favourable decision.
     impact_ratio : Estimate
-        Selection rate over the reference group's (MOVER-R).
+        Selection rate over the reference group's: MOVER-R (``"mover-wilson"``) against a fixed
+        reference; against a reference chosen from the data, the minimum over the eligible groups of
+        the pairwise MOVER-R limits at the Bonferroni level over the pairs, capped at 1
+        (``"mover-wilson-min-bonferroni"``; the reference's own row gets one too). See the module notes.
     reference_group : str
-        The most-favoured group (highest selection rate among groups that are not small).
+        The fixed reference, else the most-favoured group (highest selection rate among groups that
+        are not small).
+    reference_fixed : bool
+        Whether the reference was fixed by the user (True) or chosen from the data (False).
     four_fifths_flag : bool
         impact ratio strictly below four-fifths, decided on the counts (:func:`four_fifths_flag`).
     spd : Estimate
@@ -73,6 +88,15 @@ class GroupRow:
     four_fifths_flag: bool
     spd: Estimate
     eod: Estimate
+    reference_fixed: bool = False
+    _basis: tuple = field(default=(), repr=False, compare=False)
+
+    def impact_ratio_at(self, confidence_level: float) -> Estimate:
+        """:attr:`impact_ratio` with its interval at ``confidence_level`` (two-sided), by the same method.
+
+        At the report's own level it is exactly :attr:`impact_ratio`.
+        """
+        return _impact_estimate(*self._basis, confidence_level)
 
     def to_dict(self) -> dict:
         out = {"attribute": self.attribute, "group": self.group, "rows": self.rows,
@@ -80,7 +104,7 @@ class GroupRow:
         for name in _RATES:
             out[name] = getattr(self, name).to_dict()
         out.update(impact_ratio=self.impact_ratio.to_dict(), reference_group=self.reference_group,
-                   four_fifths_flag=self.four_fifths_flag, spd=self.spd.to_dict(),
+                   reference_fixed=self.reference_fixed, four_fifths_flag=self.four_fifths_flag, spd=self.spd.to_dict(),
                    eod=self.eod.to_dict())
         return out
 
@@ -118,7 +142,7 @@ class GroupMetrics:
         for row in self.rows:
             rec = {"attribute": row.attribute, "group": row.group, "rows": row.rows,
                    "share": row.share, "small": row.small, "reference_group": row.reference_group,
-                   "four_fifths_flag": row.four_fifths_flag}
+                   "reference_fixed": row.reference_fixed, "four_fifths_flag": row.four_fifths_flag}
             for name in (*_RATES, "impact_ratio", "spd", "eod"):
                 est = getattr(row, name)
                 rec[name], rec[f"{name}_low"], rec[f"{name}_high"] = est.value, est.low, est.high
@@ -175,6 +199,7 @@ def group_metrics(
     favorable: bool = True,
     confidence_level: float = 0.95,
     min_share: float = 0.02,
+    reference: Mapping[str, object] | None = None,
 ) -> GroupMetrics:
     """Rates, impact ratios and differences for every group of every attribute and intersection.
 
@@ -194,6 +219,10 @@ def group_metrics(
     confidence_level : float, default=0.95
     min_share : float, default=0.02
         Groups with a smaller share of the known rows are flagged ``small``.
+    reference : mapping, optional
+        The reference group per attribute (``{"sex": "F"}``; an intersection by its joined name and
+        level, ``{"race & sex": "b & F"}``). Attributes left out take the most-favoured group, and their
+        impact-ratio intervals allow for that choice.
 
     Returns
     -------
@@ -218,6 +247,13 @@ def group_metrics(
     favorable = as_favorable(favorable)
     per_row = _per_row(y_true, y_pred, favorable)
     specs = [(a, (a,)) for a in attributes] + [(" & ".join(c), tuple(c)) for c in intersections]
+    reference = {str(k): _level_text(v) for k, v in (reference or {}).items()}
+    for key in reference:
+        if key not in {name for name, _ in specs}:
+            names = [name for name, _ in specs]
+            raise DataError(f"a reference group is given for `{key}`, which is not a reported "
+                            f"attribute (reported: {', '.join(names) or 'none'})"
+                            + close_names(key, names))
     rows: list[GroupRow] = []
     unknown: dict[str, int] = {}
     notes: list[str] = []
@@ -238,11 +274,41 @@ def group_metrics(
         labels = [" & ".join(_level_text(parts[j][1][code]) for j, code in enumerate(cell))
                   for cell in counts.cells]
         c = _rates(counts, favorable)
-        rows.extend(_attribute_rows(name, labels, c, min_share, confidence_level, notes))
+        fixed = reference.get(name)
+        if fixed is not None and fixed not in labels:
+            raise DataError(f"reference group `{fixed}` of `{name}` is not an observed level "
+                            f"(levels: {', '.join(labels)})" + close_names(fixed, labels))
+        rows.extend(_attribute_rows(name, labels, c, min_share, confidence_level, notes, fixed))
     return GroupMetrics(tuple(rows), unknown, favorable, confidence_level, tuple(notes))
 
 
-def _attribute_rows(name, labels, c, min_share, confidence_level, notes):
+def _impact_estimate(x, n, i, ref, candidates, fixed, confidence_level) -> Estimate:
+    """Group ``i``'s impact ratio and its interval (the module notes give the method)."""
+    x, n = np.asarray(x, dtype=float), np.asarray(n, dtype=float)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        value = (x[i] / n[i]) / (x[ref] / n[ref]) if n[i] > 0 and x[ref] > 0 else np.nan
+    if fixed or len(candidates) < 2:  # one eligible group: the reference is not a choice
+        if i == ref:  # compared with itself: exactly 1, not an interval of two samples
+            return Estimate(float(value), 1.0, 1.0, "reference")
+        low, high = ratio_interval(x[i], n[i], x[ref], n[ref], confidence_level=confidence_level)
+        return Estimate(float(value), float(low), float(high), "mover-wilson")
+    others = np.array([h for h in candidates if h != i])
+    k, c = len(x), len(candidates)
+    pairs = c * (k - 1) - c * (c - 1) // 2  # unordered pairs with at least one eligible group
+    level = 1.0 - (1.0 - confidence_level) / pairs
+    lows, highs = ratio_interval(np.full(len(others), x[i]), np.full(len(others), n[i]), x[others],
+                                 n[others], confidence_level=level)
+    # a group with no favourable decision cannot be the truly most-favoured one: its ratio is left out
+    ok = x[others] > 0
+    cap = 1.0 if i in candidates else np.inf
+    if not ok.any() or np.isnan(value):
+        return Estimate(float(value), np.nan, np.nan, "mover-wilson-min-bonferroni")
+    low = min(cap, float(np.min(lows[ok])))
+    high = min(cap, float(np.min(highs[ok])))
+    return Estimate(float(value), low, high, "mover-wilson-min-bonferroni")
+
+
+def _attribute_rows(name, labels, c, min_share, confidence_level, notes, fixed=None):
     n = c["n"]
     share = n / n.sum()
     small = share < min_share
@@ -265,10 +331,11 @@ def _attribute_rows(name, labels, c, min_share, confidence_level, notes):
             notes.append(f"`{name}` = {labels[i]}: {key} undefined (no rows in its base)")
     sel_rate = est["selection_rate"][0]
     eligible = np.flatnonzero(~small) if (~small).any() else np.arange(len(labels))
-    ref = int(eligible[np.argmax(sel_rate[eligible])])  # first of equal rates: level order
+    if fixed is not None:
+        ref = labels.index(fixed)
+    else:
+        ref = int(eligible[np.argmax(sel_rate[eligible])])  # first of equal rates: level order
     xr, nr = c["sel"][ref], n[ref]
-    ir_low, ir_high = ratio_interval(c["sel"], n, np.full_like(n, xr, dtype=float),
-                                     np.full_like(n, nr, dtype=float), confidence_level=cl)
     sp_low, sp_high = newcombe_interval(c["sel"], n, np.full_like(n, xr, dtype=float),
                                         np.full_like(n, nr, dtype=float), confidence_level=cl)
     ox, on = c["opp_x"], c["opp_n"]
@@ -281,23 +348,26 @@ def _attribute_rows(name, labels, c, min_share, confidence_level, notes):
                       DegenerateWarning, stacklevel=3)
     with np.errstate(invalid="ignore", divide="ignore"):
         opp = np.where(on > 0, ox / np.where(on > 0, on, 1), np.nan)
-        ir = sel_rate / ref_rate if ref_rate > 0 else np.full(len(labels), np.nan)
+    counts = (tuple(float(v) for v in c["sel"]), tuple(float(v) for v in n))
+    candidates = tuple(int(h) for h in eligible)
     out = []
     for i, label in enumerate(labels):
         rates = {k: Estimate(float(v[i]), float(lo[i]), float(hi[i]), "wilson")
                  for k, (v, lo, hi) in est.items()}
-        if i == ref:  # compared with itself: exactly 1 and 0, not an interval of two samples
-            ir_low[i], ir_high[i], sp_low[i], sp_high[i] = 1.0, 1.0, 0.0, 0.0
+        if i == ref:  # compared with itself: exactly 0, not an interval of two samples
+            sp_low[i], sp_high[i] = 0.0, 0.0
             eo_low[i] = eo_high[i] = 0.0 if np.isfinite(opp[i]) else np.nan
+        basis = (*counts, i, ref, candidates, fixed is not None)
         out.append(GroupRow(
             attribute=name,
             group=label,
             rows=int(n[i]),
             share=float(share[i]),
             small=bool(small[i]),
-            impact_ratio=Estimate(float(ir[i]), float(ir_low[i]), float(ir_high[i]),
-                                  "reference" if i == ref else "mover-wilson"),
+            impact_ratio=_impact_estimate(*basis, cl),
             reference_group=labels[ref],
+            reference_fixed=fixed is not None,
+            _basis=basis,
             four_fifths_flag=four_fifths_flag(c["sel"][i], n[i], xr, nr),
             spd=Estimate(float(sel_rate[i] - ref_rate), float(sp_low[i]), float(sp_high[i]),
                          "reference" if i == ref else "newcombe"),

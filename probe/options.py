@@ -166,6 +166,23 @@ class DataOptions(_Checked):
     intersections: tuple[tuple[str, ...], ...] = opt((), help="joint groups to report", cli=False)
     features: tuple[str, ...] | None = opt(None, help="the model's input columns, in order",
                                            metavar="A,B,...")
+    reference_groups: tuple[str, ...] = opt((), flag="--reference-group", metavar="ATTR=LEVEL,...",
+                                            help="fix an attribute's reference group for the impact "
+                                                 "ratio (default: the most-favoured group, allowed "
+                                                 "for in the intervals)")
+
+    def __post_init__(self):
+        super().__post_init__()
+        for entry in self.reference_groups:
+            attribute, sep, level = entry.partition("=")
+            if not sep or not attribute.strip() or not level.strip():
+                raise PlanError(f"`data.reference_groups` entries are ATTRIBUTE=LEVEL, got {entry!r}")
+
+    @property
+    def references(self) -> dict[str, str]:
+        """``reference_groups`` as ``{attribute: level}`` (an intersection as ``"a & b": "x & y"``)."""
+        return {a.strip(): level.strip()
+                for a, _, level in (e.partition("=") for e in self.reference_groups)}
 
 
 @dataclass(frozen=True)
@@ -236,7 +253,6 @@ class CompareOptions(_Checked):
     SECTION = "compare"
     baseline: str = opt("", required=True, metavar="SPEC", help="the production model")
     metric: str = opt("error", choices=METRIC_NAMES, help="the rate compared and searched")
-    n_resamples: int = opt(4000, lo=100, hi=1_000_000, help="paired bootstrap resamples")
 
 
 @dataclass(frozen=True)

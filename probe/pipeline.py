@@ -129,7 +129,8 @@ def run_plan(plan: Plan, *, command: str | None = None, progress: Progress | Non
         with clock.step("groups"):
             found.groups = group_metrics(ev.frame, ev.y_true, ev.decision(),
                                          attributes=h.protected, intersections=h.intersections,
-                                         favorable=ev.favorable, confidence_level=cl)
+                                         favorable=ev.favorable, confidence_level=cl,
+                                         reference=plan.data.references)
     if plan.slices is not None:
         with clock.step("slices"):
             found.slices = find_slices(ev.frame, ev.y_true, ev.decision(), options=plan.slices,
@@ -150,7 +151,7 @@ def run_plan(plan: Plan, *, command: str | None = None, progress: Progress | Non
             found.comparison = compare_models(
                 ev.frame, ev.y_true, ev.decision(), ev.decision("baseline"),
                 metric=plan.compare.metric, favorable=ev.favorable, options=search,
-                n_resamples=plan.compare.n_resamples, confidence_level=cl, rng=seed,
+                confidence_level=cl, rng=seed,
                 encoding=ev.encoding)
             found.baseline = ev.model("baseline").describe()
     with clock.step("verdict"):

@@ -96,6 +96,10 @@ def test_groups_command_renders_on_a_narrow_plain_console(tmp_path, capsys):
      "does not occur"),
     (["groups", "--data", "{data}"], "required"),
     (["frobnicate"], "invalid choice"),
+    (["groups", "--model", "column:score", "--data", "{data}", "--label", "y", "--protected",
+      "group", "--reference-group", "group"], "entries are ATTRIBUTE=LEVEL, got 'group'"),
+    (["groups", "--model", "column:score", "--data", "{data}", "--label", "y", "--protected",
+      "group", "--reference-group", "group=C"], "reference group `C` of `group` is not an observed"),
 ])
 def test_bad_input_is_one_line_and_exit_2(tmp_path, capsys, argv, needle):
     data = _holdout(tmp_path, 0.3)
@@ -104,6 +108,19 @@ def test_bad_input_is_one_line_and_exit_2(tmp_path, capsys, argv, needle):
     err = capsys.readouterr().err.strip()
     assert err.startswith("error: ") and needle in err
     assert len(err.splitlines()) == 1 and "Traceback" not in err
+
+
+def test_a_fixed_reference_group_is_used_and_reported(tmp_path):
+    # B selects less (0.3 against 0.5), so the data would choose A; the flag fixes B instead
+    data = _holdout(tmp_path, 0.3)
+    out = tmp_path / "r.json"
+    argv = ["groups", "--model", "column:score", "--data", str(data), "--label", "y",
+            "--protected", "group", "--reference-group", "group=B", "--json", str(out)]
+    assert main(argv, console=_console()) == EXIT_OK
+    rows = {g["group"]: g for g in json.loads(out.read_text())["groups"]}
+    assert {g["reference_group"] for g in rows.values()} == {"B"}
+    assert all(g["reference_fixed"] for g in rows.values())
+    assert rows["A"]["impact_ratio"]["value"] > 1 and rows["B"]["impact_ratio"]["method"] == "reference"
 
 
 def test_unknown_plan_key_is_named(tmp_path, capsys):

@@ -3,28 +3,48 @@
 import numpy as np
 import pandas as pd
 import pytest
+from scipy.stats import binomtest
 from statsmodels.stats.contingency_tables import mcnemar
 
 from probe.adapters import load_model
-from probe.compare import compare_models, paired_difference
+from probe.compare import compare_models
 from probe.errors import DataError
+from probe.paired import tango_interval
 
 
-def test_paired_difference_against_brute_force_and_statsmodels():
+def test_overall_difference_against_brute_force_binomtest_and_tango():
     rng = np.random.default_rng(4)
     n = 3000
+    X = pd.DataFrame({"a": rng.integers(0, 3, size=n)})
+    y = rng.uniform(size=n) < 0.4
     base = rng.uniform(size=n) < 0.2
     cand = np.where(rng.uniform(size=n) < 0.9, base, rng.uniform(size=n) < 0.5)
-    est, p, (b, c) = paired_difference(cand, base, n_resamples=4000, rng=0)
-    assert est.value == pytest.approx(cand.mean() - base.mean(), abs=1e-12)
-    assert (b, c) == (int(np.sum(cand & ~base)), int(np.sum(~cand & base)))
+    m = next(r for r in compare_models(X, y, cand, base, rng=0).metrics if r.metric == "selection")
+    b, c = int(np.sum(cand & ~base)), int(np.sum(~cand & base))  # brute force
+    assert m.discordant == (b, c) and m.rows == n
+    assert m.difference.value == pytest.approx(cand.mean() - base.mean(), abs=1e-12)
+    # exact McNemar = the two-sided binomial test on the discordant rows (scipy), and statsmodels
+    assert m.p_value == pytest.approx(binomtest(b, b + c, 0.5).pvalue, rel=1e-12)
     table = [[np.sum(cand & base), b], [c, np.sum(~cand & ~base)]]
-    assert p == pytest.approx(mcnemar(table, exact=True).pvalue, rel=1e-10)  # statsmodels
-    # the multinomial shortcut equals resampling rows: compare with a naive row bootstrap
-    idx = rng.integers(0, n, size=(2000, n))
-    naive = (cand[idx].mean(1) - base[idx].mean(1))
-    assert est.low == pytest.approx(np.quantile(naive, 0.025), abs=0.003)
-    assert est.high == pytest.approx(np.quantile(naive, 0.975), abs=0.003)
+    assert m.p_value == pytest.approx(mcnemar(table, exact=True).pvalue, rel=1e-10)
+    assert (m.difference.low, m.difference.high) == tuple(map(float, tango_interval(b, c, n)))
+    # selection: fewer favourable decisions is worse, so the shortfall is the negated difference
+    assert m.shortfall.value == -m.difference.value and m.shortfall.low == -m.difference.high
+    assert m.shortfall_at(0.95) == m.shortfall
+    wide = m.shortfall_at(0.999)
+    assert wide.low < m.shortfall.low and wide.high > m.shortfall.high
+
+
+def test_models_that_always_agree_get_an_interval_of_positive_width():
+    # the bootstrap gave [0, 0] here, which passes any bound; Tango gives ±z²/(n + z²)
+    n = 500
+    X = pd.DataFrame({"a": np.arange(n) % 3})
+    y = np.arange(n) % 2 == 0
+    pred = np.arange(n) % 5 == 0
+    m = compare_models(X, y, pred, pred, rng=0).overall
+    z2 = 1.959963984540054 ** 2
+    assert m.difference.value == 0 and m.difference.high == pytest.approx(z2 / (n + z2))
+    assert m.shortfall_at(0.99).high > m.difference.high > 0
 
 
 def test_identical_models_show_no_difference_and_no_worse_slice():

@@ -171,11 +171,75 @@ def test_shape_mismatch_is_a_clear_error():
         group_metrics(pd.DataFrame({"g": ["a", "b"]}), [True], [True, False], attributes=["g"])
 
 
-def test_the_reference_group_is_exactly_one_not_an_interval():
+def test_a_fixed_reference_group_is_exactly_one_not_an_interval():
     frame, sel = _table([("a", 100, 60), ("b", 100, 40)])
-    ref = _row(group_metrics(frame, sel, sel, attributes=["g"]), "g", "a")
+    m = group_metrics(frame, sel, sel, attributes=["g"], reference={"g": "a"})
+    ref = _row(m, "g", "a")
     assert (ref.impact_ratio.value, ref.impact_ratio.low, ref.impact_ratio.high) == (1.0, 1.0, 1.0)
     assert (ref.spd.low, ref.spd.high) == (0.0, 0.0) and ref.impact_ratio.method == "reference"
+    assert ref.reference_fixed and ref.to_dict()["reference_fixed"] is True
+
+
+def _mover_r(x1, n1, x2, n2, level):
+    """Donner & Zou (2012) MOVER-R, written out here on statsmodels' Wilson limits."""
+    (l1, u1), (l2, u2) = (proportion_confint(x, n, alpha=1 - level, method="wilson")
+                          for x, n in ((x1, n1), (x2, n2)))
+    p1, p2 = x1 / n1, x2 / n2
+    low = (p1 * p2 - np.sqrt((p1 * p2) ** 2 - l1 * u2 * (2 * p1 - l1) * (2 * p2 - u2))) / (
+        u2 * (2 * p2 - u2))
+    high = (p1 * p2 + np.sqrt((p1 * p2) ** 2 - u1 * l2 * (2 * p1 - u1) * (2 * p2 - l2))) / (
+        l2 * (2 * p2 - l2))
+    return max(low, 0.0), high
+
+
+COUNTS = [("a", 400, 130), ("b", 300, 100), ("c", 350, 90), ("d", 200, 68)]
+
+
+def test_a_fixed_reference_uses_the_two_group_interval():
+    frame, sel = _table(COUNTS)
+    m = group_metrics(frame, sel, sel, attributes=["g"], reference={"g": "c"})
+    assert {r.reference_group for r in m.rows} == {"c"}
+    row = _row(m, "g", "a")
+    assert row.impact_ratio.method == "mover-wilson"
+    assert (row.impact_ratio.low, row.impact_ratio.high) == pytest.approx(
+        _mover_r(130, 400, 90, 350, 0.95), rel=1e-9)
+    assert row.impact_ratio.value == pytest.approx((130 / 400) / (90 / 350))
+
+
+def test_a_reference_chosen_from_the_data_takes_the_minimum_over_bonferroni_pairs():
+    # brute force: every group against every other at 1 - 0.05/6 (4 groups, 6 pairs), min, capped at 1
+    frame, sel = _table(COUNTS)
+    m = group_metrics(frame, sel, sel, attributes=["g"])
+    rates = {g: x / n for g, n, x in COUNTS}
+    assert {r.reference_group for r in m.rows} == {"d"} and not m.rows[0].reference_fixed
+    for g, n, x in COUNTS:
+        limits = [_mover_r(x, n, x2, n2, 1 - 0.05 / 6) for h, n2, x2 in COUNTS if h != g]
+        row = _row(m, "g", g)
+        assert row.impact_ratio.method == "mover-wilson-min-bonferroni"
+        assert row.impact_ratio.value == pytest.approx(rates[g] / rates["d"])
+        assert row.impact_ratio.low == pytest.approx(min(1.0, *(lo for lo, _ in limits)), rel=1e-9)
+        assert row.impact_ratio.high == pytest.approx(min(1.0, *(hi for _, hi in limits)), rel=1e-9)
+    # the chosen reference is itself uncertain: b (33.3 %) may truly be ahead of d (34 %)
+    assert _row(m, "g", "d").impact_ratio.low < 1.0 == _row(m, "g", "d").impact_ratio.high
+
+
+def test_impact_ratio_at_its_own_level_is_the_reported_interval():
+    frame, sel = _table(COUNTS)
+    for reference in (None, {"g": "b"}):
+        m = group_metrics(frame, sel, sel, attributes=["g"], confidence_level=0.9,
+                          reference=reference)
+        for row in m.rows:
+            assert row.impact_ratio_at(0.9) == row.impact_ratio
+            wide = row.impact_ratio_at(0.999)
+            assert wide.low <= row.impact_ratio.low and wide.high >= row.impact_ratio.high
+
+
+def test_a_reference_for_an_unknown_attribute_or_level_is_one_clear_error():
+    frame, sel = _table(COUNTS)
+    with pytest.raises(DataError, match="`gg`, which is not a reported attribute.*`g`"):
+        group_metrics(frame, sel, sel, attributes=["g"], reference={"gg": "a"})
+    with pytest.raises(DataError, match="reference group `A` of `g` is not an observed level.*`a`"):
+        group_metrics(frame, sel, sel, attributes=["g"], reference={"g": "A"})
 
 
 def test_an_impact_ratio_of_exactly_four_fifths_is_not_flagged():
@@ -207,3 +271,14 @@ def test_intersection_memory_follows_the_observed_groups():
     tracemalloc.stop()
     assert len(m.rows) == len(f.drop_duplicates())  # brute force: the distinct observed triples
     assert peak < 40 * 2**20, f"peak {peak / 2**20:.1f} MiB"
+
+
+def test_with_one_eligible_group_the_reference_is_no_choice():
+    # b and c are under 2 % of the rows, so a is the only eligible reference: plain MOVER-R, and a
+    # small group selected more often than a keeps its ratio above 1
+    frame, sel = _table([("a", 1000, 300), ("b", 15, 9), ("c", 15, 3)])
+    m = group_metrics(frame, sel, sel, attributes=["g"])
+    assert _row(m, "g", "a").impact_ratio.method == "reference"
+    b = _row(m, "g", "b").impact_ratio
+    assert b.method == "mover-wilson" and b.value == pytest.approx(2.0)
+    assert (b.low, b.high) == pytest.approx(_mover_r(9, 15, 300, 1000, 0.95), rel=1e-9)

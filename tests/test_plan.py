@@ -40,6 +40,10 @@ def test_minimal_plan_has_defaults(tmp_path):
     ({**MINIMAL, "data": {"path": "h", "label": "y", "protected": "sex", "intersections": ["sex"]}},
      r"`data.intersections` must be a list of lists"),
     ({**MINIMAL, "model": {"spec": "m", "trust_pickle": "yes"}}, r"must be true or false"),
+    ({**MINIMAL, "data": {"path": "h", "label": "y", "reference_groups": ["sex:F"]}},
+     r"`data.reference_groups` entries are ATTRIBUTE=LEVEL, got 'sex:F'"),
+    ({**MINIMAL, "compare": {"baseline": "b", "n_resamples": 4000}},
+     r"unknown key `n_resamples` in \[compare\]"),
 ])
 def test_every_validation_message(raw, message):
     with pytest.raises(PlanError, match=message):
@@ -60,6 +64,12 @@ def test_bad_toml_and_missing_file(tmp_path):
     bad.write_text("[data\npath=")
     with pytest.raises(PlanError, match="not valid TOML"):
         load_plan(bad)
+
+
+def test_reference_groups_become_a_mapping():
+    raw = {**MINIMAL, "data": {"path": "h", "label": "y",
+                               "reference_groups": ["sex = F", "race & sex=b & F"]}}
+    assert plan_from_dict(raw).data.references == {"sex": "F", "race & sex": "b & F"}
 
 
 def test_to_dict_round_trips():

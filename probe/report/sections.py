@@ -94,6 +94,22 @@ def _group_plot(attribute: str, rows: Sequence[Mapping], level: str) -> Plot:
     )
 
 
+def _reference_note(row: Mapping) -> str:
+    """Which group the impact ratios are against, and whether it was fixed or chosen from the data."""
+    ref = row.get("reference_group")
+    if ref is None:
+        return "No reference group."
+    how = {True: " (fixed in the plan)", False: " (the highest selection rate, chosen from the data)"}
+    return f"Reference group: {ref}{how.get(row.get('reference_fixed'), '')}."
+
+
+_CHOSEN_REFERENCE = (
+    "Where the reference group is chosen from the data, the impact ratio's interval allows for the "
+    "choice: it is the lowest of the group's ratio intervals against every eligible group, each at the "
+    "{level} level divided by the attribute's number of pairs (Bonferroni), and at most 1, so all of an "
+    "attribute's impact-ratio intervals hold together at the {level} level.")
+
+
 def groups(report: Mapping) -> Section:
     rows = report.get("groups")
     if rows is None:
@@ -118,17 +134,18 @@ def groups(report: Mapping) -> Section:
         Column("FNR", "false-negative rate", numeric=True, compact="value"),
         Column("PPV", "positive predictive value", numeric=True, compact=""),
     )
+    chosen = any(g.get("reference_fixed") is False for g in rows)
     blocks: list = [Paragraph((
         f"Rates with {level} intervals, each group against its attribute's reference group. "
-        "(small) marks a group under 2 % of the rows.",
+        "(small) marks a group under 2 % of the rows."
+        + (" " + _CHOSEN_REFERENCE.format(level=level) if chosen else ""),
     ))]
     by_attribute: dict[str, list[Mapping]] = {}
     for g in rows:
         by_attribute.setdefault(str(g.get("attribute")), []).append(g)
     unknown = report.get("groups_unknown") or {}
     for attribute, members in by_attribute.items():
-        ref = members[0].get("reference_group")
-        note = f"Reference group: {ref}." if ref is not None else "No reference group."
+        note = _reference_note(members[0])
         if unknown.get(attribute):
             note += f" {fmt_count(unknown[attribute])} rows with this attribute missing are left out."
         blocks += [Heading(attribute), Paragraph((note,)), _group_plot(attribute, members, level)]
@@ -371,7 +388,8 @@ def comparison(report: Mapping) -> Section:
         blocks.append(Table((
             Column("metric"), Column("candidate", f"{level} interval", numeric=True),
             Column("baseline", f"{level} interval", numeric=True),
-            Column("difference", f"candidate minus baseline, {level} interval", numeric=True),
+            Column("difference", f"candidate minus baseline, {level} interval (Tango's score "
+                                 "interval for paired rates)", numeric=True),
             Column("p", "p-value of the paired test", numeric=True), Column("test", compact=""),
         ), tuple((text_cell(m.get("metric")), est_cell(m.get("candidate")),
                   est_cell(m.get("baseline")), est_cell(m.get("difference")),
