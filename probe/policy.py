@@ -330,10 +330,14 @@ def measure(*, groups=None, slices=None, flips=None, comparison=None,
     if groups is None:
         out["min_impact_ratio"] = None
     else:
+        judged = [r for r in groups.rows if r.group != r.reference_group and not r.small]
         ms = tuple(Measure(f"{r.attribute} = {r.group} (vs {r.reference_group})", r.impact_ratio,
-                           r.impact_ratio_at, r.n)
-                   for r in groups.rows if r.group != r.reference_group and not r.small)
-        out["min_impact_ratio"] = Family(ms, len(ms), f"{len(ms)} groups")
+                           r.impact_ratio_at, r.rows) for r in judged)
+        # an attribute whose reference was chosen from the data has intervals that already hold
+        # together (Bonferroni over its pairs, see probe.groups): one hypothesis for all its groups
+        chosen = {r.attribute for r in judged if not r.reference_fixed}
+        size = len(chosen) + sum(1 for r in judged if r.attribute not in chosen)
+        out["min_impact_ratio"] = Family(ms, size, f"{len(ms)} groups of {len({r.attribute for r in judged})} attributes")
     flip_ms = tuple(m for f in flips or () for row in f.rows
                     if (m := _flip_measure(row, confidence_level)) is not None)
     out["max_flip_rate"] = Family(flip_ms, len(flip_ms),

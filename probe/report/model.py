@@ -21,7 +21,6 @@ from typing import Union
 from .fmt import (
     bound_text,
     caution_of,
-    confidence_text,
     fmt_count,
     fmt_interval,
     fmt_num,

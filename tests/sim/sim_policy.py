@@ -19,7 +19,6 @@ Command: ``python tests/sim/run.py policy --runs 300``.
 from __future__ import annotations
 
 import numpy as np
-import pandas as pd
 
 from generators import group_column, mixed_frame
 from harness import proportion
