@@ -10,7 +10,6 @@ import pytest
 from scipy import stats
 from scipy.special import expit
 from statsmodels.stats.proportion import proportion_confint
-from statsmodels.stats.weightstats import DescrStatsW
 
 from probe.errors import DataError, ModelError, PlanError
 from probe.proxies import find_proxies
@@ -303,7 +302,8 @@ def test_transport_recovers_the_closed_form_indirect_effect():
     assert row.to_favorable.low <= truth <= row.to_favorable.high
     assert row.to_unfavorable.value == 0
     assert row.moved == ("income",)
-    moved = model.seen[-1]["income"].to_numpy() - X.loc[X.group == "B", "income"].to_numpy()
+    # the calls: the rows as they are, transported, the placebo, the bootstrap's replicates
+    moved = model.seen[-3]["income"].to_numpy() - X.loc[X.group == "B", "income"].to_numpy()
     assert np.median(moved) == pytest.approx(10, abs=0.3)
     assert "not a model input" in row.sentence
     # the direct mode has nothing to flip: no rows, a note
@@ -436,12 +436,8 @@ def test_twins_equal_brute_force_nearest_neighbours():
                               (row.excess, cross[0] | cross[1], own[0] | own[1]),
                               (row.excess_score_change, cross[2], own[2])]:
                 d = c.astype(float) - o
-                # reference: statsmodels' normal-theory interval for a mean, on the brute-force
-                # per-person paired differences
-                lo, hi = DescrStatsW(d).zconfint_mean(alpha=0.05)
-                assert (got.value, got.low, got.high) == pytest.approx((d.mean(), lo, hi),
-                                                                       abs=1e-12)
-                assert got.method == "paired-wald"
+                assert got.value == pytest.approx(d.mean(), abs=1e-12)
+                assert got.method == "half-sample-t" and got.low < got.value < got.high
         else:
             assert row.twin_pool == 148
 
@@ -457,7 +453,9 @@ def _wide_score(f):
     return expit(f["x1"] + f["x2"] / 3 + f["x3"] - f["x4"] + 0.5 * (f["kind"] == "u"))
 
 
-@pytest.mark.parametrize("share_a, seed, width", [(0.5, 0, 0.025), (0.25, 1, 0.03)])
+# the widths: the subsample standard error counts shared twins and the pool draw, so the interval
+# is wider than a per-person Wald one (which covered too rarely); still a few points at most
+@pytest.mark.parametrize("share_a, seed, width", [(0.5, 0, 0.035), (0.25, 1, 0.045)])
 def test_twins_excess_of_a_group_blind_model_covers_zero(share_a, seed, width):
     # planted truth: the groups have identical feature distributions and the model never reads the
     # group, so nothing is attributable to it; near the boundary twins still disagree (raw > 0)
@@ -479,7 +477,6 @@ def test_twins_excess_of_a_group_blind_model_covers_zero(share_a, seed, width):
         n_a, n_b = (X.group == "A").sum(), (X.group == "B").sum()
         assert {r.twin_pool for r in res.rows} == {n_a, n_a - 1}
         assert sum("pools of equal size" in n for n in res.notes) == 2
-        assert any("understates" in n for n in res.notes)  # B's people share A-sized pools
         assert n_b > 2 * n_a
 
 
@@ -550,7 +547,7 @@ def test_twins_without_an_own_group_control_say_so():
     b = next(r for r in res.rows if r.from_ == "B").to_dict()
     json.dumps(b)
     assert set(b["excess"]) == {"value", "low", "high", "method"}
-    assert b["excess"]["method"] == "paired-wald" and b["twin_pool"] > 0
+    assert b["excess"]["method"] == "half-sample-t" and b["twin_pool"] > 0
     frame = res.to_frame()
     assert {"control_rate", "excess_low", "excess_high"} <= set(frame.columns)
 
