@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+from dataclasses import replace
 
 import numpy as np
 import pandas as pd
@@ -787,3 +788,84 @@ def test_transport_moves_the_proxies_of_the_ranking_it_is_given():
         flip_test(model, X, "group", mode="transport",
                   proxy_ranking=find_proxies(X, "postcode", features=["income"],
                                              multivariate=False))
+
+
+# -- transport's placebo and intervals, judged estimates ---------------------------------------
+
+
+def test_weighted_quantile_map_equals_numpy_hazen_quantiles_of_the_expanded_samples():
+    # reference: scipy's mid-ranks of the expanded (repeated) source sample and numpy's "hazen"
+    # quantiles of the expanded target sample
+    from probe.flips.transport_maps import weighted_quantile_map
+
+    g = np.random.default_rng(5)
+    src = np.sort(np.round(g.normal(size=40), 1))  # ties
+    tgt = np.sort(g.gamma(2.0, size=30))
+    ws, wt = g.integers(0, 4, 40), g.integers(0, 4, 30)
+    ws[0] = wt[0] = 1
+    big_src, big_tgt = np.repeat(src, ws), np.repeat(tgt, wt)
+    rows = np.flatnonzero(ws > 0)
+    got = weighted_quantile_map(src[rows], src, ws, tgt, wt)
+    ranks = stats.rankdata(big_src)
+    q = (ranks[np.searchsorted(big_src, src[rows])] - 0.5) / len(big_src)
+    # the mid-rank of a tie block is the same for every member, so the first member's stands for it
+    want = np.quantile(big_tgt, q, method="hazen")
+    np.testing.assert_allclose(got, want, rtol=0, atol=1e-12)
+
+
+def _proxy_data(n, shift, seed):
+    g = np.random.default_rng(seed)
+    grp = g.choice(["A", "B"], n)
+    return pd.DataFrame({"group": grp, "p": g.normal(size=n) + shift * (grp == "A"),
+                         "u": g.normal(size=n)})
+
+
+def test_transport_reports_a_placebo_and_judges_the_excess():
+    X = _proxy_data(3000, 1.0, 3)
+    model = Wrapped(lambda f: expit(6 * (f["p"] + f["u"] / 2)), ["p", "u"])
+    res = flip_test(model, X, "group", mode="transport", reference="A", proxies=["p"])
+    (row,) = res.rows
+    assert row.judged_what == "excess over the placebo"
+    assert row.excess.value == pytest.approx(row.flip_rate.value - row.placebo_rate.value,
+                                             abs=1e-12)
+    assert row.excess.low > 0.1  # a real shift of one standard deviation moves many decisions
+    assert row.judged_at(0.95) == row.excess  # exactly the interval the row shows
+    wide, narrow = row.judged_at(0.99), row.judged_at(0.8)
+    assert wide.low < row.excess.low < narrow.low < narrow.high < row.excess.high < wide.high
+    out = row.to_dict()
+    assert out["placebo_rate"]["method"] == "wilson-design-effect"
+    assert out["excess"]["method"] == "bootstrap-normal"
+    assert "placebo" in row.sentence and "excess_se" not in out
+
+
+def test_transport_placebo_size_matches_the_real_map_noise():
+    from probe.flips.transport import placebo_size
+
+    # 1/h - 1/n = 1/n + 1/n_to: half the group when the target group is much larger
+    for n, n_to in [(1000, 1000), (900, 100), (100, 10**7)]:
+        h = placebo_size(n, n_to)
+        assert abs((1 / h - 1 / n) - (1 / n + 1 / n_to)) < 0.02 * (1 / n + 1 / n_to)
+    assert placebo_size(100, 10**7) == 50
+
+
+def test_judged_at_direct_is_the_wilson_interval_at_any_level():
+    X = pd.DataFrame({"sex": ["F", "M"] * 50, "income": np.linspace(0, 99, 100)})
+    model = Wrapped(lambda f: np.clip(f["income"] / 100 + 0.1 * (f["sex"] == "M"), 0, 1),
+                    ["sex", "income"])
+    row = flip_test(model, X, "sex", reference="M").rows[0]
+    assert row.judged_what == "flip rate" and row.judged_at(0.95) == row.flip_rate
+    got = row.judged_at(0.8)
+    lo, hi = proportion_confint(5, 50, alpha=0.2, method="wilson")  # 5 of the 50 F rows flip
+    assert (got.low, got.high) == pytest.approx((lo, hi), abs=1e-12)
+
+
+def test_judged_at_twins_is_the_shown_excess_and_none_without_a_control():
+    X = _wide_twin_data(1500, 0.5, 4)
+    model = Wrapped(_wide_score, ["x1", "x2", "x3", "x4", "kind"])
+    for row in flip_test(model, X, "group", mode="twins").rows:
+        assert row.judged_what == "excess over own-group twins"
+        assert row.judged_at(0.95) == row.excess
+        assert row.judged_at(0.9).high < row.excess.high
+    impossible = replace(row, impossible=True)
+    assert impossible.judged_at(0.95) is None
+    assert replace(row, excess=None).judged_at(0.95) is None
