@@ -35,7 +35,7 @@ from .context import FlipContext, impossible_row, pair_row, score, set_column
 from .findings import (SCREEN_CAUTION, FlipFindings, pair_sentence, placebo_sentence,
                        spread_interval)
 from .transport_boot import transport_variances
-from .transport_maps import move_proxy, prepare_proxy
+from .transport_maps import level_order, move_proxy, prepare_proxy
 
 __all__ = ["transport_flips", "MIN_PROXY_AUC"]
 
@@ -78,12 +78,17 @@ def transport_flips(ctx: FlipContext, *, proxies, n_proxies, proxy_ranking, pair
             cf = set_column(cf, attribute, dst)
         tgt = ctx.group_rows[dst]
         pgen = np.random.default_rng(seed)
+        # each categorical proxy's coupling priority, shared by the placebo and the bootstrap so
+        # that their couplings move the same rows where they can
+        orders = {}
         for p in proxies:
-            cf[p] = move_proxy(X[p], prepared[p], idx, tgt, pgen)
+            if prepared[p][0] == "categorical":
+                orders[p] = level_order(prepared[p][1][idx], pgen)
+            cf[p] = move_proxy(X[p], prepared[p], idx, tgt, orders.get(p))
         new = score(ctx.model, cf, f"the {len(idx)} rows of `{attribute}` = {src!r} transported "
                                    f"to {dst!r}")
         row = pair_row(ctx, "transport", src, dst, idx, base[idx], new, moved)
-        rows.append(_with_placebo(ctx, row, proxies, prepared, idx, tgt, dst, new, pgen))
+        rows.append(_with_placebo(ctx, row, proxies, prepared, orders, idx, tgt, dst, new, pgen))
     return _findings(ctx, tuple(rows), tuple(proxies))
 
 
@@ -92,7 +97,7 @@ def placebo_size(n, n_to) -> int:
     return int(round(n * n_to / (n + 2 * n_to)))
 
 
-def _with_placebo(ctx, row, proxies, prepared, idx, tgt, dst, new, gen):
+def _with_placebo(ctx, row, proxies, prepared, orders, idx, tgt, dst, new, gen):
     """The row with its placebo, its bootstrap intervals and its sentence. Unchanged when no proxy
     moves (only the attribute changes: no map, no placebo, the flip rate is judged); no placebo
     when the group is too small to split (fewer than 2 rows in the placebo's part)."""
@@ -103,17 +108,17 @@ def _with_placebo(ctx, row, proxies, prepared, idx, tgt, dst, new, gen):
     if h < 2:
         ctx.notes.append(f"transport {row.from_!r} -> {dst!r}: the {row.from_!r} group is too "
                          "small to split for a placebo")
-        return replace(row, sentence=row.sentence + " " + placebo_sentence(row, ctx.confidence_level))
+        return replace(row, sentence=f"{row.sentence} {placebo_sentence(row, ctx.confidence_level)}")
     part = idx[np.sort(gen.choice(n, h, replace=False))]
     cf = X.iloc[idx].copy(deep=False)
     for p in proxies:
-        cf[p] = move_proxy(X[p], prepared[p], idx, part, gen)
+        cf[p] = move_proxy(X[p], prepared[p], idx, part, orders.get(p))
     old = ctx.decisions(ctx.base_scores[idx])
     flips = ctx.decisions(new) != old
-    placebo = ctx.decisions(score(ctx.model, cf, f"the {n} rows of `{ctx.attribute}` = "
-                                                 f"{row.from_!r} mapped onto {h} of themselves")) != old
-    var_real, var_pl, var_ex = transport_variances(ctx, proxies, prepared, idx, tgt, h, dst, flips,
-                                                   placebo, gen)
+    what = f"the {n} rows of `{ctx.attribute}` = {row.from_!r} mapped onto {h} of themselves"
+    placebo = ctx.decisions(score(ctx.model, cf, what)) != old
+    var_real, var_pl, var_ex = transport_variances(ctx, proxies, prepared, orders, idx, tgt, h, dst,
+                                                   flips, placebo, gen)
     cl = ctx.confidence_level
     deff = _design_effect(flips.sum(), n, var_real)
     rates = [_deff_wilson(e.value * n, n, deff, cl) for e in

@@ -22,13 +22,15 @@ are computed from bootstrap counts on the sorted values (no re-sorting), and all
 go to the model in one call: ``B · m · (1 - 1/e) · 2`` rows (real and placebo), about
 ``0.63 · 2 · 100 · 500 = 63,000`` at the defaults.
 
-Copies of a row drawn more than once share one categorical draw (their indicators are taken as
-equal), which can only widen the interval.
+A categorical proxy's replicate coupling keeps the estimate's priority order, so a row changes
+level only when the counts push it across its level's cut. Copies of a row drawn more than once
+share its first copy's new level (their indicators are taken as equal), which can only widen the
+interval.
 
 References
 ----------
-Efron, B. & Tibshirani, R. (1993). An Introduction to the Bootstrap, ch. 6 (the bootstrap estimate of
-standard error) and ch. 23 (control variates: an exact part plus a simulated correction).
+Efron, B. & Tibshirani, R. (1993). An Introduction to the Bootstrap, ch. 6 (the bootstrap
+estimate of standard error) and ch. 23 (an exact part plus a simulated correction).
 """
 
 from __future__ import annotations
@@ -37,7 +39,7 @@ import numpy as np
 import pandas as pd
 
 from .context import FlipContext, score, set_column
-from .transport_maps import (largest_remainder, proxy_values, transport_categorical,
+from .transport_maps import (coupled_codes, largest_remainder, proxy_values,
                              weighted_quantile_map)
 
 __all__ = ["transport_variances", "BOOT_REPS", "BOOT_ROWS"]
@@ -48,18 +50,20 @@ BOOT_ROWS = 500
 """Source rows (a fixed random subsample) re-scored under each replicate's maps."""
 
 
-def transport_variances(ctx: FlipContext, proxies, prepared, idx, tgt, h, dst, flips, placebo,
-                        gen) -> tuple:
+def transport_variances(ctx: FlipContext, proxies, prepared, orders, idx, tgt, h, dst, flips,
+                        placebo, gen) -> tuple:
     """Bootstrap variances of the flip rate, the placebo's rate and the excess of one pair.
 
-    ``flips`` and ``placebo`` are the per-row flip indicators of the ``n`` source rows ``idx`` under
+    ``orders`` holds each categorical proxy's coupling priority (the estimate's, so that a row's
+    move changes in a replicate only when the counts push it across its level's cut). ``flips``
+    and ``placebo`` are the per-row flip indicators of the ``n`` source rows ``idx`` under
     the estimated real map (onto ``tgt``) and placebo map (onto ``h`` source rows); ``gen`` draws
     the replicates. Returns ``(var_real, var_placebo, var_excess)``, each at least 0.
     """
     n, nt = len(idx), len(tgt)
     m = min(n, BOOT_ROWS)
     sub = np.sort(gen.choice(n, m, replace=False))
-    movers = [_Resampled(ctx.X[p], prepared[p], idx, tgt) for p in proxies]
+    movers = [_Resampled(ctx.X[p], prepared[p], orders.get(p), idx, tgt) for p in proxies]
     exact = np.empty((BOOT_REPS, 2))
     live, weights, real_cols, pl_cols = [], [], [[] for _ in proxies], [[] for _ in proxies]
     for b in range(BOOT_REPS):
@@ -69,13 +73,11 @@ def transport_variances(ctx: FlipContext, proxies, prepared, idx, tgt, h, dst, f
         wh = np.bincount(draw[:h], minlength=n)  # the placebo's part: h of the resampled rows
         exact[b] = ws @ flips / n, ws @ placebo / n
         rows = sub[ws[sub] > 0]
-        first = np.empty(n, dtype=np.int64)
-        first[draw[::-1]] = np.arange(n - 1, -1, -1)  # each drawn row's first copy in the draw
         live.append(rows)
         weights.append(ws[rows])
         for j, mv in enumerate(movers):
-            real_cols[j].append(mv.mapped(ws, wt, rows, draw, first[rows], gen))
-            pl_cols[j].append(mv.mapped(ws, wh, rows, draw, first[rows], gen, placebo=True))
+            real_cols[j].append(mv.mapped(ws, wt, rows))
+            pl_cols[j].append(mv.mapped(ws, wh, rows, placebo=True))
     rows = np.concatenate(live)
     new = _score_batch(ctx, idx[rows], proxies, prepared, real_cols, pl_cols, dst)
     old = ctx.decisions(ctx.base_scores[idx[rows]])
@@ -89,7 +91,8 @@ def transport_variances(ctx: FlipContext, proxies, prepared, idx, tgt, h, dst, f
         theta, noise = np.empty(BOOT_REPS), np.empty(BOOT_REPS)
         for b in range(BOOT_REPS):
             full = np.zeros(m)  # rows of the subsample not drawn weigh 0
-            full[:bounds[b + 1] - bounds[b]] = w[bounds[b]:bounds[b + 1]] * d[bounds[b]:bounds[b + 1]]
+            part = slice(bounds[b], bounds[b + 1])
+            full[:part.stop - part.start] = w[part] * d[part]
             theta[b] = base[b] + full.mean()
             noise[b] = full.var(ddof=1) if m > 1 else 0.0
         var = theta.var(ddof=1) - noise.mean() * (1.0 / m - 1.0 / n)
@@ -114,14 +117,14 @@ def _score_batch(ctx, positions, proxies, prepared, real_cols, pl_cols, dst):
 class _Resampled:
     """One proxy of one pair, ready to be re-mapped under bootstrap counts of both groups."""
 
-    def __init__(self, col, prepared, idx, tgt):
+    def __init__(self, col, prepared, order, idx, tgt):
         self.kind = prepared[0]
         if self.kind == "numeric":
             v = prepared[1]
             self.integer = pd.api.types.is_integer_dtype(col.dtype)
             self.src = v[idx]
-            self.src_ok = np.flatnonzero(~np.isnan(self.src))
-            self.src_order = self.src_ok[np.argsort(self.src[self.src_ok], kind="stable")]
+            src_ok = np.flatnonzero(~np.isnan(self.src))
+            self.src_order = src_ok[np.argsort(self.src[src_ok], kind="stable")]
             self.src_sorted = self.src[self.src_order]
             t = v[tgt]
             t_ok = np.flatnonzero(~np.isnan(t))
@@ -129,13 +132,13 @@ class _Resampled:
             self.tgt_sorted = t[self.tgt_order]
         else:
             _, codes, self.first = prepared
-            self.src, self.tgt, self.idx = codes[idx], codes[tgt], idx
-            self.n_levels = len(self.first)
+            self.src, self.tgt, self.idx, self.order = codes[idx], codes[tgt], idx, order
 
-    def mapped(self, ws, wt, rows, draw, first_copy, gen, *, placebo=False):
+    def mapped(self, ws, wt, rows, *, placebo=False):
         """The moved values of the source ``rows`` (drawn at least once) under the source counts
         ``ws`` and the target counts ``wt`` (over the target rows; over the source rows when
-        ``placebo``): floats (numeric) or the rows of the column holding each new level."""
+        ``placebo``): floats (numeric) or the rows of the column holding each new level (the
+        first copy's, for a row drawn more than once)."""
         if self.kind == "numeric":
             t_sorted, t_order = ((self.src_sorted, self.src_order) if placebo
                                  else (self.tgt_sorted, self.tgt_order))
@@ -143,11 +146,10 @@ class _Resampled:
                                          t_sorted, wt[t_order], integer=self.integer)
         tcodes = self.src if placebo else self.tgt
         ok_t = tcodes >= 0
-        tcounts = np.bincount(tcodes[ok_t], weights=wt[ok_t], minlength=self.n_levels)
-        codes = self.src[draw]
-        n_ok = int((codes >= 0).sum())
+        tcounts = np.bincount(tcodes[ok_t], weights=wt[ok_t], minlength=len(self.first))
+        n_ok = int(ws[self.src >= 0].sum())
         if tcounts.sum() == 0 or n_ok == 0:
             return self.idx[rows]
         need = largest_remainder(tcounts / tcounts.sum(), n_ok)
-        new = transport_categorical(codes, need, gen)[first_copy]
+        new = coupled_codes(self.src, ws, need, self.order)[rows]
         return np.where(new >= 0, self.first[np.maximum(new, 0)], self.idx[rows])

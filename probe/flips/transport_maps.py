@@ -25,8 +25,8 @@ import pandas as pd
 from ..data import is_numeric
 from ..errors import DataError
 
-__all__ = ["quantile_map", "weighted_quantile_map", "transport_categorical", "largest_remainder",
-           "prepare_proxy", "move_proxy", "proxy_values"]
+__all__ = ["quantile_map", "weighted_quantile_map", "transport_categorical", "level_order",
+           "coupled_codes", "largest_remainder", "prepare_proxy", "move_proxy", "proxy_values"]
 
 
 def quantile_map(source, target, *, integer=False) -> np.ndarray:
@@ -87,18 +87,38 @@ def transport_categorical(source_codes, target_counts, rng) -> np.ndarray:
     to the levels in deficit in level order.
     """
     codes = np.asarray(source_codes, dtype=np.int64)
-    out = codes.copy()
-    need = np.asarray(target_counts, dtype=np.int64)
+    return coupled_codes(codes, np.ones(len(codes), np.int64),
+                         np.asarray(target_counts, dtype=np.int64), level_order(codes, rng))
+
+
+def level_order(codes, rng) -> np.ndarray:
+    """The non-missing rows grouped by level, in a random order within each level: the priority in
+    which :func:`coupled_codes` keeps a level's rows."""
     ok = np.flatnonzero(codes >= 0)
-    have = np.bincount(codes[ok], minlength=len(need))
     perm = ok[rng.permutation(len(ok))]
-    perm = perm[np.argsort(codes[perm], kind="stable")]  # by level, permuted within a level
-    starts = np.concatenate([[0], np.cumsum(have)])
-    surplus = [perm[starts[lv] + need[lv]:starts[lv + 1]]
-               for lv in range(len(need)) if have[lv] > need[lv]]
-    surplus = np.concatenate(surplus) if surplus else np.empty(0, dtype=np.int64)
-    deficit = np.maximum(need - have, 0)
-    out[surplus] = np.repeat(np.arange(len(need)), deficit)
+    return perm[np.argsort(codes[perm], kind="stable")]
+
+
+def coupled_codes(codes, counts, need, order) -> np.ndarray:
+    """The fewest-changes coupling of a sample given as rows with multiplicities ``counts``.
+
+    Rows are taken in ``order`` (:func:`level_order`); within each level the first ``need`` copies
+    keep it, the rest (the surplus, in level then ``order`` order) are dealt to the levels in
+    deficit in level order. Returns each row's new code for its *first* copy (``-1`` for missing
+    rows). With unit counts this is :func:`transport_categorical`; with bootstrap counts and the
+    same ``order`` it is the resampled coupling, coherent with the original one (a row moves in a
+    replicate only when the counts push it across its level's cut).
+    """
+    c, w = codes[order], counts[order]
+    have = np.bincount(c, weights=w, minlength=len(need)).astype(np.int64)
+    before = np.cumsum(w) - w - np.concatenate([[0], np.cumsum(have)[:-1]])[c]
+    surplus_start = np.concatenate([[0], np.cumsum(np.maximum(have - need, 0))[:-1]])
+    moved = before >= need[c]
+    new = c.copy()
+    new[moved] = np.searchsorted(np.cumsum(np.maximum(need - have, 0)),
+                                 (surplus_start[c] + before - need[c])[moved], side="right")
+    out = np.array(codes, dtype=np.int64, copy=True)
+    out[order] = new
     return out
 
 
@@ -133,8 +153,9 @@ def prepare_proxy(col: pd.Series):
     return ("categorical", codes, first)
 
 
-def move_proxy(col: pd.Series, prepared, idx, tgt, gen) -> pd.Series:
-    """The proxy's values for the source rows ``idx`` moved onto the rows ``tgt``."""
+def move_proxy(col: pd.Series, prepared, idx, tgt, order) -> pd.Series:
+    """The proxy's values for the source rows ``idx`` moved onto the rows ``tgt``; ``order`` is the
+    categorical coupling's :func:`level_order` of the source rows (unused for a numeric proxy)."""
     if prepared[0] == "numeric":
         v = prepared[1]
         if not np.isfinite(v[tgt]).any():
@@ -150,7 +171,7 @@ def move_proxy(col: pd.Series, prepared, idx, tgt, gen) -> pd.Series:
     if tgt_counts.sum() == 0 or n_ok == 0:
         return col.iloc[idx]
     need = largest_remainder(tgt_counts / tgt_counts.sum(), n_ok)
-    new_codes = transport_categorical(src, need, gen)
+    new_codes = coupled_codes(src, np.ones(len(src), np.int64), need, order)
     return proxy_values(col, prepared, np.where(new_codes >= 0, first[np.maximum(new_codes, 0)],
                                                 idx), col.index[idx])
 

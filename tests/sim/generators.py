@@ -76,7 +76,8 @@ def planted_outcome(rng, mask, base, lift):
 def shifted_proxy_frame(rng, n, source_share, shift, *, n_cols=8):
     """:func:`mixed_frame` plus ``group`` (``"src"`` with share ``source_share``, else ``"dst"``), a
     proxy ``p`` ~ N(0, 1) in ``src`` and N(``shift``, 1) in ``dst`` (so the true quantile map from
-    ``src`` to ``dst`` is ``p + shift``; ``shift=0``: a chance proxy) and ``u`` ~ N(0, 1) in both."""
+    ``src`` to ``dst`` is ``p + shift``; ``shift=0``: a chance proxy) and ``u`` ~ N(0, 1) in
+    both."""
     frame = mixed_frame(rng, n, n_cols)
     src = rng.random(n) < source_share
     frame["group"] = np.where(src, "src", "dst")

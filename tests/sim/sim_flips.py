@@ -7,8 +7,8 @@ group is 9 times the pool.
 Planted truths (all closed forms, ``scipy.stats.norm``):
 
 - transport: ``p`` ~ N(0, 1) in the source group, N(``SHIFT``, 1) in the target group, so the
-  population quantile map is ``p + SHIFT``; the model approves ``p + u/2 >= CUT`` with ``u`` ~ N(0, 1)
-  in both groups and never reads the group. Under the population map the source group's flip rate is
+  population quantile map is ``p + SHIFT``; the model approves ``p + u/2 >= CUT`` with ``u`` ~
+  N(0, 1) in both groups and never reads the group. Under the population map the source group's flip rate is
   ``P(CUT - SHIFT <= s < CUT)`` with ``s`` ~ N(0, 1.25).
 - chance proxy: the same with ``SHIFT = 0`` (``p`` is not associated with the group but is moved as
   if it were): the true flip rate is 0, and a finding (the excess over the placebo with its interval
