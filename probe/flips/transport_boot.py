@@ -20,7 +20,7 @@ subsample, and the subsampling noise it adds, ``(1/m - 1/n)`` times the within-r
 rate and the excess (real − placebo), whose variance includes their covariance. The replicate maps
 are computed from bootstrap counts on the sorted values (no re-sorting), and all replicates' rows
 go to the model in one call: ``B · m · (1 - 1/e) · 2`` rows (real and placebo), about
-``0.63 · 2 · 100 · 500 = 63,000`` at the defaults.
+``0.63 · 2 · 50 · 500 = 31,600`` at the defaults.
 
 A categorical proxy's replicate coupling keeps the estimate's priority order, so a row changes
 level only when the counts push it across its level's cut. Copies of a row drawn more than once
@@ -44,7 +44,7 @@ from .transport_maps import (coupled_codes, largest_remainder, proxy_values,
 
 __all__ = ["transport_variances", "BOOT_REPS", "BOOT_ROWS"]
 
-BOOT_REPS = 100
+BOOT_REPS = 50
 """Bootstrap replicates of the transport maps."""
 BOOT_ROWS = 500
 """Source rows (a fixed random subsample) re-scored under each replicate's maps."""

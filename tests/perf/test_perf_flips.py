@@ -2,7 +2,7 @@
 
 - direct and transport flips on 200,000 rows with a LightGBM model: probe's total time against the
   raw model calls on exactly the frames probe scored (timed in the same run); overhead <= 20 %.
-  Transport scores the moved rows, the placebo's and the bootstrap's (about 63,000 rows per pair
+  Transport scores the moved rows, the placebo's and the bootstrap's (about 31,600 rows per pair
   at the defaults), so it costs about 2.6 times the model calls of the moved rows alone.
 - twins on 200,000 rows: wall time and peak traced memory (tracemalloc), the own-group control and
   its size-matched pools included (about twice the neighbour searches of the cross-group measure
