@@ -39,6 +39,16 @@ class ProxyModel:
         return expit(8.0 * (frame["p"].to_numpy() + 0.5 * frame["u"].to_numpy() - CUT))
 
 
+class RegionModel(ProxyModel):
+    """Also reads the categorical ``region`` of :func:`mixed_frame` (never the group)."""
+
+    feature_names = ("p", "u", "region")
+
+    def scores(self, frame):
+        bump = 0.4 * (frame["region"].to_numpy() == "r0")
+        return expit(8.0 * (frame["p"].to_numpy() + 0.5 * frame["u"].to_numpy() + bump - CUT))
+
+
 class TwinModel:
     """A group-blind score on four columns of :func:`mixed_frame`."""
 
@@ -75,18 +85,24 @@ def transport_coverage(runs=300, seed=0, *, n=3000):
                        excess_hits, runs, ">= 0.93", seeds)]
 
 
-def transport_chance_proxy(runs=300, seed=0, *, n=3000):
-    """Runs with a finding (excess over the placebo, interval above 0) when the moved proxy is not
-    associated with the group."""
+def transport_chance_proxy(runs=300, seed=0, *, n=3000, categorical=False):
+    """Runs with a finding (excess over the placebo, interval above 0) when the moved proxy (``p``;
+    with ``categorical``, also the 6-level ``region``) is not associated with the group."""
     hits = 0
+    model, proxies = (RegionModel(), ["p", "region"]) if categorical else (ProxyModel(), ["p"])
     for s in range(seed, seed + runs):
         rng = np.random.default_rng(s)
         X = shifted_proxy_frame(rng, n, 0.6, 0.0)
-        (row,) = flip_test(ProxyModel(), X, "group", mode="transport", reference="dst",
-                           proxies=["p"], rng=s).rows
+        (row,) = flip_test(model, X, "group", mode="transport", reference="dst",
+                           proxies=proxies, rng=s).rows
         hits += row.judged_at(0.95).low > 0
-    return [proportion(f"transport, chance proxy, blind model: runs with a finding ({n} rows)",
+    what = "numeric and categorical chance proxies" if categorical else "chance proxy"
+    return [proportion(f"transport, {what}, blind model: runs with a finding ({n} rows)",
                        hits, runs, "<= 0.05", f"{seed}-{seed + runs - 1}")]
+
+
+def transport_chance_categorical(runs=300, seed=0, *, n=3000):
+    return transport_chance_proxy(runs, seed, n=n, categorical=True)
 
 
 def twins_coverage(runs=300, seed=0, *, n=4000, source_share=0.9):
@@ -106,4 +122,5 @@ def twins_coverage(runs=300, seed=0, *, n=4000, source_share=0.9):
 
 SIMS = {"transport_coverage": transport_coverage,
         "transport_chance_proxy": transport_chance_proxy,
+        "transport_chance_categorical": transport_chance_categorical,
         "twins_coverage": twins_coverage}
