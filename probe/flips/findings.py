@@ -70,8 +70,10 @@ class FlipRow:
         Rows of the source group (non-missing attribute).
     flip_rate, to_favorable, to_unfavorable : Estimate
         Shares of the source group's decisions that change, that become favourable, that become
-        unfavourable (Wilson). For twins: the share whose decision differs from most of their twins',
-        and the two directions ("to favourable": the twins' decision is favourable and theirs is not).
+        unfavourable (Wilson; transport: Wilson on the effective number of rows, the bootstrap's
+        design effect taken out, ``"wilson-design-effect"``). For twins: the share whose decision
+        differs from most of their twins', and the two directions ("to favourable": the twins'
+        decision is favourable and theirs is not).
     mean_score_change : Estimate
         Mean of counterfactual minus actual score (twins: twins' mean score minus own), t interval.
     max_score_change : float
