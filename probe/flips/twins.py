@@ -74,7 +74,7 @@ _TWIN_CHUNK = 20_000   # query rows per nearest-neighbour call
 _KD_TREE_MAX_DIM = 8   # above this many encoded dimensions, brute (chunked) search is faster
 SUBSAMPLES = 20
 """Random subsamples of both groups behind the excess's standard error."""
-SUBSAMPLE_ROWS = 10_000
+SUBSAMPLE_ROWS = 4_000
 """The subsamples hold half of each group, or this many rows of the pair when that is less."""
 
 
