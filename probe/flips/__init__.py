@@ -3,6 +3,7 @@ for it) changes?
 
 :func:`flip_test` runs one mode for one attribute: ``direct`` (:mod:`.direct`), ``transport``
 (:mod:`.transport`) or ``twins`` (:mod:`.twins`); :mod:`.context` validates once and assembles rows,
+:mod:`.transport_maps` moves proxies, :mod:`.transport_boot` gives transport its intervals,
 :mod:`.breakdown` shows where flips concentrate, :mod:`.findings` holds the results and sentences.
 
 References
@@ -15,7 +16,8 @@ Villani, C. (2009). Optimal Transport, Old and New, ch. 2 (monotone rearrangemen
 
 from .api import flip_test
 from .findings import DIRECT_FLIP_CAUTION, SCREEN_CAUTION, FlipFindings, FlipRow, FlipSlice
-from .transport import MIN_PROXY_AUC, quantile_map, transport_categorical
+from .transport import MIN_PROXY_AUC
+from .transport_maps import quantile_map, transport_categorical
 
 __all__ = [
     "flip_test",

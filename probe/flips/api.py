@@ -36,9 +36,14 @@ def flip_test(model, X: pd.DataFrame, attribute: str, *, options: FlipOptions | 
     - **twins** (:mod:`probe.flips.twins`): compare with the ``k`` nearest people of the other
       group, against the ``k`` nearest of their own group as a control (situation testing).
 
-    Every share has a Wilson interval; the mean score change a t interval; the twins' excess a Wald
-    interval on the per-person paired differences. The largest absolute score change is a plain
-    number (the bootstrap is not consistent for a maximum). Where the flips concentrate is shown by
+    Direct shares have Wilson intervals, the mean score change a t interval. Transport also maps
+    the source group onto a random part of itself (the placebo) and reports the excess over it;
+    its intervals come from a bootstrap over both groups that re-estimates the map
+    (:mod:`probe.flips.transport_boot`). Twins report the excess over own-group twins, its interval
+    from subsamples of both groups with the pools re-drawn. :meth:`FlipRow.judged_at` gives the
+    judged estimate (direct: the flip rate; transport and twins: the excess) at any level. The
+    largest absolute score change is a plain number (the bootstrap is not consistent for a
+    maximum). Where the flips concentrate is shown by
     slice (:mod:`probe.flips.breakdown`). A target level the model never saw (absent from
     ``model.categories[attribute]``) is not scored: the row carries ``impossible=True`` and a note.
 
@@ -63,8 +68,8 @@ def flip_test(model, X: pd.DataFrame, attribute: str, *, options: FlipOptions | 
         Whether the positive decision is the favourable one.
     confidence_level : float, default=0.95
     rng : None, int or numpy.random.Generator, default=0
-        Seeds the categorical transport, the proxy ranking (when probe makes it) and the twins'
-        size-matched pools.
+        Seeds the categorical transport, the placebo and the bootstrap, the proxy ranking (when
+        probe makes it), the twins' size-matched pools and subsamples.
     scores : array_like, optional
         The model's scores of ``X`` as it is, when the caller has them (saves one model call).
     encoding : Encoding, optional

@@ -8,8 +8,9 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
+from scipy import stats as _sps
 
-from ..stats import Estimate
+from ..stats import Estimate, wilson
 
 __all__ = ["FlipFindings", "FlipRow", "FlipSlice", "DIRECT_FLIP_CAUTION", "SCREEN_CAUTION"]
 
@@ -25,6 +26,9 @@ SCREEN_CAUTION = (
 )
 _TWIN_CONTROL_KEYS = ("control_rate", "matched_rate", "excess", "excess_to_favorable",
                       "excess_to_unfavorable", "excess_score_change")
+_PLACEBO_KEYS = ("placebo_rate", "excess")
+_JUDGED_WHAT = {"direct": "flip rate", "transport": "excess over the placebo",
+                "twins": "excess over own-group twins"}
 
 
 @dataclass(frozen=True)
@@ -66,8 +70,10 @@ class FlipRow:
         Rows of the source group (non-missing attribute).
     flip_rate, to_favorable, to_unfavorable : Estimate
         Shares of the source group's decisions that change, that become favourable, that become
-        unfavourable (Wilson). For twins: the share whose decision differs from most of their twins',
-        and the two directions ("to favourable": the twins' decision is favourable and theirs is not).
+        unfavourable (Wilson; transport: Wilson on the effective number of rows, the bootstrap's
+        design effect taken out, ``"wilson-design-effect"``). For twins: the share whose decision
+        differs from most of their twins', and the two directions ("to favourable": the twins'
+        decision is favourable and theirs is not).
     mean_score_change : Estimate
         Mean of counterfactual minus actual score (twins: twins' mean score minus own), t interval.
     max_score_change : float
@@ -86,14 +92,26 @@ class FlipRow:
     matched_rate : Estimate or None
         Twins only: the cross-group share on the size-matched pool (equal to ``flip_rate`` unless
         the other group was larger and was subsampled; Wilson).
-    excess, excess_to_favorable, excess_to_unfavorable : Estimate or None
-        Twins only: the mean per-person paired difference of the cross-group (matched) and
-        own-group flip indicators, overall and by direction: the part of the discordance
-        attributable to the group (Wald interval on the paired differences, ``"paired-wald"``).
+    excess : Estimate or None
+        Transport: ``flip_rate`` minus ``placebo_rate``, with a bootstrap standard error over both
+        groups and the re-estimated maps (``"bootstrap-normal"``). Twins: the mean per-person
+        paired difference of the cross-group (matched) and own-group flip indicators, with a
+        half-sample standard error over people and re-drawn pools and a t quantile
+        (``"half-sample-t"``). The part of the flips attributable to the group; None for direct
+        rows, and when no control could be formed.
+    excess_to_favorable, excess_to_unfavorable : Estimate or None
+        Twins only: ``excess`` by direction (same method).
     excess_score_change : Estimate or None
         Twins only: mean of (cross-group twins' mean score − own-group twins' mean score).
     twin_pool : int or None
         Twins only: the number of candidate twins each search draws from (both pools).
+    placebo_rate : Estimate or None
+        Transport only: the flip rate of mapping the source group onto a random part of itself with
+        the same proxies and machinery (the attribute unchanged), interval as ``flip_rate``; None
+        when the group is too small to split.
+    excess_se, excess_df : float
+        The standard error of ``excess`` and the degrees of freedom of its quantile (``inf``: the
+        normal), so :meth:`judged_at` can give the interval at any level; not in :meth:`to_dict`.
     """
 
     attribute: str
@@ -117,6 +135,36 @@ class FlipRow:
     excess_to_unfavorable: Estimate | None = None
     excess_score_change: Estimate | None = None
     twin_pool: int | None = None
+    placebo_rate: Estimate | None = None
+    excess_se: float = field(default=math.nan, compare=False, repr=False)
+    excess_df: float = field(default=math.inf, compare=False, repr=False)
+
+    @property
+    def judged_what(self) -> str:
+        """What :meth:`judged_at` estimates: ``"flip rate"`` (direct, and transport when no proxy
+        moved: no map, so no placebo), ``"excess over the placebo"`` (transport), ``"excess over
+        own-group twins"`` (twins)."""
+        if self.mode == "transport" and set(self.moved) <= {self.attribute}:
+            return _JUDGED_WHAT["direct"]
+        return _JUDGED_WHAT[self.mode]
+
+    def judged_at(self, confidence_level: float) -> Estimate | None:
+        """The estimate a policy judges, with its two-sided interval at ``confidence_level``.
+
+        Direct (and transport with no proxy moved): the flip rate (Wilson); transport and twins:
+        ``excess`` (its standard error and quantile, :func:`spread_interval`). At the report's
+        level it is exactly the interval the row shows. None when the target level is impossible
+        or no control or placebo could be formed.
+        """
+        if self.impossible:
+            return None
+        if self.judged_what == _JUDGED_WHAT["direct"]:
+            return wilson(round(self.flip_rate.value * self.rows), self.rows,
+                          confidence_level=confidence_level)
+        if self.excess is None:
+            return None
+        return spread_interval(self.excess.value, self.excess_se, self.excess_df,
+                               confidence_level, self.excess.method)
 
     def to_dict(self) -> dict:
         out = {
@@ -140,6 +188,10 @@ class FlipRow:
                 e = getattr(self, name)
                 out[name] = None if e is None else e.to_dict()
             out["twin_pool"] = self.twin_pool
+        if self.mode == "transport":  # the placebo; None when the group is too small to split
+            for name in _PLACEBO_KEYS:
+                e = getattr(self, name)
+                out[name] = None if e is None else e.to_dict()
         return out
 
 
@@ -195,8 +247,9 @@ class FlipFindings:
             for name in ("flip_rate", "to_favorable", "to_unfavorable", "mean_score_change"):
                 e = getattr(r, name)
                 rec[name], rec[name + "_low"], rec[name + "_high"] = e.value, e.low, e.high
-            if r.mode == "twins":
-                for name in ("control_rate", "excess"):
+            if r.mode != "direct":
+                control = "control_rate" if r.mode == "twins" else "placebo_rate"
+                for name in (control, "excess"):
                     e = getattr(r, name)
                     rec[name], rec[name + "_low"], rec[name + "_high"] = (
                         (math.nan,) * 3 if e is None else (e.value, e.low, e.high))
@@ -205,6 +258,13 @@ class FlipFindings:
             rec["sentence"] = r.sentence
             recs.append(rec)
         return pd.DataFrame(recs)
+
+
+def spread_interval(value, se, df, confidence_level, method) -> Estimate:
+    """``value ± q · se`` within ``[-1, 1]``, ``q`` the two-sided t quantile with ``df`` degrees of
+    freedom (the normal when ``df`` is infinite); NaN bounds when ``se`` is NaN."""
+    q = float(_sps.t.ppf(0.5 + confidence_level / 2, df))
+    return Estimate(float(value), max(value - q * se, -1.0), min(value + q * se, 1.0), method)
 
 
 # ---------------------------------------------------------------------------------------------
@@ -245,6 +305,18 @@ def pair_sentence(attribute, mode, src, dst, ests, confidence_level, moved, is_i
                     f"sit in the {dst} group ({attribute} itself is not a model input)")
         return f"{lead} changes {pct(flip.value)} % of decisions {tail}"
     return ""  # twins rows get their sentence from twin_sentence, which also states the control
+
+
+def placebo_sentence(row: FlipRow, confidence_level) -> str:
+    """What a transport row adds to :func:`pair_sentence`: the placebo and the excess over it."""
+    if row.excess is None:
+        return (f"The {row.from_} group is too small to split for a placebo, so this share also "
+                "holds the flips that estimating the map causes by itself.")
+    ex = row.excess
+    sep = "–" if ex.low >= 0 else " to "
+    return (f"Mapping the {row.from_} group onto a random part of itself the same way (a placebo) "
+            f"changes {pct(row.placebo_rate.value)} %: an excess of {_points(ex.value)} points "
+            f"({100 * confidence_level:g} % interval {_points(ex.low)}{sep}{_points(ex.high)}).")
 
 
 def impossible_sentence(attribute, src, dst) -> str:

@@ -1,40 +1,43 @@
 """Transport flips: move the attribute's proxies (and the attribute itself when it is a model input)
-to where they would sit in the ``to`` group, and re-score.
-
-A numeric proxy is *quantile-mapped*: a row at mid-rank ``r`` among the ``n`` non-missing values of
-its group sits at ``q = (r - 1/2) / n`` and moves to the ``to`` group's empirical quantile at ``q``
-(the same ``(k - 1/2) / n`` plotting position, linearly interpolated; integer columns take the
-nearest order statistic so values stay in the observed support). Ties share a mid-rank and so move
-together; mapping a group onto itself is the identity. A categorical proxy is moved by the coupling
-of the two level distributions that changes the fewest rows (optimal transport with a 0-1 cost):
-the target counts are the ``to`` group's shares times the group size (largest-remainder rounding,
-so the shares are preserved exactly up to whole rows); each level keeps ``min(have, need)`` of its
-rows, the surplus rows (chosen by a seeded permutation) are dealt to the levels in deficit in a
-fixed level order. Missing proxy values stay missing. Whether a column is numeric is
-:func:`probe.data.is_numeric`, the encoder's rule.
+to where they would sit in the ``to`` group (:mod:`.transport_maps`), and re-score.
 
 The proxies moved are the ones given, else the top ``n_proxies`` model inputs of the attribute's
 proxy ranking (:func:`probe.proxies.find_proxies`, the same ranking as the report's proxies table)
 whose cross-fitted single-feature AUC is at least :data:`MIN_PROXY_AUC`.
 
-References
-----------
-Villani, C. (2009). Optimal Transport, Old and New, ch. 2 (monotone rearrangement on the line).
+**Placebo.** An estimated map moves rows even between two samples of one population, and near the
+decision boundary that alone flips decisions. So each pair also maps the source group onto a random
+part of itself (seeded), with the same proxies and machinery and the attribute unchanged: the
+placebo's flip rate is that noise, and the *excess* (real − placebo) is the figure a policy judges.
+The part has ``h = n·n_to / (n + 2·n_to)`` rows (half the group when the target group is much
+larger): the empirical distribution of ``h`` of ``n`` rows differs from the whole group's by
+sampling noise of variance ``1/h - 1/n = 1/n + 1/n_to``, as much as the real map's two samples,
+so under no real shift the placebo and the real rate have the same expectation to first order.
+
+**Intervals.** The estimand is the flip rate under the population map (:mod:`.transport_boot`);
+its variance, the placebo's and the excess's come from a bootstrap over both groups that
+re-estimates the maps. The flip rate and the placebo rate are Wilson intervals on the effective
+number of rows (``n`` divided by the design effect: the bootstrap variance over the binomial one,
+at least 1; method ``"wilson-design-effect"``), the two directions take the flip rate's design
+effect; the excess is ``± z·se`` (``"bootstrap-normal"``).
 """
 
 from __future__ import annotations
 
-import numpy as np
-import pandas as pd
-from scipy import stats as _sps
+from dataclasses import replace
 
-from ..data import is_numeric
+import numpy as np
+
 from ..errors import DataError, PlanError
 from ..proxies import ProxyFindings, find_proxies
+from ..stats import Estimate, wilson_interval
 from .context import FlipContext, impossible_row, pair_row, score, set_column
-from .findings import SCREEN_CAUTION, FlipFindings
+from .findings import (SCREEN_CAUTION, FlipFindings, pair_sentence, placebo_sentence,
+                       spread_interval)
+from .transport_boot import transport_variances
+from .transport_maps import level_order, move_proxy, prepare_proxy
 
-__all__ = ["transport_flips", "quantile_map", "transport_categorical", "MIN_PROXY_AUC"]
+__all__ = ["transport_flips", "MIN_PROXY_AUC"]
 
 MIN_PROXY_AUC = 0.55
 """A feature is moved as a proxy (when probe chooses them) only if it alone predicts the attribute
@@ -62,7 +65,7 @@ def transport_flips(ctx: FlipContext, *, proxies, n_proxies, proxy_ranking, pair
                          "transport does not apply")
         return _findings(ctx, (), ())
     moved = ((attribute,) if ctx.is_input else ()) + tuple(proxies)
-    prepared = {p: _prepare_proxy(X[p]) for p in proxies}
+    prepared = {p: prepare_proxy(X[p]) for p in proxies}
     base = ctx.base_scores
     rows = []
     for (src, dst), seed in zip(ctx.pairs, pair_seeds):
@@ -75,12 +78,77 @@ def transport_flips(ctx: FlipContext, *, proxies, n_proxies, proxy_ranking, pair
             cf = set_column(cf, attribute, dst)
         tgt = ctx.group_rows[dst]
         pgen = np.random.default_rng(seed)
+        # each categorical proxy's coupling priority, shared by the placebo and the bootstrap so
+        # that their couplings move the same rows where they can
+        orders = {}
         for p in proxies:
-            cf[p] = _move_proxy(X[p], prepared[p], idx, tgt, pgen)
+            if prepared[p][0] == "categorical":
+                orders[p] = level_order(prepared[p][1][idx], pgen)
+            cf[p] = move_proxy(X[p], prepared[p], idx, tgt, orders.get(p))
         new = score(ctx.model, cf, f"the {len(idx)} rows of `{attribute}` = {src!r} transported "
                                    f"to {dst!r}")
-        rows.append(pair_row(ctx, "transport", src, dst, idx, base[idx], new, moved))
+        row = pair_row(ctx, "transport", src, dst, idx, base[idx], new, moved)
+        rows.append(_with_placebo(ctx, row, proxies, prepared, orders, idx, tgt, dst, new, pgen))
     return _findings(ctx, tuple(rows), tuple(proxies))
+
+
+def placebo_size(n, n_to) -> int:
+    """Rows of the source group the placebo maps onto: ``n·n_to / (n + 2·n_to)``, rounded."""
+    return int(round(n * n_to / (n + 2 * n_to)))
+
+
+def _with_placebo(ctx, row, proxies, prepared, orders, idx, tgt, dst, new, gen):
+    """The row with its placebo, its bootstrap intervals and its sentence. Unchanged when no proxy
+    moves (only the attribute changes: no map, no placebo, the flip rate is judged); no placebo
+    when the group is too small to split (fewer than 2 rows in the placebo's part)."""
+    n, X = len(idx), ctx.X
+    h = placebo_size(n, len(tgt))
+    if not proxies:
+        return row
+    if h < 2:
+        ctx.notes.append(f"transport {row.from_!r} -> {dst!r}: the {row.from_!r} group is too "
+                         "small to split for a placebo")
+        return replace(row, sentence=f"{row.sentence} {placebo_sentence(row, ctx.confidence_level)}")
+    part = idx[np.sort(gen.choice(n, h, replace=False))]
+    cf = X.iloc[idx].copy(deep=False)
+    for p in proxies:
+        cf[p] = move_proxy(X[p], prepared[p], idx, part, orders.get(p))
+    old = ctx.decisions(ctx.base_scores[idx])
+    flips = ctx.decisions(new) != old
+    what = f"the {n} rows of `{ctx.attribute}` = {row.from_!r} mapped onto {h} of themselves"
+    placebo = ctx.decisions(score(ctx.model, cf, what)) != old
+    var_real, var_pl, var_ex = transport_variances(ctx, proxies, prepared, orders, idx, tgt, h, dst,
+                                                   flips, placebo, gen)
+    cl = ctx.confidence_level
+    deff = _design_effect(flips.sum(), n, var_real)
+    rates = [_deff_wilson(e.value * n, n, deff, cl) for e in
+             (row.flip_rate, row.to_favorable, row.to_unfavorable)]
+    se = float(np.sqrt(var_ex))
+    value = float(flips.mean() - placebo.mean())
+    row = replace(row, flip_rate=rates[0], to_favorable=rates[1], to_unfavorable=rates[2],
+                  placebo_rate=_deff_wilson(placebo.sum(), n, _design_effect(placebo.sum(), n,
+                                                                             var_pl), cl),
+                  excess=spread_interval(value, se, np.inf, cl, "bootstrap-normal"),
+                  excess_se=se, excess_df=np.inf)
+    return replace(row, sentence=_sentence(ctx, row) + " " + placebo_sentence(row, cl))
+
+
+def _design_effect(x, n, var) -> float:
+    """The bootstrap variance over the binomial one (a rate of 0 or 1 taken half a row inside),
+    at least 1."""
+    p = (x + 0.5) / (n + 1.0)
+    return max(1.0, var * n / (p * (1 - p)))
+
+
+def _deff_wilson(x, n, deff, confidence_level) -> Estimate:
+    lo, hi = wilson_interval(round(x) / deff, n / deff, confidence_level=confidence_level)
+    return Estimate(round(x) / n, float(lo), float(hi), "wilson-design-effect")
+
+
+def _sentence(ctx, row):
+    return pair_sentence(ctx.attribute, "transport", row.from_, row.to,
+                         (row.flip_rate, row.to_favorable, row.to_unfavorable),
+                         ctx.confidence_level, row.moved, ctx.is_input)
 
 
 def _findings(ctx, rows, proxies):
@@ -123,110 +191,3 @@ def _ranked_proxies(ctx, ranking: ProxyFindings | None, n_proxies) -> list:
                      f"cross-fitted single-feature AUC, those at or above {MIN_PROXY_AUC}): "
                      + ", ".join(f"`{r.feature}` (AUC {r.auc:.3f})" for r in rows))
     return [r.feature for r in rows]
-
-
-def quantile_map(source, target, *, integer=False) -> np.ndarray:
-    """Map each source value to the target's empirical quantile at its mid-rank plotting position.
-
-    ``q = (r - 1/2) / n`` with ``r`` the mid-rank (ties averaged) among the ``n`` non-missing source
-    values; the result is the target's quantile at ``q`` with the same plotting position
-    (``numpy.quantile(..., method="hazen")``), or the nearest order statistic when ``integer``.
-    Missing source values stay missing.
-    """
-    source = np.asarray(source, dtype=float)
-    target = np.asarray(target, dtype=float)
-    target = np.sort(target[~np.isnan(target)])
-    out = np.full(len(source), np.nan)
-    ok = ~np.isnan(source)
-    if not ok.any() or len(target) == 0:
-        return out
-    q = (_sps.rankdata(source[ok], method="average") - 0.5) / ok.sum()
-    if integer:
-        pos = np.clip(np.round(q * len(target) - 0.5).astype(np.int64), 0, len(target) - 1)
-        out[ok] = target[pos]
-    else:
-        # numpy's "hazen" quantile (virtual index n q - 1/2, clipped, linear), via one interp call:
-        # np.quantile partitions once per q, far too slow for a whole column of q values
-        out[ok] = np.interp(q * len(target) - 0.5, np.arange(len(target)), target)
-    return out
-
-
-def transport_categorical(source_codes, target_counts, rng) -> np.ndarray:
-    """Reassign levels so their counts match ``target_counts``, changing the fewest rows.
-
-    ``source_codes`` are level codes ``0..L-1`` (``-1`` missing, left as is); ``target_counts`` the
-    desired count of each level among the non-missing rows (summing to their number). Each level
-    keeps ``min(have, need)`` rows; the surplus rows (picked by a permutation from ``rng``) are dealt
-    to the levels in deficit in level order.
-    """
-    codes = np.asarray(source_codes, dtype=np.int64)
-    out = codes.copy()
-    need = np.asarray(target_counts, dtype=np.int64)
-    ok = np.flatnonzero(codes >= 0)
-    have = np.bincount(codes[ok], minlength=len(need))
-    perm = ok[rng.permutation(len(ok))]
-    perm = perm[np.argsort(codes[perm], kind="stable")]  # by level, permuted within a level
-    starts = np.concatenate([[0], np.cumsum(have)])
-    surplus = [perm[starts[lv] + need[lv]:starts[lv + 1]]
-               for lv in range(len(need)) if have[lv] > need[lv]]
-    surplus = np.concatenate(surplus) if surplus else np.empty(0, dtype=np.int64)
-    deficit = np.maximum(need - have, 0)
-    out[surplus] = np.repeat(np.arange(len(need)), deficit)
-    return out
-
-
-def _largest_remainder(shares, total) -> np.ndarray:
-    raw = shares * total
-    base = np.floor(raw).astype(np.int64)
-    rest = int(total - base.sum())
-    if rest > 0:
-        order = np.lexsort((np.arange(len(raw)), -(raw - base)))
-        base[order[:rest]] += 1
-    return base
-
-
-def _prepare_proxy(col: pd.Series):
-    """Once per proxy: float values (numeric) or level codes in a fixed order plus, for each level,
-    one row holding it (categorical), so moved values are taken from the column itself and keep its
-    dtype exactly."""
-    if is_numeric(col):
-        return ("numeric", col.to_numpy(dtype=float, na_value=np.nan))
-    codes, uniques = pd.factorize(col, sort=False, use_na_sentinel=True)
-    levels = list(uniques)
-    try:
-        order = sorted(range(len(levels)), key=lambda i: levels[i])
-    except TypeError:
-        order = sorted(range(len(levels)), key=lambda i: str(levels[i]))
-    rank = np.empty(len(levels), dtype=np.int64)
-    rank[order] = np.arange(len(levels))
-    codes = np.where(codes >= 0, rank[np.maximum(codes, 0)], -1)
-    first = np.full(len(levels), -1, dtype=np.int64)
-    ok = np.flatnonzero(codes >= 0)
-    first[codes[ok]] = ok  # some row holding each level (which one does not matter)
-    return ("categorical", codes, first)
-
-
-def _move_proxy(col: pd.Series, prepared, idx, tgt, gen):
-    if prepared[0] == "numeric":
-        v = prepared[1]
-        if not np.isfinite(v[tgt]).any():
-            raise DataError(f"proxy `{col.name}` has no known value in the target group, so it "
-                            "cannot be moved there; leave it out of `proxies`")
-        integer = pd.api.types.is_integer_dtype(col.dtype)
-        mapped = quantile_map(v[idx], v[tgt], integer=integer)
-        index = col.index[idx]
-        if integer and not np.isnan(mapped).any():
-            return pd.Series(mapped, index=index).astype(col.dtype)
-        return pd.Series(mapped, index=index)
-    _, codes, first = prepared
-    src, tcodes = codes[idx], codes[tgt]
-    tgt_counts = np.bincount(tcodes[tcodes >= 0], minlength=len(first))
-    n_ok = int((src >= 0).sum())
-    if tgt_counts.sum() == 0 or n_ok == 0:
-        return col.iloc[idx]
-    need = _largest_remainder(tgt_counts / tgt_counts.sum(), n_ok)
-    new_codes = transport_categorical(src, need, gen)
-    rows = np.where(new_codes >= 0, first[np.maximum(new_codes, 0)], idx)
-    out = col.iloc[rows]
-    out.index = col.index[idx]
-    return out

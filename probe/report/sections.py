@@ -286,25 +286,30 @@ def flips(report: Mapping) -> Section:
     if not rows:
         return Section("flips", title, "Flips", (Paragraph(("No flip tests.",)),))
     level = _level(report)
-    excess = any(isinstance(f.get("excess"), Mapping) for f in rows)
+    controlled = any(k in f for f in rows for k in ("placebo_rate", "control_rate"))
     columns = (
         Column("attribute"), Column("mode"), Column("change"), Column("rows", numeric=True),
         Column("flip rate", f"share of decisions that change, {level} interval", numeric=True),
         Column("to favourable", "share that become favourable", numeric=True, compact="value"),
         Column("to unfavourable", "share that become unfavourable", numeric=True, compact="value"),
         Column("mean score change", "mean change of the model's score", numeric=True, compact=""),
-    ) + ((Column("twins excess", "flip rate against twins in the other group minus against twins "
-                 "in the person's own group", numeric=True),) if excess else ())
+    ) + ((Column("control", "transport: the placebo's flip rate (the group mapped onto a random "
+                 "part of itself); twins: the rate against twins in the person's own group",
+                 numeric=True, compact="value"),
+          Column("excess", "flip rate minus the control: what is attributable to the group "
+                 "(judged for transport and twins)", numeric=True)) if controlled else ())
 
     def row(f: Mapping) -> tuple[Cell, ...]:
         if f.get("impossible") or f.get("applicable") is False:
             word = "not possible" if f.get("impossible") else "not applicable"
-            rest = (Cell(word),) + (Cell(""),) * (3 + excess)
+            rest = (Cell(word),) + (Cell(""),) * (3 + 2 * controlled)
         else:
             rest = tuple(est_cell(f.get(k)) for k in ("flip_rate", "to_favorable", "to_unfavorable",
                                                         "mean_score_change"))
-            if excess:  # only twins tests have an excess over own-group twins
-                rest += (est_cell(f["excess"]) if "excess" in f else Cell(""),)
+            if controlled:  # direct tests have no control; n/a when one could not be formed
+                key = next((k for k in ("placebo_rate", "control_rate") if k in f), None)
+                rest += ((est_cell(f[key]), est_cell(f.get("excess"))) if key
+                         else (Cell(""), Cell("")))
         return (text_cell(f.get("attribute")), text_cell(f.get("mode")), Cell(_change(f)),
                 Cell(fmt_count(f.get("rows"))), *rest)
 

@@ -2,6 +2,9 @@
 
 - direct and transport flips on 200,000 rows with a LightGBM model: probe's total time against the
   raw model calls on exactly the frames probe scored (timed in the same run); overhead <= 20 %.
+  Transport scores the moved rows, the placebo's and the bootstrap's (about 31,600 rows per pair
+  at the defaults: 1.66 times the model rows of the moved and original rows alone here), and its
+  bootstrap's counting costs about 1 s per 100,000-row group; overhead <= 60 %.
 - twins on 200,000 rows: wall time and peak traced memory (tracemalloc), the own-group control and
   its size-matched pools included (about twice the neighbour searches of the cross-group measure
   alone).
@@ -111,10 +114,14 @@ def test_flip_overhead_against_raw_model_calls(model_and_data, mode, kwargs):
           f"ratio {ratio:.3f} (the run's one encoding, shared by every analysis: {encode_time:.2f} s)")
     for r in res.rows:
         print("  ", r.sentence)
-    assert len(frames) == 1 + len(res.rows)
+    # the rows as they are, then per pair one call (direct) or three (transport: moved, the
+    # placebo, the bootstrap's re-estimated maps on a subsample)
+    assert len(frames) == 1 + (3 if mode == "transport" else 1) * len(res.rows)
     # probe's overhead at most 20 %, the proxy ranking (single-feature measures on 50,000 rows)
-    # included when probe chooses the proxies
-    assert ratio <= 1.2
+    # included when probe chooses the proxies; transport's bootstrap adds 50 replicates of O(n)
+    # counting per pair (resampled counts, re-estimated maps; about 1 s per 100,000-row group,
+    # measured 1.37-1.49 in all), so its bound is 60 %
+    assert ratio <= (1.6 if mode == "transport" else 1.2)
 
 
 def test_twins_time_and_memory(model_and_data):

@@ -10,7 +10,8 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-__all__ = ["mixed_frame", "uneven_levels", "null_outcome", "planted_outcome", "group_column"]
+__all__ = ["mixed_frame", "uneven_levels", "null_outcome", "planted_outcome", "group_column",
+           "shifted_proxy_frame"]
 
 
 def uneven_levels(rng, n, k, *, skew=1.2, prefix="L"):
@@ -70,3 +71,16 @@ def planted_outcome(rng, mask, base, lift):
     """0/1 outcome with P(1) = ``base`` outside ``mask`` and ``base + lift`` inside."""
     p = np.where(mask, base + lift, base)
     return (rng.random(len(mask)) < p).astype(np.int8)
+
+
+def shifted_proxy_frame(rng, n, source_share, shift, *, n_cols=8):
+    """:func:`mixed_frame` plus ``group`` (``"src"`` with share ``source_share``, else ``"dst"``), a
+    proxy ``p`` ~ N(0, 1) in ``src`` and N(``shift``, 1) in ``dst`` (so the true quantile map from
+    ``src`` to ``dst`` is ``p + shift``; ``shift=0``: a chance proxy) and ``u`` ~ N(0, 1) in
+    both."""
+    frame = mixed_frame(rng, n, n_cols)
+    src = rng.random(n) < source_share
+    frame["group"] = np.where(src, "src", "dst")
+    frame["p"] = rng.normal(size=n) + np.where(src, 0.0, shift)
+    frame["u"] = rng.normal(size=n)
+    return frame
