@@ -104,12 +104,15 @@ def closed_form(c, binary, cl, limits):
     return rate, gap, [Estimate(math.nan, math.nan, math.nan, "none")] * K
 
 
-def estimate(carried, masks, y, *, binary, direction, confidence_level, interval, family, rng):
-    """Per carried slice: rates, gap, ratio, p-value and q-value on the estimate part.
+def estimate(carried, masks, y, *, binary, direction, confidence_level, search_level, interval,
+             family, rng):
+    """Per carried slice: rates, gap, ratio, p-value, q-value and evidence on the estimate part.
 
     ``masks`` are the carried slices' rows of ``y`` (the outcome as given, not oriented);
-    ``family`` is the number of hypotheses of the q-values; ``rng`` seeds the bootstrap. Each
-    dict also holds what :func:`at_level` needs to give the estimates at any other level."""
+    ``family`` is the number of hypotheses of the q-values; ``rng`` seeds the bootstrap. The
+    *evidence* is the search's score on these rows: the lower limit of the gap in the bad direction
+    at ``search_level`` (see :mod:`.bounds`). Each dict also holds what :func:`at_level` needs to
+    give the estimates at any other level."""
     K = len(carried)
     if K == 0:
         return []
@@ -135,10 +138,16 @@ def estimate(carried, masks, y, *, binary, direction, confidence_level, interval
     limits = (float(y.min()), float(y.max())) if len(y) and not binary else None
     alt = "greater" if direction == "higher" else "less"
     rate, gap, ratio = closed_form(c, binary, cl, limits)
+    sign = 1.0 if alt == "greater" else -1.0
     if binary:
         p = exact_pvalue(s1, n1, c[4], c[3], alternative=alt)
+        bad1, bad2 = (s1, c[4]) if sign > 0 else (n1 - s1, c[3] - c[4])
+        evidence = newcombe_interval(bad1, n1, bad2, c[3], confidence_level=search_level)[0]
     else:
-        p = welch_pvalue(*welch(s1, sq1, n1, c[4], c[5], c[3]), alternative=alt)
+        diff, se, df = welch(s1, sq1, n1, c[4], c[5], c[3])
+        p = welch_pvalue(diff, se, df, alternative=alt)
+        evidence = sign * diff - z_value(search_level) * se
+    evidence = np.where(np.isnan(evidence), -np.inf, evidence)
     boot = [None] * K
     if interval == "bootstrap":
         rate, gap, boot = _bootstrap_estimates(masks, y, rng, cl, rate, gap)
@@ -150,7 +159,7 @@ def estimate(carried, masks, y, *, binary, direction, confidence_level, interval
     return [
         {"rows": int(n1[k]), "share": n1[k] / N if N else math.nan, "events": float(s1[k]),
          "rate": rate[k], "gap": gap[k], "ratio": ratio[k], "p": float(p[k]), "q": float(q[k]),
-         "rest_rate": c[4][k] / c[3][k] if c[3][k] else math.nan,
+         "rest_rate": c[4][k] / c[3][k] if c[3][k] else math.nan, "evidence": float(evidence[k]),
          "basis": (tuple(float(v[k]) for v in c), limits, boot[k])}
         for k in range(K)
     ]

@@ -14,6 +14,7 @@ from .bounds import search_level
 from .estimate import N_RESAMPLES, carry, estimate, rate_estimates
 from .findings import CANDIDATES_NOTE, SliceFindings, make_slice
 from .lattice import Lattice
+from .listing import listed
 
 __all__ = ["Inputs", "run", "ESTIMATE_SHARE", "carried_pool"]
 
@@ -109,13 +110,10 @@ def run(enc: Encoding, label: str, inp: Inputs) -> SliceFindings:
     carried, masks = carry(ranked, e_codes, inp.similarity, n_carry)
     family = len(carried) if o.split else n_scored  # fixed before the estimate part is looked at
     rows = estimate(carried, masks, e_y, binary=inp.binary, direction=inp.direction,
-                    confidence_level=inp.confidence_level, interval=o.interval, family=family,
-                    rng=inp.rng)
-    # listed: worse than the rest on the estimate part, by its evidence (stable: ties keep the
-    # search order), at most `top`
-    sign = 1.0 if inp.direction == "higher" else -1.0
-    worse = [k for k in range(len(rows)) if sign * rows[k]["gap"].value > 0]
-    worse = sorted(worse, key=lambda k: rows[k]["p"])[: o.top]
+                    confidence_level=inp.confidence_level, search_level=level,
+                    interval=o.interval, family=family, rng=inp.rng)
+    worse = listed(rows, masks, e_y, binary=inp.binary, direction=inp.direction,
+                   confidence_level=inp.confidence_level, top=o.top)
     found = tuple(
         make_slice(rank, carried[k], rows[k], enc, label, inp.confidence_level, inp.binary)
         for rank, k in enumerate(worse, start=1)
