@@ -177,25 +177,30 @@ class Lattice:
         self.n_candidates += int(ok.sum())
         score = np.where(ok, score_all, -np.inf)
         bound = np.full(size, -np.inf) if bound_all is None else np.where(ok, bound_all, -np.inf)
-        eligible = self.eligible(node, st, ok, score)
         self.visited[node.cols] = (score, bound, ok, st)
-        keys = np.flatnonzero(eligible & (score >= self.threshold()))
+        # only slices reaching the cut can enter the pool: eligibility is checked on those alone
+        keys = np.flatnonzero(ok & np.isfinite(score) & (score >= self.threshold()))
+        if len(keys):
+            keys = self.eligible(node, st, keys, score)
         if len(keys):
             self.merge(node, keys, score, st[0])
 
-    def eligible(self, node, st, ok, score) -> np.ndarray:
-        """A depth-1 slice: worse than the rest. A refinement: material (see the package notes)."""
+    def eligible(self, node, st, keys, score) -> np.ndarray:
+        """The slices of ``keys`` that are eligible: a depth-1 slice is worse than the rest; a
+        refinement is material (see the package notes)."""
         if not node.parents:
-            eligible = ok & (self.scorer.gap(st) > 0)
-        else:
-            # more certainly worse than the rest than every parent, and confidently worse than the
-            # rest of each parent (the parent's other rows), so an extra predicate that only carves
-            # a lucky corner out of a bad region is dropped
-            eligible = ok.copy()
-            for s, pk in node.parents:
-                eligible &= score > self.visited[s][0][pk]
-                eligible &= self.scorer.within_parent(st, self.visited[s][3], pk) > 0
-        return eligible & np.isfinite(score)
+            return keys[self.scorer.gap(tuple(a[keys] for a in st)) > 0]
+        # more certainly worse than the rest than every parent, and confidently worse than the
+        # rest of each parent (the parent's other rows), so an extra predicate that only carves
+        # a lucky corner out of a bad region is dropped
+        for s, pk in node.parents:
+            keys = keys[score[keys] > self.visited[s][0][pk[keys]]]
+        for s, pk in node.parents:
+            if not len(keys):
+                break
+            sub = tuple(a[keys] for a in st)
+            keys = keys[self.scorer.within_parent(sub, self.visited[s][3], pk[keys]) > 0]
+        return keys
 
     def merge(self, node, keys, score, n):
         """Add the slices ``keys`` of a column set to the pool and keep its best ``pool`` (rank:

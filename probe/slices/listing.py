@@ -50,11 +50,12 @@ def _pvalue(y, a, b, binary, alt) -> float:
     na, nb = float(np.count_nonzero(a)), float(np.count_nonzero(b))
     if na < 1 or nb < 1:
         return 1.0
-    ya, yb = y[a], y[b]
     if binary:
-        p = exact_pvalue(ya.sum(), na, yb.sum(), nb, alternative=alt)
-    else:
-        p = welch_pvalue(*welch(ya.sum(), (ya * ya).sum(), na, yb.sum(), (yb * yb).sum(), nb),
+        events = y == 1
+        p = exact_pvalue(np.count_nonzero(a & events), na, np.count_nonzero(b & events), nb,
                          alternative=alt)
+    else:
+        sums = [(y @ m, (y * y) @ m) for m in (a, b)]
+        p = welch_pvalue(*welch(*sums[0], na, *sums[1], nb), alternative=alt)
     p = float(np.asarray(p))
     return 1.0 if np.isnan(p) else p
