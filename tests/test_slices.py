@@ -70,8 +70,8 @@ def _brute_force(frame, y, *, depth, min_rows, binary, bins=5, max_share=0.5):
     for key, (s, gap, cnt, sm, ssq) in scores.items():
         if len(key) == 1:
             ok = gap > 0
-        else:  # a material refinement: beats each parent's score and is confidently worse than
-            # the parent's other rows (statsmodels' Newcombe interval; Wald for real outcomes)
+        else:  # a material refinement: confidently worse than each parent's other rows
+            # (statsmodels' Newcombe interval; Wald for real outcomes)
             ok = True
             for i in range(len(key)):
                 parent = scores.get(key[:i] + key[i + 1:])
@@ -89,7 +89,7 @@ def _brute_force(frame, y, *, depth, min_rows, binary, bins=5, max_share=0.5):
                     v1 = max(ssq - sm * m1, 0) / (cnt - 1)
                     v2 = max(rsq - rx * m2, 0) / (rn - 1)
                     inner = (m1 - m2) - Z95 * np.sqrt(v1 / cnt + v2 / rn)
-                ok = ok and s > parent[0] and inner > 0
+                ok = ok and inner > 0
         if ok and np.isfinite(s):
             label = " and ".join(enc[c].labels[lv] for c, lv in key)
             eligible[label] = s

@@ -181,20 +181,17 @@ class Lattice:
         # only slices reaching the cut can enter the pool: eligibility is checked on those alone
         keys = np.flatnonzero(ok & np.isfinite(score) & (score >= self.threshold()))
         if len(keys):
-            keys = self.eligible(node, st, keys, score)
+            keys = self.eligible(node, st, keys)
         if len(keys):
             self.merge(node, keys, score, st[0])
 
-    def eligible(self, node, st, keys, score) -> np.ndarray:
+    def eligible(self, node, st, keys) -> np.ndarray:
         """The slices of ``keys`` that are eligible: a depth-1 slice is worse than the rest; a
         refinement is material (see the package notes)."""
         if not node.parents:
             return keys[self.scorer.gap(tuple(a[keys] for a in st)) > 0]
-        # more certainly worse than the rest than every parent, and confidently worse than the
-        # rest of each parent (the parent's other rows), so an extra predicate that only carves
-        # a lucky corner out of a bad region is dropped
-        for s, pk in node.parents:
-            keys = keys[score[keys] > self.visited[s][0][pk[keys]]]
+        # confidently worse than the rest of each parent (the parent's other rows), so an extra
+        # predicate that only carves a lucky corner out of a bad region is dropped
         for s, pk in node.parents:
             if not len(keys):
                 break

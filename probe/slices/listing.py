@@ -5,8 +5,9 @@ A carried slice is listed when, on the estimate part,
 1. it is worse than the rest (a positive gap in the bad direction), and
 2. it adds something to the slices listed above it: when it shares rows with them, its own other
    rows are still worse than the rows in none of them (one-sided p-value, exact for a 0/1 outcome,
-   Welch otherwise, at most ``1 - confidence_level``). A broad slice that is bad only because it
-   holds a listed slice's rows is not listed again.
+   Welch otherwise, at most ``(1 - confidence_level) / carried``: Bonferroni over the carried
+   slices, any of which may be checked). A broad slice that is bad only because it holds a listed
+   slice's rows is not listed again.
 
 The order is the estimate part's evidence: the gap's lower limit at the search level (the search's
 own score, now on rows the search did not see), then the p-value; at most ``top`` are listed. The
@@ -30,6 +31,7 @@ def listed(rows, masks, y, *, binary, direction, confidence_level, top):
     alt = "greater" if direction == "higher" else "less"
     order = sorted((k for k in range(len(rows)) if sign * rows[k]["gap"].value > 0),
                    key=lambda k: (-rows[k]["evidence"], rows[k]["p"]))
+    cut = (1.0 - confidence_level) / max(len(rows), 1)
     out, covered = [], np.zeros(len(y), dtype=bool)
     for k in order:
         if len(out) >= top:
@@ -38,7 +40,7 @@ def listed(rows, masks, y, *, binary, direction, confidence_level, top):
         if out and np.any(mask & covered):
             own = mask & ~covered
             rest = ~(mask | covered)
-            if _pvalue(y, own, rest, binary, alt) > 1.0 - confidence_level:
+            if _pvalue(y, own, rest, binary, alt) > cut:
                 continue
         out.append(k)
         covered |= mask
