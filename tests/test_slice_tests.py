@@ -28,6 +28,23 @@ def test_exact_pvalue_of_the_small_low_rate_slice():
     assert np.isnan(exact_pvalue(0, 0, 3, 10))
 
 
+@pytest.mark.parametrize("alternative", ["greater", "less"])
+def test_ternary_pvalue_is_the_exact_permutation_tail(alternative):
+    from itertools import combinations
+
+    from probe.slices.pvalues import ternary_pvalue
+
+    y = np.array([1, 1, 1, -1, -1, -1, -1, 0, 0, 0, 0, 0, 0, 0], dtype=float)
+    slice_rows = [0, 1, 3, 7, 8]
+    s = y[slice_rows].sum()
+    sums = np.array([y[list(c)].sum() for c in combinations(range(len(y)), len(slice_rows))])
+    ref = np.mean(sums >= s) if alternative == "greater" else np.mean(sums <= s)  # enumeration
+    rest = np.delete(y, slice_rows)
+    p = ternary_pvalue(s, (y[slice_rows] ** 2).sum(), 5, rest.sum(), (rest ** 2).sum(), 9,
+                       alternative=alternative)
+    assert p[0] == pytest.approx(ref, rel=1e-9)
+
+
 def test_lattice_size_counts_every_slice_by_enumeration():
     from itertools import combinations
 

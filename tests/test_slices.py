@@ -174,7 +174,8 @@ def test_q_values_are_benjamini_hochberg_over_the_family_and_p_values_exact_or_w
 
     r = np.random.default_rng(3)
     n = 3000
-    y = (r.random(n) < 0.15).astype(float) if binary else r.choice([-1.0, 0, 1], n, p=[.05, .9, .05])
+    y = (r.random(n) < 0.15).astype(float) if binary else r.choice([-1.0, 0, .5, 1], n,
+                                                                     p=[.05, .8, .1, .05])
     masks = [r.random(n) < share for share in (0.01, 0.03, 0.1, 0.3)]
     y[masks[0]] = (r.random(masks[0].sum()) < 0.4) if binary else 1.0 * (r.random(masks[0].sum()) < .3)
     rows = estimate([None] * 4, masks, y, binary=binary, direction="higher", confidence_level=0.95,

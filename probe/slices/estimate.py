@@ -2,7 +2,7 @@
 
 Everything here is computed on the estimate part only (all rows without a split): Wilson rates,
 Newcombe gaps and MOVER-R ratios for a 0/1 outcome, Wald rates and Welch gaps for a real-valued
-outcome, the one-sided p-value (:mod:`.pvalues`: exact for 0/1, Welch otherwise),
+outcome, the one-sided p-value (:mod:`.pvalues`: exact for 0/1 and {-1, 0, 1}, Welch otherwise),
 Benjamini-Hochberg q-values over the ``family`` of hypotheses, and, on request, a bootstrap of all
 carried slices at once.
 """
@@ -15,7 +15,7 @@ import numpy as np
 from scipy import special
 
 from ..stats import Estimate, bh_adjust, newcombe_interval, ratio_interval, wilson_interval, z_value
-from .pvalues import exact_pvalue, welch, welch_interval, welch_pvalue
+from .pvalues import exact_pvalue, is_ternary, real_pvalue, welch, welch_interval
 
 __all__ = ["N_RESAMPLES", "at_level", "carry", "closed_form", "estimate", "rate_estimates"]
 
@@ -142,8 +142,8 @@ def estimate(carried, masks, y, *, binary, direction, confidence_level, search_l
         bad1, bad2 = (s1, c[4]) if sign > 0 else (n1 - s1, c[3] - c[4])
         evidence = newcombe_interval(bad1, n1, bad2, c[3], confidence_level=search_level)[0]
     else:
-        diff, se, df = welch(s1, sq1, n1, c[4], c[5], c[3])
-        p = welch_pvalue(diff, se, df, alternative=alt)
+        diff, se, _ = welch(s1, sq1, n1, c[4], c[5], c[3])
+        p = real_pvalue(s1, sq1, n1, c[4], c[5], c[3], ternary=is_ternary(y), alternative=alt)
         evidence = sign * diff - z_value(search_level) * se
     evidence = np.where(np.isnan(evidence), -np.inf, evidence)
     boot = [None] * K

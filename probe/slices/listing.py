@@ -4,8 +4,8 @@ A carried slice is listed when, on the estimate part,
 
 1. it is worse than the rest (a positive gap in the bad direction), and
 2. it adds something to the slices listed above it: when it shares rows with them, its own other
-   rows are still worse than the rows in none of them (one-sided p-value, exact for a 0/1 outcome,
-   Welch otherwise, at most ``(1 - confidence_level) / carried``: Bonferroni over the carried
+   rows are still worse than the rows in none of them (one-sided p-value, exact for 0/1 and
+   {-1, 0, 1} outcomes, Welch otherwise, at most ``(1 - confidence_level) / carried``: Bonferroni over the carried
    slices, any of which may be checked). A broad slice that is bad only because it holds a listed
    slice's rows is not listed again.
 
@@ -19,7 +19,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from .pvalues import exact_pvalue, welch, welch_pvalue
+from .pvalues import exact_pvalue, is_ternary, real_pvalue
 
 __all__ = ["listed"]
 
@@ -58,6 +58,6 @@ def _pvalue(y, a, b, binary, alt) -> float:
                          alternative=alt)
     else:
         sums = [(y @ m, (y * y) @ m) for m in (a, b)]
-        p = welch_pvalue(*welch(*sums[0], na, *sums[1], nb), alternative=alt)
-    p = float(np.asarray(p))
+        p = real_pvalue(*sums[0], na, *sums[1], nb, ternary=is_ternary(y), alternative=alt)
+    p = float(np.asarray(p).ravel()[0])
     return 1.0 if np.isnan(p) else p
