@@ -214,6 +214,8 @@ class SliceOptions(_Checked):
                                                 "population (default: by the data's size)")
     bins: int = opt(5, lo=2, hi=20, help="quantile bins per numeric column")
     top: int = opt(10, lo=1, hi=1000, help="slices to report")
+    max_share: float = opt(0.5, lo=0.0, hi=1.0, help="largest share of the rows a slice may hold "
+                                                      "(slices are sub-groups)")
     split: bool = opt(True, flag="--no-split", help="search on half the rows and estimate on the "
                                                     "other half (--no-split: all rows, small data)")
     columns: tuple[str, ...] | None = opt(None, metavar="A,B,...", help="search only these columns")

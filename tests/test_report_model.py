@@ -67,8 +67,8 @@ def test_slices_without_a_split_say_rates_are_on_the_searched_rows_and_optimisti
     s.update(search_rows=n, estimate_rows=n, base_rows=n, settings={"split": False})
     for name, text in _all(report).items():
         part = _section(text, "Slices", "flips")
-        assert f"estimated on the same {n:,} rows that were searched" in part, name
-        assert "optimistic" in part, name
+        assert f"estimated on the same {n:,} rows that chose" in part, name
+        assert "overstated" in part, name
         assert "held-out" not in part, name
 
 

@@ -31,13 +31,18 @@ def _random_frame(seed, n=2000):
     })
 
 
-def _brute_force(frame, y, *, depth, min_rows, binary, bins=5):
+def _brute_force(frame, y, *, depth, min_rows, binary, bins=5, max_share=0.5):
     """Every slice of every column set, scored independently: pandas groupby for the counts,
-    statsmodels' Newcombe interval (0/1) or a Wald interval from groupby mean/var (real)."""
+    statsmodels' Newcombe interval (0/1) or a Wald interval from groupby mean/var (real), at the
+    search level 1 - 0.05 / (slices the lattice holds, counted by enumerating the column sets).
+    Slices over ``max_share`` of the rows are parents but get no score."""
     enc = encode_columns(frame, bins=bins)
     codes = pd.DataFrame({c.name: c.codes for c in enc.columns})
     codes["_y"] = y
     N, total = len(y), y.sum()
+    m = sum(int(np.prod([enc[c].n_levels for c in cols]))
+            for d in range(1, depth + 1) for cols in combinations(enc.names, d))
+    alpha = 0.05 / m
     scores = {}
     for d in range(1, depth + 1):
         for cols in combinations(enc.names, d):
@@ -47,13 +52,15 @@ def _brute_force(frame, y, *, depth, min_rows, binary, bins=5):
                 continue
             n, x = g["count"].to_numpy(float), g["sum"].to_numpy(float)
             if binary:
-                low, _ = confint_proportions_2indep(x, n, total - x, N - n, method="newcomb")
+                low, _ = confint_proportions_2indep(x, n, total - x, N - n, method="newcomb",
+                                                    alpha=alpha)
             else:
                 rest_mean = (total - x) / (N - n)
                 rest_sq = (y**2).sum() - (g["var"].to_numpy() * (n - 1) + n * g["mean"].to_numpy() ** 2)
                 rest_var = (rest_sq - (N - n) * rest_mean**2) / (N - n - 1)
                 se = np.sqrt(g["var"].to_numpy() / n + rest_var / (N - n))
-                low = g["mean"].to_numpy() - rest_mean - Z95 * se
+                low = g["mean"].to_numpy() - rest_mean - sps.norm.ppf(1 - alpha / 2) * se
+            low = np.where(n > max_share * N, -np.inf, low)
             sq = g["var"].to_numpy() * (n - 1) + n * g["mean"].to_numpy() ** 2
             for row, s, gap, cnt, sm, ssq in zip(g[list(cols)].itertuples(index=False), low,
                                                  x / n - (total - x) / (N - n), n, x, sq):
@@ -63,8 +70,8 @@ def _brute_force(frame, y, *, depth, min_rows, binary, bins=5):
     for key, (s, gap, cnt, sm, ssq) in scores.items():
         if len(key) == 1:
             ok = gap > 0
-        else:  # a material refinement: beats each parent's score and is confidently worse than
-            # the parent's other rows (statsmodels' Newcombe interval; Wald for real outcomes)
+        else:  # a material refinement: confidently worse than each parent's other rows
+            # (statsmodels' Newcombe interval; Wald for real outcomes)
             ok = True
             for i in range(len(key)):
                 parent = scores.get(key[:i] + key[i + 1:])
@@ -82,16 +89,30 @@ def _brute_force(frame, y, *, depth, min_rows, binary, bins=5):
                     v1 = max(ssq - sm * m1, 0) / (cnt - 1)
                     v2 = max(rsq - rx * m2, 0) / (rn - 1)
                     inner = (m1 - m2) - Z95 * np.sqrt(v1 / cnt + v2 / rn)
-                ok = ok and s > parent[0] and inner > 0
+                ok = ok and inner > 0
         if ok and np.isfinite(s):
             label = " and ".join(enc[c].labels[lv] for c, lv in key)
             eligible[label] = s
-    return eligible, len(scores)
+    return eligible, sum(v[2] <= max_share * N for v in scores.values())
 
 
-def _assert_same_top(found, eligible, k):
+def _lattice(frame, y, *, depth, min_rows, pool, binary, bins=5, prune=True, max_share=0.5):
+    """The lattice's ranked slices ``[(label, score)]``, the slices scored and those not pruned."""
+    from probe.slices.bounds import search_level
+
+    enc = encode_columns(frame, bins=bins)
+    levels = [c.n_levels for c in enc.columns]
+    ranked, n_scored, not_pruned = Lattice(
+        [c.codes for c in enc.columns], levels, y.astype(np.uint8) if binary else y, binary,
+        depth=depth, min_rows=min_rows, pool=pool, confidence_level=0.95,
+        score_level=search_level(0.95, levels, depth), max_share=max_share, prune=prune).run()
+    labels = [(" and ".join(enc.columns[c].labels[lv] for c, lv in zip(e.cols, e.levels)), e.score)
+              for e in ranked]
+    return labels, n_scored, not_pruned
+
+
+def _assert_same_top(ours, eligible, k):
     ranked = sorted(eligible.items(), key=lambda kv: -kv[1])[:k]
-    ours = [(s.label, s.score) for s in found]
     assert len(ours) == len(ranked)
     np.testing.assert_allclose([s for _, s in ours], [s for _, s in ranked], rtol=1e-9, atol=1e-12)
     cut = ranked[-1][1]
@@ -109,15 +130,12 @@ def test_pruned_search_equals_exhaustive_enumeration(seed):
     outcome = (r.random(len(frame)) < risk).astype(float)
     res = search_slices(frame, outcome, depth=3, min_rows=30, top=8, split=False, similarity=None)
     eligible, n_supported = _brute_force(frame, outcome, depth=3, min_rows=30, binary=True)
-    _assert_same_top(res.found, eligible, 8)
-    assert res.tested == n_supported  # no split: nothing pruned, every supported slice counted
+    assert res.family == n_supported  # no split: nothing pruned, every supported slice counted
+    ours, _, _ = _lattice(frame, outcome, depth=3, min_rows=30, pool=8, binary=True, prune=False)
+    _assert_same_top(ours, eligible, 8)
     # the pruned lattice (as used with a split) finds the same top scores while pruning
-    enc = encode_columns(frame)
-    ranked, _, not_pruned = Lattice([c.codes for c in enc.columns],
-                                    [c.n_levels for c in enc.columns], outcome.astype(np.uint8),
-                                    True, depth=3, min_rows=30, pool=8, confidence_level=0.95).run()
-    top = sorted(eligible.values(), reverse=True)[:8]
-    np.testing.assert_allclose([r[0] for r in ranked], top, rtol=1e-9, atol=1e-12)
+    ours, _, not_pruned = _lattice(frame, outcome, depth=3, min_rows=30, pool=8, binary=True)
+    _assert_same_top(ours, eligible, 8)
     assert not_pruned < 0.8 * n_supported  # the bound did prune
 
 
@@ -129,9 +147,11 @@ def test_pruned_search_equals_exhaustive_enumeration_for_a_paired_difference(see
     diff = r.choice([-1.0, 0.0, 1.0], len(frame), p=[0.1, 0.8, 0.1])
     diff[worse & (r.random(len(frame)) < 0.2)] = 1.0
     res = search_slices(frame, diff, depth=3, min_rows=40, top=6, split=False, similarity=None)
-    assert res.found[0].rate.method == "wald" and res.found[0].gap.method == "wald"
+    assert res.found[0].rate.method == "wald" and res.found[0].gap.method == "welch"
     eligible, _ = _brute_force(frame, diff, depth=3, min_rows=40, binary=False)
-    _assert_same_top(res.found, eligible, 6)
+    for prune in (False, True):
+        ours, _, _ = _lattice(frame, diff, depth=3, min_rows=40, pool=6, binary=False, prune=prune)
+        _assert_same_top(ours, eligible, 6)
 
 
 def test_without_split_the_multiplicity_counts_every_slice_scored():
@@ -140,16 +160,37 @@ def test_without_split_the_multiplicity_counts_every_slice_scored():
     # a pool larger than the lattice: nothing is pruned, so every supported slice is scored
     res = search_slices(frame, outcome, depth=2, min_rows=30, top=1000, split=False,
                         similarity=None)
-    assert len(res.found) < 1000  # the pool held every eligible slice
+    assert res.settings["carried"] < 5000  # the pool held every eligible slice
     _, n_supported = _brute_force(frame, outcome, depth=2, min_rows=30, binary=True)
-    assert res.tested == n_supported
-    p = np.array([s.p_value for s in res.found])
-    q = np.array([s.q_value for s in res.found])
-    # BH with m = tested (statsmodels as the reference), the unreported p-values set to 1
-    from statsmodels.stats.multitest import multipletests
+    assert res.family == n_supported and res.selected
 
-    padded = np.concatenate([p, np.ones(res.tested - len(p))])
-    np.testing.assert_allclose(q, multipletests(padded, method="fdr_bh")[1][: len(p)])
+
+@pytest.mark.parametrize("binary", [True, False])
+def test_q_values_are_benjamini_hochberg_over_the_family_and_p_values_exact_or_welch(binary):
+    from statsmodels.stats.multitest import multipletests
+    from statsmodels.stats.weightstats import ttest_ind
+
+    from probe.slices.estimate import estimate
+
+    r = np.random.default_rng(3)
+    n = 3000
+    y = (r.random(n) < 0.15).astype(float) if binary else r.choice([-1.0, 0, .5, 1], n,
+                                                                     p=[.05, .8, .1, .05])
+    masks = [r.random(n) < share for share in (0.01, 0.03, 0.1, 0.3)]
+    y[masks[0]] = (r.random(masks[0].sum()) < 0.4) if binary else 1.0 * (r.random(masks[0].sum()) < .3)
+    rows = estimate([None] * 4, masks, y, binary=binary, direction="higher", confidence_level=0.95,
+                    search_level=0.999, interval="wilson", family=40, rng=0)
+    p = np.array([e["p"] for e in rows])
+    for k, m in enumerate(masks):
+        if binary:  # scipy's Fisher exact test on the same counts
+            table = [[y[m].sum(), (1 - y[m]).sum()], [y[~m].sum(), (1 - y[~m]).sum()]]
+            ref = sps.fisher_exact(table, alternative="greater").pvalue
+        else:  # statsmodels' Welch t test (Satterthwaite df)
+            ref = ttest_ind(y[m], y[~m], alternative="larger", usevar="unequal")[1]
+        assert p[k] == pytest.approx(ref, rel=1e-9)
+    padded = np.concatenate([p, np.ones(36)])  # the 36 not carried set to 1
+    np.testing.assert_allclose([e["q"] for e in rows],
+                               multipletests(padded, method="fdr_bh")[1][:4], rtol=1e-12)
 
 
 def test_null_data_gives_few_false_alarms():
@@ -213,7 +254,8 @@ def test_planted_depth_three_slice_comes_first_with_a_covering_interval():
         "misclassified")
     assert res.search_rows + res.estimate_rows == n
     assert abs(res.estimate_rows - n / 2) <= 2
-    assert res.tested == len(res.found)
+    assert res.family == res.settings["carried"] >= len(res.found)
+    assert res.significant >= 1 and not res.selected
     json.dumps(res.to_dict())  # JSON-ready
 
 
@@ -255,7 +297,7 @@ def test_berkeley_department_by_gender_admission_rates():
         for direction in ("higher", "lower"):
             res = search_slices(X, admitted.astype(float), base=(X.Dept == dept).to_numpy(),
                                 label="selection", direction=direction, depth=1, min_rows=20,
-                                split=False, columns=["Gender"])
+                                split=False, columns=["Gender"], max_share=1.0)
             (s,) = res.found
             seen[(dept, s.predicates[0]["value"])] = (s.events, s.rows, s.rate.value)
     assert len(seen) == 12
@@ -396,10 +438,11 @@ def test_pruned_search_equals_exhaustive_enumeration_with_wide_columns(kind):
         y = r.normal(size=len(frame)) + 0.4 * hot
     enc = encode_columns(frame, bins=12)
     assert enc["a"].n_levels * enc["b"].n_levels * enc["c"].n_levels * 2 > 1 << 13
-    res = search_slices(frame, y, depth=3, min_rows=15, top=8, split=False, similarity=None,
-                        bins=12)
     eligible, _ = _brute_force(frame, y, depth=3, min_rows=15, binary=kind == "binary", bins=12)
-    _assert_same_top(res.found, eligible, 8)
+    for prune in (False, True):
+        ours, _, _ = _lattice(frame, y, depth=3, min_rows=15, pool=8, binary=kind == "binary",
+                              bins=12, prune=prune)
+        _assert_same_top(ours, eligible, 8)
 
 
 def test_shared_counting_passes_give_every_column_sets_counts():

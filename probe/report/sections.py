@@ -168,6 +168,8 @@ def groups(report: Mapping) -> Section:
 
 def _held_out(search: Mapping, report: Mapping) -> bool | None:
     """Whether the rates were estimated on rows the search did not see; None when not recorded."""
+    if isinstance(search.get("selected"), bool):
+        return not search["selected"]
     split = (search.get("settings") or {}).get("split")
     if split is None:
         plan = (report.get("provenance") or {}).get("plan") or {}
@@ -177,16 +179,16 @@ def _held_out(search: Mapping, report: Mapping) -> bool | None:
 
 def _estimated_on(search: Mapping, report: Mapping, what: str) -> str:
     """The sentence saying on which rows ``what`` were estimated, and what that implies."""
-    tested, searched = fmt_count(search.get("tested")), fmt_count(search.get("search_rows"))
+    tested, searched = fmt_count(search.get("family")), fmt_count(search.get("search_rows"))
     estimated = fmt_count(search.get("estimate_rows"))
     held_out = _held_out(search, report)
     if held_out:
         return (f"{tested} slices tested, found by a search of {searched} rows; {what} re-estimated "
                 f"on {estimated} held-out rows the search did not see.")
     if held_out is False:
-        return (f"{tested} slices tested; {what} estimated on the same {estimated} rows that were "
-                "searched (no rows held out), so the slices picked for being worst look worse "
-                "than they are: their rates and gaps are optimistic estimates.")
+        return (f"{tested} slices tested; {what} estimated on the same {estimated} rows that chose "
+                "the slices (no rows held out), so they carry the selection effect: the slices "
+                "picked for being worst look worse than they are (overstated).")
     return f"{tested} slices tested on {searched} rows; {what} estimated on {estimated} rows."
 
 
@@ -237,7 +239,9 @@ def slices(report: Mapping) -> Section:
         return not_run("slices", "Slices", "Slices")
     level, metric = _level(report), metric_name(s.get("metric"))
     worst = "lowest" if s.get("direction") == "lower" else "highest"
-    intro = (f"The slices with the {worst} {metric}. Overall {metric} {fmt_est(s.get('overall'))}. "
+    # listed, but none at the significance level: candidates (the note below says so)
+    what = "Candidate slices" if s.get("found") and s.get("significant") == 0 else "The slices"
+    intro = (f"{what} with the {worst} {metric}. Overall {metric} {fmt_est(s.get('overall'))}. "
              + _estimated_on(s, report, "rates, gaps and q-values (Benjamini–Hochberg)"))
     blocks: list = [Paragraph((intro,))]
     found = s.get("found") or []

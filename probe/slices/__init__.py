@@ -22,31 +22,42 @@ How it works
    the depth-3 benchmark in tests/perf (15 columns) makes 87 passes over the rows, not 575. Column sets
    are visited level by level (depth 1, 2, 3, ...), a set only when every one of its sub-sets was
    visited and some slice of it survived. The **score** of a slice (:mod:`.bounds`) is the lower
-   confidence bound of its gap to the rest (Newcombe's interval for 0/1 outcomes, a Wald interval for
-   real-valued ones), in the metric's bad direction. A slice **survives** (is expanded) only if an
-   optimistic bound on the score of any refinement still reaches the current ``pool``-th best score: a
-   refinement of a slice with ``n`` rows and ``x`` events has ``n' >= min_rows`` rows and
-   ``x' <= min(x, n')`` events, and since Newcombe's lower limit is at most
-   ``wilson_low(x', n') - (X - x') / (N - n')``, which is largest at ``n' = clip(x, min_rows, n)``,
-   ``x' = min(x, n')``, that value bounds every refinement. Pruning is therefore exact: the result
-   equals exhaustive enumeration.
-4. **Redundancy.** A depth-1 slice must be worse than the rest (positive gap); a refinement counts only
-   if its score beats the score of *every* slice it refines (one predicate fewer) *and* it is
-   confidently worse than the rest of each of those slices (the lower limit of its rate minus the rate
-   of the parent's other rows, Newcombe or Wald, is above zero): adding a predicate must make the
-   effect materially larger, not carve a lucky corner out of a region that is bad as a whole. Among
-   the best ``2 * top`` slices, near-identical row sets (Jaccard similarity >= ``similarity`` on the
-   estimate-part rows) are kept once, the higher-ranked one, and the first ``top`` remaining are
-   *carried* to the estimate stage.
+   confidence bound of its gap to the rest (Newcombe's interval for 0/1 outcomes, a Wald interval
+   for real-valued ones), in the metric's bad direction, at the *search level*: the confidence
+   level Bonferroni-adjusted over every slice the lattice can hold (known from the levels and the
+   depth before searching), so a large, solid slice beats a small lucky corner. Slices holding more
+   than ``max_share`` of the rows are not scored (slices are sub-groups) but are expanded. A slice
+   **survives** (is expanded) only if an optimistic bound on the score of any refinement still
+   reaches the current pool's worst score: a refinement of a slice with ``n`` rows and ``x``
+   events has ``n' >= min_rows`` rows and ``x' <= min(x, n')`` events, and since Newcombe's lower
+   limit is at most ``wilson_low(x', n') - (X - x') / (N - n')`` at any level, which is largest at
+   ``n' = clip(x, min_rows, n)``, ``x' = min(x, n')``, that value bounds every refinement.
+   Pruning is therefore exact: the result equals exhaustive enumeration.
+4. **Redundancy.** A depth-1 slice must be worse than the rest (positive gap); a refinement counts
+   only if it is confidently worse than the rest of each slice it refines (one predicate fewer):
+   the lower limit of its rate minus the rate of the parent's other rows (Newcombe or Wald, at the
+   nominal level) is above zero, so a predicate that carves a lucky corner out of a region that
+   is bad as a whole adds nothing. Among the best ``2 * pool`` slices, near-identical row sets
+   (Jaccard similarity >= ``similarity`` on the estimate-part rows) are kept once, the
+   higher-ranked one, and the first ``pool = max(50, 5 * top)`` remaining are *carried* to the
+   estimate stage.
 5. **Estimate** (:mod:`.estimate`, on the estimate part only). Rate (Wilson), gap to the rest
-   (Newcombe), the ratio to the rest (MOVER-R), the one-sided p-value (pooled two-proportion z test)
-   and the Benjamini–Hochberg q-value over the carried slices. That multiplicity is valid because
-   which slices were carried depends only on the search part (and on estimate-part row *membership*,
-   not outcomes), so on the estimate part they are a fixed family of ``tested`` hypotheses.
+   (Newcombe), the ratio to the rest (MOVER-R); for a real-valued outcome Wald rates and Welch
+   gaps. The one-sided p-value (:mod:`.pvalues`) is exact for a 0/1 outcome (Fisher's, from the
+   hypergeometric tail) and Welch's t otherwise; the Benjamini–Hochberg q-values are over the
+   carried slices. That multiplicity is valid because which slices were carried depends only on
+   the search part (and on estimate-part row *membership*, not outcomes), so on the estimate part
+   they are a fixed family (``SliceFindings.family``). The **list** (:mod:`.listing`) holds the
+   carried slices worse than the rest on the estimate part, ordered by the same score computed
+   there, each adding rows that are still worse than the rows in none of the slices above it; at
+   most ``top``. When none has q <= 1 - confidence level, a note says the list holds candidates
+   (``SliceFindings.significant`` is 0).
    With ``split=False`` (small data) everything is computed on all rows and the multiplicity is every
-   slice scored during the search: all slices meeting ``min_rows`` in every column set visited, counted
-   exactly; BH uses that ``m`` with the p-values of the slices not carried set to 1 (conservative).
-   Nothing is pruned then, so the count, and every q-value, does not depend on ``top``.
+   slice scored during the search: all slices meeting ``min_rows`` (within the share cap) in every
+   column set visited, counted exactly; BH uses that ``m`` with the p-values of the slices not
+   carried set to 1 (conservative). Nothing is pruned then, so the count, and every q-value, does
+   not depend on ``top``. The listed estimates then come from the rows that chose the slices and
+   are overstated (``SliceFindings.selected``); every renderer says so.
 6. **Bootstrap** (``interval="bootstrap"``): the estimate-part rows are resampled (multinomial) for all
    carried slices at once; because a slice's rate and gap depend on its rows only through the counts of
    (inside/outside the slice) x (outcome value) cells, the resample is drawn on those cells, which is the
@@ -59,6 +70,7 @@ four-fifths rule is a rule of thumb; defer to counsel, local law and licensed pr
 References
 ----------
 Benjamini, Y. & Hochberg, Y. (1995). Controlling the false discovery rate. JRSS-B 57, 289-300.
+Fisher, R. A. (1935). The logic of inductive inference. JRSS 98, 39-82.
 Newcombe, R. G. (1998). Interval estimation for the difference between independent proportions.
 Statistics in Medicine 17, 873-890.
 Efron, B. & Tibshirani, R. (1993). An Introduction to the Bootstrap, ch. 14 (BCa).

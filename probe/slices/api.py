@@ -37,7 +37,8 @@ def find_slices(X: pd.DataFrame, y_true, y_pred, *, options: SliceOptions | None
         The model's decisions, or the name of their column in ``X`` (not sliced either).
     options : SliceOptions, optional
         The search's options (:class:`probe.options.SliceOptions`: ``metric``, ``depth``,
-        ``min_rows``, ``bins``, ``top``, ``split``, ``columns``, ``exclude``, ``interval``); default
+        ``min_rows``, ``bins``, ``top``, ``max_share``, ``split``, ``columns``, ``exclude``,
+        ``interval``); default
         its defaults. The metric decides which rates are the finding: high error, FPR and FNR, low
         selection (a slice denied the favourable decision), as :mod:`probe.metrics` says.
     favorable : bool or {"positive", "negative"}, default=True
@@ -109,11 +110,11 @@ def search_slices(X: pd.DataFrame, outcome, *, base=None, direction: str = "high
                   encoding: Encoding | None = None, **kwargs) -> SliceFindings:
     """The slice search on any per-row outcome over a base mask.
 
-    ``outcome`` may be 0/1 (a rate; Wilson / Newcombe intervals, pooled z test) or real-valued, e.g.
-    the paired difference ``candidate_error - baseline_error`` in {-1, 0, 1}: the rate is then the
-    slice mean and the closed-form intervals are normal-theory (Wald) from the additive sums of the
-    outcome and of its square, with a one-sided z test; method ``"wald"``. The split is a simple
-    random one.
+    ``outcome`` may be 0/1 (a rate; Wilson / Newcombe intervals, Fisher's exact test) or
+    real-valued, e.g. the paired difference ``candidate_error - baseline_error`` in {-1, 0, 1}: the
+    rate is then the slice mean (Wald interval) and the gap a Welch interval, from the additive
+    sums of the outcome and of its square; the one-sided test is exact for {-1, 0, 1} and Welch's
+    otherwise (:mod:`probe.slices.pvalues`). The split is a simple random one.
 
     Parameters
     ----------

@@ -1,9 +1,10 @@
 """The estimate stage: which slices are carried, and their rates, gaps, ratios, p- and q-values.
 
 Everything here is computed on the estimate part only (all rows without a split): Wilson rates,
-Newcombe gaps and MOVER-R ratios for a 0/1 outcome, Wald ones for a real-valued outcome, the
-one-sided p-value, Benjamini-Hochberg q-values over the ``tested`` hypotheses, and, on request, a
-bootstrap of all carried slices at once.
+Newcombe gaps and MOVER-R ratios for a 0/1 outcome, Wald rates and Welch gaps for a real-valued
+outcome, the one-sided p-value (:mod:`.pvalues`: exact for 0/1 and {-1, 0, 1}, Welch otherwise),
+Benjamini-Hochberg q-values over the ``family`` of hypotheses, and, on request, a bootstrap of all
+carried slices at once.
 """
 
 from __future__ import annotations
@@ -13,17 +14,10 @@ import math
 import numpy as np
 from scipy import special
 
-from ..stats import (
-    Estimate,
-    bh_adjust,
-    newcombe_interval,
-    ratio_interval,
-    two_proportion_pvalue,
-    wilson_interval,
-    z_value,
-)
+from ..stats import Estimate, bh_adjust, newcombe_interval, ratio_interval, wilson_interval, z_value
+from .pvalues import exact_pvalue, is_ternary, real_pvalue, welch, welch_interval
 
-__all__ = ["N_RESAMPLES", "carry", "estimate", "rate_estimates"]
+__all__ = ["N_RESAMPLES", "at_level", "carry", "closed_form", "estimate", "rate_estimates"]
 
 N_RESAMPLES = 2000  # bootstrap resamples of the carried slices
 
@@ -40,23 +34,21 @@ def carry(ranked, codes, similarity, top):
 
     Greedy by rank over ``ranked`` (:class:`~probe.slices.lattice.Candidate`): a slice whose rows in
     ``codes`` (the estimate part's) overlap a kept one with Jaccard >= ``similarity`` is dropped
-    (``None`` keeps them all); at most ``top`` are kept."""
-    kept, masks, sizes = [], [], []
+    (``None`` keeps them all); at most ``top`` are kept. The overlaps are counted on the masks
+    packed eight rows to a byte."""
+    kept, masks, packed, sizes = [], [], [], []
     for entry in ranked:
         if len(kept) >= top:
             break
         mask = _member(codes, entry.cols, entry.levels)
-        size = int(mask.sum())
+        size = int(np.count_nonzero(mask))
         if similarity is not None:
-            dup = False
-            for m, s in zip(masks, sizes):
-                inter = int(np.count_nonzero(mask & m))
-                union = size + s - inter
-                if union > 0 and inter / union >= similarity:
-                    dup = True
-                    break
-            if dup:
+            bits = np.packbits(mask)
+            inter = np.array([int(np.bitwise_count(bits & b).sum()) for b in packed])
+            union = size + np.array(sizes) - inter
+            if len(inter) and np.any((union > 0) & (inter >= similarity * union)):
                 continue
+            packed.append(bits)
         kept.append(entry)
         masks.append(mask)
         sizes.append(size)
@@ -83,11 +75,42 @@ def rate_estimates(s, n, sq, binary, cl, limits=None):
     return [Estimate(float(a), float(b), float(c), method) for a, b, c in zip(value, low, high)]
 
 
-def estimate(carried, masks, y, *, binary, direction, confidence_level, interval, tested, rng):
-    """Per carried slice: rates, gap, ratio, p-value and q-value on the estimate part.
+def closed_form(c, binary, cl, limits):
+    """Rate, gap and ratio estimates at level ``cl`` from the counts ``c = (n1, s1, sq1, n2, s2,
+    sq2)`` (arrays over slices): Wilson, Newcombe and MOVER-R for a 0/1 outcome; Wald rate and
+    Welch gap (its limits within the outcome's span) for a real-valued one."""
+    n1, s1, sq1, n2, s2, sq2 = c
+    K = len(n1)
+    if binary:
+        rate = rate_estimates(s1, n1, sq1, True, cl)
+        g_low, g_high = newcombe_interval(s1, n1, s2, n2, confidence_level=cl)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            gap_val = s1 / n1 - s2 / n2
+            r_val = np.where(s2 > 0, (s1 / n1) / (s2 / np.where(n2 > 0, n2, 1)), np.nan)
+        gap = [Estimate(float(v), float(a), float(b), "newcombe")
+               for v, a, b in zip(gap_val, g_low, g_high)]
+        r_low, r_high = ratio_interval(s1, n1, s2, n2, confidence_level=cl)
+        ratio = [Estimate(float(v), float(a), float(b), "mover-wilson")
+                 for v, a, b in zip(r_val, r_low, r_high)]
+        return rate, gap, ratio
+    rate = rate_estimates(s1, n1, sq1, False, cl, limits)
+    gap_val, se, df = welch(s1, sq1, n1, s2, sq2, n2)
+    g_low, g_high = welch_interval(gap_val, se, df, cl)
+    span = (limits[1] - limits[0]) if limits else np.inf
+    gap = [Estimate(float(v), float(max(a, -span)), float(min(b, span)), "welch")
+           for v, a, b in zip(gap_val, g_low, g_high)]
+    return rate, gap, [Estimate(math.nan, math.nan, math.nan, "none")] * K
+
+
+def estimate(carried, masks, y, *, binary, direction, confidence_level, search_level, interval,
+             family, rng):
+    """Per carried slice: rates, gap, ratio, p-value, q-value and evidence on the estimate part.
 
     ``masks`` are the carried slices' rows of ``y`` (the outcome as given, not oriented);
-    ``tested`` is the number of hypotheses of the q-values; ``rng`` seeds the bootstrap."""
+    ``family`` is the number of hypotheses of the q-values; ``rng`` seeds the bootstrap. The
+    *evidence* is the search's score on these rows: the lower limit of the gap in the bad direction
+    at ``search_level`` (see :mod:`.bounds`). Each dict also holds what :func:`at_level` needs to
+    give the estimates at any other level."""
     K = len(carried)
     if K == 0:
         return []
@@ -109,52 +132,54 @@ def estimate(carried, masks, y, *, binary, direction, confidence_level, interval
             sq1[k] = buf @ y_sq
         del buf, y_sq
     N, S, SQ = float(len(y)), float(y.sum()), float((y * y).sum())
-    n2, s2, sq2 = N - n1, S - s1, SQ - sq1
+    c = (n1, s1, sq1, N - n1, S - s1, SQ - sq1)
+    limits = (float(y.min()), float(y.max())) if len(y) and not binary else None
     alt = "greater" if direction == "higher" else "less"
-    with np.errstate(invalid="ignore", divide="ignore"):
-        gap_val = s1 / n1 - s2 / n2
+    rate, gap, ratio = closed_form(c, binary, cl, limits)
+    sign = 1.0 if alt == "greater" else -1.0
     if binary:
-        rate = rate_estimates(s1, n1, sq1, True, cl)
-        g_low, g_high = newcombe_interval(s1, n1, s2, n2, confidence_level=cl)
-        gap = [Estimate(float(v), float(a), float(b), "newcombe")
-               for v, a, b in zip(gap_val, g_low, g_high)]
-        r_low, r_high = ratio_interval(s1, n1, s2, n2, confidence_level=cl)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            r_val = np.where(s2 > 0, (s1 / n1) / (s2 / np.where(n2 > 0, n2, 1)), np.nan)
-        ratio = [Estimate(float(v), float(a), float(b), "mover-wilson")
-                 for v, a, b in zip(r_val, r_low, r_high)]
-        p = two_proportion_pvalue(s1, n1, s2, n2, alternative=alt)
+        p = exact_pvalue(s1, n1, c[4], c[3], alternative=alt)
+        bad1, bad2 = (s1, c[4]) if sign > 0 else (n1 - s1, c[3] - c[4])
+        evidence = newcombe_interval(bad1, n1, bad2, c[3], confidence_level=search_level)[0]
     else:
-        limits = (float(y.min()), float(y.max())) if len(y) else None
-        rate = rate_estimates(s1, n1, sq1, False, cl, limits)
-        z = z_value(cl)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            v1 = np.maximum(sq1 - s1 * s1 / n1, 0.0) / (n1 - 1)
-            v2 = np.maximum(sq2 - s2 * s2 / n2, 0.0) / (n2 - 1)
-            se = np.sqrt(v1 / n1 + v2 / n2)
-            zstat = gap_val / se
-        span = (limits[1] - limits[0]) if limits else np.inf
-        gap = [Estimate(float(v), float(max(v - z * e, -span)), float(min(v + z * e, span)), "wald")
-               for v, e in zip(gap_val, se)]
-        ratio = [Estimate(math.nan, math.nan, math.nan, "none")] * K
-        p = special.ndtr(-zstat) if alt == "greater" else special.ndtr(zstat)
-        p = np.where(se > 0, p, 1.0)  # no spread at all: no evidence either way
+        diff, se, _ = welch(s1, sq1, n1, c[4], c[5], c[3])
+        p = real_pvalue(s1, sq1, n1, c[4], c[5], c[3], ternary=is_ternary(y), alternative=alt)
+        evidence = sign * diff - z_value(search_level) * se
+    evidence = np.where(np.isnan(evidence), -np.inf, evidence)
+    boot = [None] * K
     if interval == "bootstrap":
-        rate, gap = _bootstrap_estimates(masks, y, rng, confidence_level, rate, gap)
+        rate, gap, boot = _bootstrap_estimates(masks, y, rng, cl, rate, gap)
     p = np.where(np.isnan(p), 1.0, p)
-    # BH over `tested` hypotheses; those not carried are set aside with p = 1 (conservative)
-    padded = np.concatenate([p, np.ones(max(int(tested) - K, 0))])
+    # BH over `family` hypotheses; those not carried are set aside with p = 1 (conservative: the
+    # adjusted values only grow with any p-value)
+    padded = np.concatenate([p, np.ones(max(int(family) - K, 0))])
     q = bh_adjust(padded)[:K]
     return [
         {"rows": int(n1[k]), "share": n1[k] / N if N else math.nan, "events": float(s1[k]),
          "rate": rate[k], "gap": gap[k], "ratio": ratio[k], "p": float(p[k]), "q": float(q[k]),
-         "rest_rate": s2[k] / n2[k] if n2[k] else math.nan}
+         "rest_rate": c[4][k] / c[3][k] if c[3][k] else math.nan, "evidence": float(evidence[k]),
+         "basis": (tuple(float(v[k]) for v in c), limits, boot[k])}
         for k in range(K)
     ]
 
 
+def at_level(basis, binary, level):
+    """The rate and gap of one slice at confidence ``level`` from its ``basis`` (counts, the
+    outcome's limits, and its bootstrap draws or None), by the method used at the report's level."""
+    counts, limits, boot = basis
+    rate, gap, _ = closed_form(tuple(np.array([v]) for v in counts), binary, level, limits)
+    rate, gap = rate[0], gap[0]
+    if boot is not None:
+        alpha = (1 - level) / 2
+        rate, gap = (prior if b is None else Estimate(prior.value, *_boot_interval(*b, alpha))
+                     for prior, b in zip((rate, gap), boot))
+    return rate, gap
+
+
 def _bootstrap_estimates(masks, y, rng, confidence_level, rate, gap):
-    """Bootstrap rate and gap intervals for every carried slice at once.
+    """Bootstrap rate and gap intervals for every carried slice at once, and per slice the draws
+    (distribution, observed value, jackknife values, cell weights; None without spread) that give
+    them at any other level.
 
     A slice's rate and gap depend on the rows only through the counts in the cells (inside, outside)
     x (distinct outcome value), so resampling the N rows with replacement is drawing the cell counts
@@ -187,8 +212,9 @@ def _bootstrap_estimates(masks, y, rng, confidence_level, rate, gap):
     jack = cells[:, None, :] - np.eye(2 * J)[None, :, :]
     jack_rate, jack_gap = stats(jack)
     alpha = (1 - confidence_level) / 2
-    out_rate, out_gap = [], []
+    out_rate, out_gap, kept = [], [], []
     for k in range(K):
+        draws_k = []
         for dist, obs, jv, prior, out in (
             (boot_rate[:, k], obs_rate[k], jack_rate[k], rate[k], out_rate),
             (boot_gap[:, k], obs_gap[k], jack_gap[k], gap[k], out_gap),
@@ -197,10 +223,13 @@ def _bootstrap_estimates(masks, y, rng, confidence_level, rate, gap):
                 # every resample gives the same value (e.g. a slice with no events): the bootstrap
                 # has no spread to offer, so the closed-form interval stands
                 out.append(prior)
+                draws_k.append(None)
                 continue
-            lo, hi, method = _boot_interval(dist, obs, jv, cells[k], alpha)
-            out.append(Estimate(prior.value, lo, hi, method))
-    return out_rate, out_gap
+            b = (dist.copy(), obs, jv, cells[k])
+            out.append(Estimate(prior.value, *_boot_interval(*b, alpha)))
+            draws_k.append(b)
+        kept.append(tuple(draws_k))
+    return out_rate, out_gap, kept
 
 
 def _boot_interval(dist, obs, jack_values, weights, alpha):

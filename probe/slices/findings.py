@@ -5,14 +5,19 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
 import pandas as pd
 
 from ..encode import Encoding
 from ..stats import Estimate
+from .estimate import at_level
 
-__all__ = ["Slice", "SliceFindings", "make_slice"]
+__all__ = ["CANDIDATES_NOTE", "Slice", "SliceFindings", "make_slice"]
+
+CANDIDATES_NOTE = ("no slice reaches q <= {alpha}: the slices listed are candidates to look at, not "
+                   "findings")
 
 
 @dataclass(frozen=True)
@@ -40,15 +45,21 @@ class Slice:
     effect_ratio : Estimate
         The slice's rate over the rest's (MOVER-R; NaN for real-valued outcomes).
     p_value : float
-        One-sided, in the metric's bad direction.
+        One-sided, in the metric's bad direction (exact for a 0/1 outcome, Welch otherwise); the
+        list is ordered by it.
     q_value : float
-        Benjamini–Hochberg over ``SliceFindings.tested`` hypotheses.
+        Benjamini–Hochberg over ``SliceFindings.family`` hypotheses.
     score : float
-        The ranking score on the search part: the lower confidence bound of the gap (bad direction).
+        The search score on the search part: the lower confidence bound of the gap (bad direction)
+        at the search level (Bonferroni over the slices the lattice can hold).
     search_rows : int
         Base rows of the search part in the slice.
     sentence : str
         The finding in one plain sentence.
+    confidence_level : float
+        The level of ``rate`` and ``gap`` (not in :meth:`to_dict`).
+    basis : tuple
+        What :meth:`rate_at` and :meth:`gap_at` recompute from (not in :meth:`to_dict`).
     """
 
     rank: int
@@ -65,6 +76,24 @@ class Slice:
     score: float
     search_rows: int
     sentence: str
+    confidence_level: float = field(default=0.95, repr=False)
+    basis: Any = field(default=None, repr=False, compare=False)
+    binary: bool = field(default=True, repr=False)
+
+    def rate_at(self, confidence_level: float) -> Estimate:
+        """The slice's rate with its interval at ``confidence_level`` (the reported one at the
+        report's level), by the same method."""
+        return self._at(confidence_level)[0]
+
+    def gap_at(self, confidence_level: float) -> Estimate:
+        """The gap to the rest with its interval at ``confidence_level`` (the reported one at the
+        report's level), by the same method."""
+        return self._at(confidence_level)[1]
+
+    def _at(self, level):
+        if level == self.confidence_level or self.basis is None:
+            return self.rate, self.gap
+        return at_level(self.basis, self.binary, level)
 
     def to_dict(self) -> dict:
         """The report's found-slice object."""
@@ -98,13 +127,21 @@ class SliceFindings:
         ``"higher"`` (high rates are the finding) or ``"lower"``.
     overall : Estimate
         The rate over all base rows (both parts).
-    tested : int
-        The number of hypotheses the q-values are taken over: the slices carried to the estimate
-        stage (split), or every slice scored during the search (no split).
+    family : int
+        The number of hypotheses the q-values are taken over, fixed before the estimate part is
+        looked at: the slices carried to the estimate stage (split), or every slice scored during
+        the search (no split).
+    significant : int
+        Slices listed with a q-value at most ``1 - confidence_level``; when 0 the list holds
+        candidates only.
+    selected : bool
+        True without a split: the listed estimates come from the rows that chose them and carry
+        the selection effect (overstated).
     search_rows, estimate_rows, base_rows : int
         Base rows in the search part, in the estimate part, and in all.
     found : tuple of Slice
-        Best first.
+        The carried slices worse than the rest on the estimate part, smallest p-value first, at
+        most ``top``.
     notes : tuple of str
         Columns left out and other remarks.
     settings : dict
@@ -114,7 +151,9 @@ class SliceFindings:
     metric: str
     direction: str
     overall: Estimate
-    tested: int
+    family: int
+    significant: int
+    selected: bool
     search_rows: int
     estimate_rows: int
     base_rows: int
@@ -128,7 +167,9 @@ class SliceFindings:
             "metric": self.metric,
             "direction": self.direction,
             "overall": self.overall.to_dict(),
-            "tested": self.tested,
+            "family": self.family,
+            "significant": self.significant,
+            "selected": self.selected,
             "search_rows": self.search_rows,
             "estimate_rows": self.estimate_rows,
             "base_rows": self.base_rows,
@@ -181,6 +222,7 @@ def make_slice(rank, cand, est, enc: Encoding, metric, confidence_level, binary)
         events=est["events"], rate=est["rate"], gap=est["gap"], effect_ratio=est["ratio"],
         p_value=est["p"], q_value=est["q"], score=score, search_rows=search_rows,
         sentence=_sentence(label, metric, est, confidence_level, binary),
+        confidence_level=confidence_level, basis=est["basis"], binary=binary,
     )
 
 

@@ -61,6 +61,11 @@ class Lattice:
     pool : int
         How many of the best slices to keep.
     confidence_level : float
+        The nominal level (the within-parent limits).
+    score_level : float
+        The scores' level (:func:`~probe.slices.bounds.search_level`).
+    max_share : float
+        Slices over this share of the rows are expanded but not scored.
     prune : bool, default=True
         Skip slices whose bound misses the cut. ``False`` scores every supported slice of every set
         visited (the no-split multiplicity counts them all, so it must not depend on ``pool``).
@@ -72,23 +77,24 @@ class Lattice:
     >>> codes = [r.integers(0, 3, 5000).astype(np.uint8), r.integers(0, 2, 5000).astype(np.uint8)]
     >>> y = (r.random(5000) < np.where((codes[0] == 1) & (codes[1] == 0), 0.5, 0.1)).astype(np.uint8)
     >>> ranked, n_scored, n_candidates = Lattice(codes, [3, 2], y, True, depth=2, min_rows=30,
-    ...                                          pool=3, confidence_level=0.95).run()
+    ...                                          pool=3, confidence_level=0.95, score_level=0.99,
+    ...                                          max_share=0.5).run()
     >>> ranked[0].cols, ranked[0].levels
     ((0, 1), (1, 0))
     """
 
     def __init__(self, codes, n_levels, y, binary, *, depth, min_rows, pool, confidence_level,
-                 prune=True):
+                 score_level, max_share, prune=True):
         self.n_levels = n_levels
         self.n_cols = len(codes)
         self.depth = depth
         self.pool = pool
         self.prune = prune
         self.counter = SliceCounter(codes, n_levels, y, binary)
-        self.scorer = Scorer(y, binary, min_rows, confidence_level)
+        self.scorer = Scorer(y, binary, min_rows, confidence_level, score_level, max_share)
         self.visited = {}  # cols -> (score, bound, candidate, stats), arrays over the set's keys
         self.best = []  # sorted (rank key, Candidate), best first, at most `pool`
-        self.n_scored = 0  # supported slices scored
+        self.n_scored = 0  # supported slices scored (within the share cap)
         self.n_candidates = 0  # slices whose every parent survived: the ones not pruned
 
     def run(self):
@@ -166,30 +172,32 @@ class Lattice:
                 return
         else:
             cand = np.ones(size, dtype=bool)
-        self.n_scored += int(supported.sum())
+        self.n_scored += int((supported & (st[0] <= self.scorer.max_rows)).sum())
         ok = supported & cand
         self.n_candidates += int(ok.sum())
         score = np.where(ok, score_all, -np.inf)
         bound = np.full(size, -np.inf) if bound_all is None else np.where(ok, bound_all, -np.inf)
-        eligible = self.eligible(node, st, ok, score)
         self.visited[node.cols] = (score, bound, ok, st)
-        keys = np.flatnonzero(eligible & (score >= self.threshold()))
+        # only slices reaching the cut can enter the pool: eligibility is checked on those alone
+        keys = np.flatnonzero(ok & np.isfinite(score) & (score >= self.threshold()))
+        if len(keys):
+            keys = self.eligible(node, st, keys)
         if len(keys):
             self.merge(node, keys, score, st[0])
 
-    def eligible(self, node, st, ok, score) -> np.ndarray:
-        """A depth-1 slice: worse than the rest. A refinement: material (see the package notes)."""
+    def eligible(self, node, st, keys) -> np.ndarray:
+        """The slices of ``keys`` that are eligible: a depth-1 slice is worse than the rest; a
+        refinement is material (see the package notes)."""
         if not node.parents:
-            eligible = ok & (self.scorer.gap(st) > 0)
-        else:
-            # more certainly worse than the rest than every parent, and confidently worse than the
-            # rest of each parent (the parent's other rows), so an extra predicate that only carves
-            # a lucky corner out of a bad region is dropped
-            eligible = ok.copy()
-            for s, pk in node.parents:
-                eligible &= score > self.visited[s][0][pk]
-                eligible &= self.scorer.within_parent(st, self.visited[s][3], pk) > 0
-        return eligible & np.isfinite(score)
+            return keys[self.scorer.gap(tuple(a[keys] for a in st)) > 0]
+        # confidently worse than the rest of each parent (the parent's other rows), so an extra
+        # predicate that only carves a lucky corner out of a bad region is dropped
+        for s, pk in node.parents:
+            if not len(keys):
+                break
+            sub = tuple(a[keys] for a in st)
+            keys = keys[self.scorer.within_parent(sub, self.visited[s][3], pk[keys]) > 0]
+        return keys
 
     def merge(self, node, keys, score, n):
         """Add the slices ``keys`` of a column set to the pool and keep its best ``pool`` (rank:

@@ -10,13 +10,22 @@ import numpy as np
 from ..encode import Encoding
 from ..errors import PlanError
 from ..options import SliceOptions
+from .bounds import search_level
 from .estimate import N_RESAMPLES, carry, estimate, rate_estimates
-from .findings import SliceFindings, make_slice
+from .findings import CANDIDATES_NOTE, SliceFindings, make_slice
 from .lattice import Lattice
+from .listing import listed
 
-__all__ = ["Inputs", "run", "ESTIMATE_SHARE"]
+__all__ = ["Inputs", "run", "ESTIMATE_SHARE", "carried_pool"]
 
 ESTIMATE_SHARE = 0.5  # share of the base rows in the estimate part
+
+
+def carried_pool(top: int) -> int:
+    """How many slices are carried to the estimate part: ``max(50, 5 * top)``. A real slice that
+    the search half ranks below a few dozen noise slices is still carried, and ranked by the
+    estimate half's evidence (tests/sim/sim_slices.py measures the power with this pool)."""
+    return max(50, 5 * top)
 _TAKE_ROWS = 1 << 16  # row indices gathered at a time (they and their rows stay in cache)
 
 
@@ -54,7 +63,8 @@ class Inputs:
 
 
 def run(enc: Encoding, label: str, inp: Inputs) -> SliceFindings:
-    """Split the base rows, search one part, estimate the carried slices on the other."""
+    """Split the base rows, search one part, estimate the carried slices on the other, and list
+    those worse than the rest there, by the estimate part's evidence."""
     o = inp.options
     codes = [c.codes for c in enc.columns]
     if inp.base_idx is not None:
@@ -84,25 +94,32 @@ def run(enc: Encoding, label: str, inp: Inputs) -> SliceFindings:
         s_y = s_y.astype(np.uint8) if inp.direction == "higher" else (1.0 - s_y).astype(np.uint8)
     elif inp.direction == "lower":
         s_y = -s_y
-    pool = 2 * o.top if inp.similarity is not None else o.top
+    n_carry = carried_pool(o.top)
+    pool = 2 * n_carry if inp.similarity is not None else n_carry
+    level = search_level(inp.confidence_level, n_levels, o.depth)
     # without a split the q-values are taken over every slice scored, so nothing may be pruned:
     # otherwise the count (and every q-value) would depend on `top`
     ranked, n_scored, n_candidates = Lattice(
         s_codes, n_levels, s_y, inp.binary, depth=o.depth, min_rows=min_rows, pool=pool,
-        confidence_level=inp.confidence_level, prune=o.split,
+        confidence_level=inp.confidence_level, score_level=level, max_share=o.max_share,
+        prune=o.split,
     ).run()
     del s_codes, s_y
     e_codes = _Rows(codes, est_rows) if o.split else codes
     e_y = _take([inp.y], est_rows)[0] if o.split else inp.y
-    carried, masks = carry(ranked, e_codes, inp.similarity, o.top)
-    tested = len(carried) if o.split else n_scored
+    carried, masks = carry(ranked, e_codes, inp.similarity, n_carry)
+    family = len(carried) if o.split else n_scored  # fixed before the estimate part is looked at
     rows = estimate(carried, masks, e_y, binary=inp.binary, direction=inp.direction,
-                    confidence_level=inp.confidence_level, interval=o.interval, tested=tested,
-                    rng=inp.rng)
+                    confidence_level=inp.confidence_level, search_level=level,
+                    interval=o.interval, family=family, rng=inp.rng)
+    worse = listed(rows, masks, e_y, binary=inp.binary, direction=inp.direction,
+                   confidence_level=inp.confidence_level, top=o.top)
     found = tuple(
-        make_slice(rank, cand, est, enc, label, inp.confidence_level, inp.binary)
-        for rank, (cand, est) in enumerate(zip(carried, rows), start=1)
+        make_slice(rank, carried[k], rows[k], enc, label, inp.confidence_level, inp.binary)
+        for rank, k in enumerate(worse, start=1)
     )
+    alpha = 1.0 - inp.confidence_level
+    significant = sum(s.q_value <= alpha for s in found)
     y = inp.y
     overall = rate_estimates(np.array([y.sum()]), np.array([float(n_base)]),
                              np.array([(y * y).sum()]), inp.binary, inp.confidence_level,
@@ -110,8 +127,11 @@ def run(enc: Encoding, label: str, inp: Inputs) -> SliceFindings:
     notes = list(enc.notes)
     if not found:
         notes.append(f"no slice with at least {min_rows} rows is worse than the rest")
+    elif not significant:
+        notes.append(CANDIDATES_NOTE.format(alpha=f"{alpha:g}"))
     settings = {
-        "depth": o.depth, "min_rows": min_rows, "top": o.top, "bins": o.bins, "split": o.split,
+        "depth": o.depth, "min_rows": min_rows, "top": o.top, "max_share": o.max_share,
+        "bins": o.bins, "split": o.split, "carried": len(carried), "search_level": level,
         "estimate_share": ESTIMATE_SHARE if o.split else 0.0,
         "confidence_level": inp.confidence_level, "interval": o.interval,
         "n_resamples": N_RESAMPLES if o.interval == "bootstrap" else None,
@@ -122,7 +142,8 @@ def run(enc: Encoding, label: str, inp: Inputs) -> SliceFindings:
         else "every slice scored during the search",
     }
     return SliceFindings(
-        metric=label, direction=inp.direction, overall=overall[0], tested=int(tested),
+        metric=label, direction=inp.direction, overall=overall[0], family=int(family),
+        significant=int(significant), selected=not o.split,
         search_rows=n_search, estimate_rows=int(est_mask.sum()), base_rows=n_base, found=found,
         notes=tuple(notes), settings=settings,
     )

@@ -4,7 +4,8 @@ The comparison is end to end: probe's whole ``search_slices`` call (encoding, sp
 estimates) against the plain way of doing the search stage with pandas, which is given the same
 encoding (probe's own, timed once and counted on its side) and the same search rows, and then runs
 one ``groupby`` per column set, every column set up to depth 3 (all of them, none extrapolated),
-computing the same per-slice rows, events and Newcombe score.
+computing the same per-slice rows, events and Newcombe score (at the search level: 0.05 over the
+slices the lattice holds, counted here by enumerating the column sets).
 """
 
 import time
@@ -17,7 +18,9 @@ import pytest
 
 from probe.encode import encode_columns
 from probe.slices import search_slices
+from probe.slices.bounds import search_level
 from probe.slices.lattice import Lattice
+from probe.slices.search import carried_pool
 from probe.stats import newcombe_interval
 
 pytestmark = pytest.mark.perf
@@ -57,13 +60,15 @@ def _naive(frame, outcome, depth, min_rows):
     df["_y"] = y = outcome[rows]
     encoded = time.perf_counter()
     N, total = len(y), y.sum()
+    m = sum(int(np.prod([enc[c].n_levels for c in cols]))
+            for d in range(1, depth + 1) for cols in combinations(enc.names, d))
     scores, n_sets, n_supported = {}, 0, 0
     for d in range(1, depth + 1):
         for cols in combinations(enc.names, d):
             g = df.groupby(list(cols), observed=True)["_y"].agg(["count", "sum"])
             g = g[(g["count"] >= min_rows) & (g["count"] < N)]
             n, x = g["count"].to_numpy(float), g["sum"].to_numpy(float)
-            low, _ = newcombe_interval(x, n, total - x, N - n)
+            low, _ = newcombe_interval(x, n, total - x, N - n, confidence_level=1 - 0.05 / m)
             scores[cols] = dict(zip(g.index, low))
             n_sets += 1
             n_supported += len(g)
@@ -109,8 +114,10 @@ def test_perf_one_million_rows_depth_three():
     rows = naive["rows"]
     arrays = [c.codes[rows] for c in enc.columns]
     levels = [c.n_levels for c in enc.columns]
+    level, pool = search_level(0.95, levels, 3), 2 * carried_pool(10)  # as search_slices runs it
     search, _ = _best_of(3, lambda: Lattice(arrays, levels, outcome[rows], True, depth=3,
-                                            min_rows=min_rows, pool=20, confidence_level=0.95).run())
+                                            min_rows=min_rows, pool=pool, confidence_level=0.95,
+                                            score_level=level, max_share=0.5).run())
 
     encoded_bytes = sum(c.codes.nbytes for c in enc.columns)
     frame_bytes = int(frame.memory_usage(deep=True).sum())

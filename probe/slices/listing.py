@@ -1,0 +1,63 @@
+"""Which carried slices are listed, and in which order.
+
+A carried slice is listed when, on the estimate part,
+
+1. it is worse than the rest (a positive gap in the bad direction), and
+2. it adds something to the slices listed above it: when it shares rows with them, its own other
+   rows are still worse than the rows in none of them (one-sided p-value, exact for 0/1 and
+   {-1, 0, 1} outcomes, Welch otherwise, at most ``(1 - confidence_level) / carried``: Bonferroni over the carried
+   slices, any of which may be checked). A broad slice that is bad only because it holds a listed
+   slice's rows is not listed again.
+
+The order is the estimate part's evidence: the gap's lower limit at the search level (the search's
+own score, now on rows the search did not see), then the p-value; at most ``top`` are listed. The
+q-values are not touched: they are taken over the whole carried family, fixed before the estimate
+part is looked at, and listing fewer slices only drops discoveries.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from .pvalues import exact_pvalue, is_ternary, real_pvalue
+
+__all__ = ["listed"]
+
+
+def listed(rows, masks, y, *, binary, direction, confidence_level, top):
+    """Indices into ``rows`` (the dicts of :func:`~probe.slices.estimate.estimate`) of the slices
+    listed, in order; ``masks`` their rows of the estimate part's outcome ``y``."""
+    sign = 1.0 if direction == "higher" else -1.0
+    alt = "greater" if direction == "higher" else "less"
+    order = sorted((k for k in range(len(rows)) if sign * rows[k]["gap"].value > 0),
+                   key=lambda k: (-rows[k]["evidence"], rows[k]["p"]))
+    cut = (1.0 - confidence_level) / max(len(rows), 1)
+    out, covered = [], np.zeros(len(y), dtype=bool)
+    for k in order:
+        if len(out) >= top:
+            break
+        mask = masks[k]
+        if out and np.any(mask & covered):
+            own = mask & ~covered
+            rest = ~(mask | covered)
+            if _pvalue(y, own, rest, binary, alt) > cut:
+                continue
+        out.append(k)
+        covered |= mask
+    return out
+
+
+def _pvalue(y, a, b, binary, alt) -> float:
+    """One-sided p-value of the rows ``a`` against the rows ``b`` (1 when either is empty)."""
+    na, nb = float(np.count_nonzero(a)), float(np.count_nonzero(b))
+    if na < 1 or nb < 1:
+        return 1.0
+    if binary:
+        events = y == 1
+        p = exact_pvalue(np.count_nonzero(a & events), na, np.count_nonzero(b & events), nb,
+                         alternative=alt)
+    else:
+        sums = [(y @ m, (y * y) @ m) for m in (a, b)]
+        p = real_pvalue(*sums[0], na, *sums[1], nb, ternary=is_ternary(y), alternative=alt)
+    p = float(np.asarray(p).ravel()[0])
+    return 1.0 if np.isnan(p) else p

@@ -1,0 +1,39 @@
+"""Fast guards of the slice search's level and power (the simulations of ``sim_slices.py`` with few
+runs at small sizes). Each bound is one a correct method meets with high probability; the
+probability is in the comment beside it (binomial tails at the target rate)."""
+
+import sim_slices
+
+
+def test_null_search_with_a_split_holds_its_level():
+    figures = sim_slices.SIMS["null_split_2000"](runs=24, seed=500)
+    for f in figures:
+        # at a true rate of 5 %, P(6 or more alarms in 24) = 0.007 per metric (measured rate: see
+        # the module's default run, well below 5 %)
+        assert f.value * f.runs <= 5, f.row()
+
+
+def test_null_search_without_a_split_holds_its_level():
+    figures = sim_slices.SIMS["null_nosplit_2000"](runs=12, seed=700)
+    for f in figures:
+        # at a true rate of 5 %, P(4 or more alarms in 12) = 0.002 per metric
+        assert f.value * f.runs <= 3, f.row()
+
+
+def test_a_planted_slice_is_found():
+    (f,) = sim_slices.SIMS["planted_10pt_2way"](runs=16, seed=900)
+    # at a true power of 0.9, P(11 or fewer found in 16) = 0.017; the default run measures more
+    assert f.value * f.runs >= 12, f.row()
+
+
+def test_the_comparison_localises_a_worse_slice_and_stays_quiet_on_null_data():
+    found, null = sim_slices.SIMS["compare"](runs=8, seed=300)
+    assert found.value * found.runs >= 6, found.row()  # power 0.9: P(5 or fewer in 8) = 0.04
+    assert null.value * null.runs <= 2, null.row()  # level 0.05: P(3 or more in 8) = 0.006
+
+
+def test_the_exact_paired_test_holds_its_level_on_rare_discordance():
+    for f in sim_slices.SIMS["welch_level"](runs=500, seed=11):
+        if f.what.startswith("exact"):  # the test the search uses on {-1, 0, 1} (Welch is not)
+            # 100 draws: at a level of 5 %, P(13 or more) = 0.002
+            assert f.value * f.runs <= 12, f.row()
