@@ -232,7 +232,7 @@ def _judge_one(name, m: Measure, threshold, *, upper, level, report_level, famil
     if est.high - est.low <= 0:
         return result(est, "inconclusive", "the interval has zero width: no evidence either way")
     low, high = est.low, est.high
-    where = f"whole {_pct(level)} interval"
+    where = "whole interval"
     if upper:
         if high <= threshold:
             return result(est, "pass", f"{where} at or below the bound {threshold:g}")
@@ -243,7 +243,7 @@ def _judge_one(name, m: Measure, threshold, *, upper, level, report_level, famil
             return result(est, "pass", f"{where} at or above the bound {threshold:g}")
         if high < threshold:
             return result(est, "fail", f"{where} below the bound {threshold:g}")
-    return result(est, "inconclusive", f"the {_pct(level)} interval straddles the bound {threshold:g}")
+    return result(est, "inconclusive", f"the interval straddles the bound {threshold:g}")
 
 
 def judge(measured: Mapping[str, Family | None], policy: PolicyOptions, *,
