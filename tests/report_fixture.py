@@ -261,6 +261,8 @@ def _verdict(groups: list[dict], slices: dict, flips: list[dict]) -> dict:
             "subject": subject,
             "threshold": threshold,
             "value": value,
+            "level": 0.95,
+            "family": 1,
             "status": status,
             "passed": passed,
             "message": message,
@@ -269,6 +271,8 @@ def _verdict(groups: list[dict], slices: dict, flips: list[dict]) -> dict:
     return {
         "passed": False,
         "fail_on_inconclusive": False,
+        "error_control": {"error_rate": 0.05, "adjustment": "bonferroni", "rules_judged": 2,
+                          "min_rows": 30},
         "rules": [
             rule(
                 "min_impact_ratio",

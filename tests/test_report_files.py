@@ -449,8 +449,8 @@ def test_markdown_order_caution_and_null_section():
     rule = example_report()["verdict"]["rules"][0]
     v = rule["value"]
     lines = [ln for ln in text.splitlines() if "sex = F |" in ln and "fail" in ln]
-    assert any(f"| {_f(v['value'], 4)} | [{_f(v['low'], 4)}, {_f(v['high'], 4)}] | ≥ 0.8 |" in ln
-               for ln in lines)
+    assert any(f"| {_f(v['value'], 4)} | [{_f(v['low'], 4)}, {_f(v['high'], 4)}] | 95 % (1) | ≥ 0.8 |"
+               in ln for ln in lines)
 
 
 @pytest.mark.parametrize("render", [render_markdown, render_html, render_junit])

@@ -100,6 +100,9 @@ def test_slices_claim_no_held_out_rows_when_the_report_does_not_say():
 def test_every_renderer_states_the_reports_own_confidence_level():
     report = fixture.example_report(with_comparison=True)
     report["provenance"]["confidence_level"] = 0.9
+    report["verdict"]["error_control"]["error_rate"] = 0.1
+    for rule in report["verdict"]["rules"]:
+        rule["level"] = 0.9
     for name, text in _all(report).items():
         assert "90 % interval" in text, name
         assert not re.search(r"95 ?%", text), name

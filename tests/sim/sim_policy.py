@@ -49,7 +49,7 @@ class _AtTheBound:
 
 def one_run(seed, n):
     rng = np.random.default_rng(seed)
-    X = mixed_frame(rng, n, 8)
+    X = mixed_frame(rng, n, 12)
     X["grp"] = group_column(rng, n, [0.4, 0.3, 0.2, 0.1])
     X["z"], X["u"] = rng.normal(size=n), rng.random(n)
     g = X["grp"].to_numpy()

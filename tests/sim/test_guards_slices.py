@@ -33,7 +33,7 @@ def test_the_comparison_localises_a_worse_slice_and_stays_quiet_on_null_data():
 
 
 def test_the_exact_paired_test_holds_its_level_on_rare_discordance():
-    for f in sim_slices.SIMS["welch_level"](runs=500, seed=11):
+    for f in sim_slices.SIMS["ternary_level"](runs=500, seed=11):
         if f.what.startswith("exact"):  # the test the search uses on {-1, 0, 1} (Welch is not)
             # 100 draws: at a level of 5 %, P(13 or more) = 0.002
             assert f.value * f.runs <= 12, f.row()
