@@ -102,12 +102,26 @@ def closed_form(c, binary, cl, limits):
     return rate, gap, [Estimate(math.nan, math.nan, math.nan, "none")] * K
 
 
+def rank_weights(k: int) -> np.ndarray:
+    """Weights of the weighted Benjamini-Hochberg procedure (Genovese, Roeder & Wasserman 2006) for
+    hypotheses ranked before their p-values are seen: proportional to ``1 / rank``, averaging 1.
+
+    BH on ``p / w`` controls the FDR at the nominal level for any fixed weights that average 1
+    (independence; positive dependence, Blanchard & Roquain 2008). The search part's first slice
+    gets ``k / H_k`` (11.1 for 50 carried), so a slice the search ranks first is judged almost as if
+    few had been carried, while the 50th still gets a chance (``1 / H_k``, 0.22)."""
+    w = 1.0 / np.arange(1, k + 1)
+    return w * (k / w.sum())
+
+
 def estimate(carried, masks, y, *, binary, direction, confidence_level, search_level, interval,
-             family, rng):
+             family, rng, ranked=False):
     """Per carried slice: rates, gap, ratio, p-value, q-value and evidence on the estimate part.
 
     ``masks`` are the carried slices' rows of ``y`` (the outcome as given, not oriented);
-    ``family`` is the number of hypotheses of the q-values; ``rng`` seeds the bootstrap. The
+    ``family`` is the number of hypotheses of the q-values; ``rng`` seeds the bootstrap;
+    ``ranked``: the carried slices are in the search part's order, fixed before these rows are
+    looked at, and the q-values weight them by it (:func:`rank_weights`). The
     *evidence* is the search's score on these rows: the lower limit of the gap in the bad direction
     at ``search_level`` (see :mod:`.bounds`). Each dict also holds what :func:`at_level` needs to
     give the estimates at any other level."""
@@ -140,11 +154,11 @@ def estimate(carried, masks, y, *, binary, direction, confidence_level, search_l
     if binary:
         p = exact_pvalue(s1, n1, c[4], c[3], alternative=alt)
         bad1, bad2 = (s1, c[4]) if sign > 0 else (n1 - s1, c[3] - c[4])
-        evidence = newcombe_interval(bad1, n1, bad2, c[3], confidence_level=search_level)[0]
+        evidence = newcombe_interval(bad1, n1, bad2, c[3], confidence_level=cl)[0]
     else:
         diff, se, _ = welch(s1, sq1, n1, c[4], c[5], c[3])
         p = real_pvalue(s1, sq1, n1, c[4], c[5], c[3], ternary=is_ternary(y), alternative=alt)
-        evidence = sign * diff - z_value(search_level) * se
+        evidence = sign * diff - z_value(cl) * se
     evidence = np.where(np.isnan(evidence), -np.inf, evidence)
     boot = [None] * K
     if interval == "bootstrap":
@@ -153,7 +167,9 @@ def estimate(carried, masks, y, *, binary, direction, confidence_level, search_l
     # BH over `family` hypotheses; those not carried are set aside with p = 1 (conservative: the
     # adjusted values only grow with any p-value)
     padded = np.concatenate([p, np.ones(max(int(family) - K, 0))])
-    q = bh_adjust(padded)[:K]
+    if ranked:
+        padded = np.minimum(padded / rank_weights(len(padded)), 1.0)
+    q = np.minimum(bh_adjust(padded)[:K], 1.0)
     return [
         {"rows": int(n1[k]), "share": n1[k] / N if N else math.nan, "events": float(s1[k]),
          "rate": rate[k], "gap": gap[k], "ratio": ratio[k], "p": float(p[k]), "q": float(q[k]),

@@ -3,11 +3,12 @@
 A carried slice is listed when, on the estimate part,
 
 1. it is worse than the rest (a positive gap in the bad direction), and
-2. it adds something to the slices listed above it: when it shares rows with them, its own other
-   rows are still worse than the rows in none of them (one-sided p-value, exact for 0/1 and
-   {-1, 0, 1} outcomes, Welch otherwise, at most ``(1 - confidence_level) / carried``: Bonferroni over the carried
-   slices, any of which may be checked). A broad slice that is bad only because it holds a listed
-   slice's rows is not listed again.
+2. it adds something to the slices listed above it: when it shares rows with them, either its own
+   other rows are still worse than the rows in none of them, or the slice is worse than the listed
+   rows it does not hold (one-sided p-values, exact for 0/1 and {-1, 0, 1} outcomes, Welch
+   otherwise, at most ``(1 - confidence_level) / carried``: Bonferroni over the carried slices, any
+   of which may be checked). A broad slice that is bad only because it holds a listed slice's rows
+   is not listed again; a sharper slice inside a broad listed one is.
 
 The order is the estimate part's evidence: the gap's lower limit at the search level (the search's
 own score, now on rows the search did not see), then the p-value; at most ``top`` are listed. The
@@ -38,9 +39,10 @@ def listed(rows, masks, y, *, binary, direction, confidence_level, top):
             break
         mask = masks[k]
         if out and np.any(mask & covered):
-            own = mask & ~covered
-            rest = ~(mask | covered)
-            if _pvalue(y, own, rest, binary, alt) > cut:
+            # it adds worse rows of its own, or it is worse than the listed rows it does not hold
+            # (a sharper place inside a broad listed slice)
+            if (_pvalue(y, mask & ~covered, ~(mask | covered), binary, alt) > cut
+                    and _pvalue(y, mask, covered & ~mask, binary, alt) > cut):
                 continue
         out.append(k)
         covered |= mask
