@@ -18,7 +18,7 @@ from ._version import __version__
 
 __all__ = ["SCHEMA", "CAUTION", "Findings", "assemble_report"]
 
-SCHEMA = "probe.report/1"
+SCHEMA = "probe.report/2"
 
 CAUTION = (
     "A statistical screen, not a legal finding. The four-fifths rule is a rule of thumb, not a legal "

@@ -1,4 +1,4 @@
-"""A realistic report dict (``probe.report/1``) for the report-file renderers' tests.
+"""A realistic report dict (``probe.report/2``) for the report-file renderers' tests.
 
 The numbers come from invented counts for an invented lending scenario, pushed through
 ``probe.stats`` (Wilson, Newcombe, MOVER-R, the two-proportion test, Benjamini–Hochberg), so every
@@ -327,12 +327,12 @@ def _verdict(groups: list[dict], slices: dict, flips: list[dict]) -> dict:
 
 
 def example_report(*, with_comparison: bool = False) -> dict:
-    """A fresh, JSON-ready ``probe.report/1`` dict; ``comparison`` is null unless asked for."""
+    """A fresh, JSON-ready ``probe.report/2`` dict; ``comparison`` is null unless asked for."""
     groups = _groups()
     slices = _slices()
     flips = _flips()
     return {
-        "schema": "probe.report/1",
+        "schema": "probe.report/2",
         "caution": (
             "A statistical screen, not a legal finding. The four-fifths rule is a rule of thumb. "
             "Defer to counsel, local law and licensed practice."

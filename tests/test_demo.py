@@ -25,7 +25,7 @@ def test_demo_runs_every_section_and_writes_all_four_files(tmp_path, built, scen
     assert sorted(p.name for p in tmp_path.iterdir()) == ["junit.xml", "report.html", "report.json",
                                                         "report.md"]
     report = json.loads((tmp_path / "report.json").read_text())
-    assert report["schema"] == "probe.report/1"
+    assert report["schema"] == "probe.report/2"
     for key in ("groups", "slices", "flips", "comparison", "verdict"):
         assert report[key], f"section {key} is empty"
     assert report["verdict"]["passed"] is False

@@ -16,7 +16,7 @@ def test_readme_python_example_runs(built, monkeypatch, tmp_path):
     code = re.search(r"## Python API\n\n```python\n(.*?)```", README, re.S).group(1)
     namespace: dict = {}
     exec(compile(code, "README.md", "exec"), namespace)
-    assert namespace["report"]["schema"] == "probe.report/1"
+    assert namespace["report"]["schema"] == "probe.report/2"
     assert namespace["slices"].found
 
 

@@ -537,7 +537,7 @@ def test_write_report_rejects_bad_formats_and_folders(tmp_path):
 
 def test_a_report_with_nothing_run_still_renders_everywhere():
     report = {
-        "schema": "probe.report/1",
+        "schema": "probe.report/2",
         "provenance": {"probe_version": "0.1.0", "confidence_level": 0.9},
         "groups": None,
         "slices": None,

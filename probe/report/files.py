@@ -77,7 +77,7 @@ def write_report(
     Parameters
     ----------
     report : dict
-        The ``probe.report/1`` dict; never modified.
+        The ``probe.report/2`` dict; never modified.
     out_dir : str or path-like
         The report folder; created (with parents) when missing.
     formats : sequence of str, default=("json", "html", "md", "junit")

@@ -166,7 +166,7 @@ def _section(section: Section) -> str:
 
 
 def render_html(report: Mapping) -> str:
-    """Render a ``probe.report/1`` dict as one self-contained HTML page.
+    """Render a ``probe.report/2`` dict as one self-contained HTML page.
 
     Parameters
     ----------

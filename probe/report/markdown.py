@@ -103,7 +103,7 @@ def _section(section: Section) -> list[str]:
 
 
 def render_markdown(report: Mapping) -> str:
-    """Render a ``probe.report/1`` dict as GitHub-flavoured Markdown.
+    """Render a ``probe.report/2`` dict as GitHub-flavoured Markdown.
 
     Parameters
     ----------

@@ -362,7 +362,7 @@ def _provenance(report: Mapping) -> Section:
 
 
 def build_model(report: Mapping) -> ReportModel:
-    """Build the report model from a ``probe.report/1`` dict.
+    """Build the report model from a ``probe.report/2`` dict.
 
     Parameters
     ----------

@@ -44,13 +44,14 @@ How it works
 5. **Estimate** (:mod:`.estimate`, on the estimate part only). Rate (Wilson), gap to the rest
    (Newcombe), the ratio to the rest (MOVER-R); for a real-valued outcome Wald rates and Welch
    gaps. The one-sided p-value (:mod:`.pvalues`) is exact for a 0/1 outcome (Fisher's, from the
-   hypergeometric tail) and Welch's t otherwise; the Benjamini–Hochberg q-values are over the
-   carried slices. That multiplicity is valid because which slices were carried depends only on
+   hypergeometric tail), the conditional exact test for a {-1, 0, 1} outcome and Welch's t
+   otherwise; the q-values are weighted Benjamini–Hochberg over the carried slices (weights
+   proportional to 1 / the search part's rank, averaging 1: Genovese, Roeder & Wasserman 2006). That multiplicity is valid because which slices were carried depends only on
    the search part (and on estimate-part row *membership*, not outcomes), so on the estimate part
    they are a fixed family (``SliceFindings.family``). The **list** (:mod:`.listing`) holds the
-   carried slices worse than the rest on the estimate part, ordered by the same score computed
-   there, each adding rows that are still worse than the rows in none of the slices above it; at
-   most ``top``. When none has q <= 1 - confidence level, a note says the list holds candidates
+   carried slices worse than the rest on the estimate part, ordered by the gap's lower limit there
+   at the report's level, each adding rows that are still worse than the rows in none of the
+   slices above it, or worse than the listed rows it does not hold; at most ``top``. When none has q <= 1 - confidence level, a note says the list holds candidates
    (``SliceFindings.significant`` is 0).
    With ``split=False`` (small data) everything is computed on all rows and the multiplicity is every
    slice scored during the search: all slices meeting ``min_rows`` (within the share cap) in every

@@ -114,16 +114,17 @@ def rank_weights(k: int) -> np.ndarray:
     return w * (k / w.sum())
 
 
-def estimate(carried, masks, y, *, binary, direction, confidence_level, search_level, interval,
-             family, rng, ranked=False):
+def estimate(carried, masks, y, *, binary, direction, confidence_level, interval, family, rng,
+             ranked=False):
     """Per carried slice: rates, gap, ratio, p-value, q-value and evidence on the estimate part.
 
     ``masks`` are the carried slices' rows of ``y`` (the outcome as given, not oriented);
     ``family`` is the number of hypotheses of the q-values; ``rng`` seeds the bootstrap;
     ``ranked``: the carried slices are in the search part's order, fixed before these rows are
     looked at, and the q-values weight them by it (:func:`rank_weights`). The
-    *evidence* is the search's score on these rows: the lower limit of the gap in the bad direction
-    at ``search_level`` (see :mod:`.bounds`). Each dict also holds what :func:`at_level` needs to
+    *evidence* orders the list: the lower limit of the gap in the bad direction at the report's
+    level, on these rows the search did not see (the search's own level, far stricter, would favour
+    broad slices with small gaps there). Each dict also holds what :func:`at_level` needs to
     give the estimates at any other level."""
     K = len(carried)
     if K == 0:

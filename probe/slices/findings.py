@@ -45,8 +45,8 @@ class Slice:
     effect_ratio : Estimate
         The slice's rate over the rest's (MOVER-R; NaN for real-valued outcomes).
     p_value : float
-        One-sided, in the metric's bad direction (exact for a 0/1 outcome, Welch otherwise); the
-        list is ordered by it.
+        One-sided, in the metric's bad direction (exact for 0/1 and {-1, 0, 1} outcomes, Welch
+        otherwise).
     q_value : float
         Benjamini–Hochberg over ``SliceFindings.family`` hypotheses.
     score : float

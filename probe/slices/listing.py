@@ -10,9 +10,8 @@ A carried slice is listed when, on the estimate part,
    of which may be checked). A broad slice that is bad only because it holds a listed slice's rows
    is not listed again; a sharper slice inside a broad listed one is.
 
-The order is the estimate part's evidence: the gap's lower limit at the search level (the search's
-own score, now on rows the search did not see), then the p-value; at most ``top`` are listed. The
-q-values are not touched: they are taken over the whole carried family, fixed before the estimate
+The order is the estimate part's evidence: the gap's lower limit at the report's level, on rows the
+search did not see, then the p-value; at most ``top`` are listed. The q-values are not touched: they are taken over the whole carried family, fixed before the estimate
 part is looked at, and listing fewer slices only drops discoveries.
 """
 

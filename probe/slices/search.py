@@ -110,7 +110,7 @@ def run(enc: Encoding, label: str, inp: Inputs) -> SliceFindings:
     carried, masks = carry(ranked, e_codes, inp.similarity, n_carry)
     family = len(carried) if o.split else n_scored  # fixed before the estimate part is looked at
     rows = estimate(carried, masks, e_y, binary=inp.binary, direction=inp.direction,
-                    confidence_level=inp.confidence_level, search_level=level,
+                    confidence_level=inp.confidence_level,
                     interval=o.interval, family=family, rng=inp.rng, ranked=o.split)
     worse = listed(rows, masks, e_y, binary=inp.binary, direction=inp.direction,
                    confidence_level=inp.confidence_level, top=o.top)
