@@ -121,6 +121,19 @@ class Comparison:
         return tuple(s for s in self.worse_slices.found
                      if s.rate.value is not None and s.rate.value > 0)
 
+    @staticmethod
+    def slice_shortfall_at(found_slice, confidence_level: float) -> Estimate:
+        """A worse slice's mean paired shortfall with Tango's interval at ``confidence_level``.
+
+        The shortfall per row is +1, 0 or -1, so on the slice's (held-out) rows it is a paired
+        difference of proportions, ``(b - c) / n`` with ``b - c`` its sum and ``b + c`` its sum of
+        squares: the policy judges it like the overall shortfall. Tango's score interval holds its
+        level far into the tails, where the slice table's Wilson or Welch intervals are too narrow
+        for a Bonferroni-adjusted judgement (``tests/sim/sim_policy.py``)."""
+        n, s, sq = (float(v) for v in found_slice.basis[0][:3])
+        return paired_difference(round((sq + s) / 2), round((sq - s) / 2), round(n),
+                                 confidence_level=confidence_level)
+
     def to_dict(self) -> dict:
         found = self.worse_slices.to_dict()
         keep = {s.rank for s in self.worse}

@@ -360,7 +360,8 @@ def measure(*, groups=None, slices=None, flips=None, comparison=None,
         o, found = comparison.overall, comparison.worse_slices
         why = _SELECTED.format(what="shortfall") if found.selected else None
         ms = (Measure(f"overall {o.metric}", o.shortfall, o.shortfall_at, o.rows),) + tuple(
-            Measure(f"worse slice {s.rank}: {s.label}", s.rate, s.rate_at, s.rows, why)
+            Measure(f"worse slice {s.rank}: {s.label}", s.rate,
+                    lambda level, s=s: comparison.slice_shortfall_at(s, level), s.rows, why)
             for s in comparison.worse)
         out["max_regression"] = Family(ms, 1 + found.family,
                                        f"the overall shortfall and {found.family} slices")
