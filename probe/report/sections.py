@@ -198,7 +198,8 @@ def _slice_table(found: Sequence[Mapping], level: str, *, rate: str, rate_meanin
         Column("share", "share of the rows the estimates are on", numeric=True, compact=""),
         Column(rate, f"{rate_meaning}, {level} interval", numeric=True),
         Column("gap", f"the slice's value minus the rest's, {level} interval", numeric=True),
-        Column("q", "Benjamini–Hochberg q-value over the slices tested", numeric=True),
+        Column("q", "Benjamini–Hochberg q-value over the slices tested (with held-out rows, "
+               "weighted by the search's rank)", numeric=True),
     )
     return Table(columns, tuple(
         (Cell(str(f.get("rank", i))), text_cell(slice_label(f)), Cell(fmt_count(f.get("rows"))),
