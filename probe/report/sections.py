@@ -192,14 +192,16 @@ def _estimated_on(search: Mapping, report: Mapping, what: str) -> str:
     return f"{tested} slices tested on {searched} rows; {what} estimated on {estimated} rows."
 
 
-def _slice_table(found: Sequence[Mapping], level: str, *, rate: str, rate_meaning: str) -> Table:
+def _slice_table(found: Sequence[Mapping], level: str, *, rate: str, rate_meaning: str,
+                 weighted: bool) -> Table:
+    q = "Benjamini–Hochberg q-value over the slices tested" + (
+        ", weighted by the search's rank" if weighted else "")
     columns = (
         Column("rank", numeric=True), Column("slice", label=True), Column("rows", numeric=True),
         Column("share", "share of the rows the estimates are on", numeric=True, compact=""),
         Column(rate, f"{rate_meaning}, {level} interval", numeric=True),
         Column("gap", f"the slice's value minus the rest's, {level} interval", numeric=True),
-        Column("q", "Benjamini–Hochberg q-value over the slices tested (with held-out rows, "
-               "weighted by the search's rank)", numeric=True),
+        Column("q", q, numeric=True),
     )
     return Table(columns, tuple(
         (Cell(str(f.get("rank", i))), text_cell(slice_label(f)), Cell(fmt_count(f.get("rows"))),
@@ -251,7 +253,8 @@ def slices(report: Mapping) -> Section:
                                  "than the rest of the rows.",)))
     else:
         blocks += [_slice_plot(s, metric, level),
-                   _slice_table(found, level, rate="rate", rate_meaning=f"the slice's {metric}")]
+                   _slice_table(found, level, rate="rate", rate_meaning=f"the slice's {metric}",
+                                weighted=bool(_held_out(s, report)))]
         blocks += _sentences(found, compact=3)
     notes = tuple(Item(str(n)) for n in s.get("notes") or [])
     if notes:
@@ -420,6 +423,7 @@ def comparison(report: Mapping) -> Section:
     else:
         blocks.append(_slice_table(worse, level, rate="paired difference",
                                    rate_meaning="candidate's shortfall against the baseline on the "
-                                                "slice's rows (larger is worse)"))
+                                                "slice's rows (larger is worse)",
+                                   weighted=bool(_held_out(search, report))))
         blocks += _sentences(worse, compact=0)
     return Section("comparison", title, "Comparison", tuple(blocks))
