@@ -376,7 +376,7 @@ def build_model(report: Mapping) -> ReportModel:
         Verdict, groups, slices, flips, proxies (only when run), comparison and provenance, in that
         order. The input is not modified.
     """
-    from . import sections  # the section builders use this module's types
+    from . import attributes, sections  # the section builders use this module's types
 
     p = report.get("provenance") or {}
     meta = tuple((k, str(v)) for k, v in (
@@ -384,9 +384,9 @@ def build_model(report: Mapping) -> ReportModel:
         ("created", p.get("created")), ("probe", p.get("probe_version")),
     ) if v not in (None, ""))
     parts = [_verdict(report), sections.groups(report), sections.slices(report),
-             sections.flips(report)]
+             attributes.flips(report)]
     if report.get("proxies"):
-        parts.append(sections.proxies(report))
+        parts.append(attributes.proxies(report))
     parts += [sections.comparison(report), _provenance(report)]
     rules = (report.get("verdict") or {}).get("rules") or []
     return ReportModel(caution_of(report), verdict_word(report.get("verdict")),
