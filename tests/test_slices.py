@@ -179,7 +179,7 @@ def test_q_values_are_benjamini_hochberg_over_the_family_and_p_values_exact_or_w
     masks = [r.random(n) < share for share in (0.01, 0.03, 0.1, 0.3)]
     y[masks[0]] = (r.random(masks[0].sum()) < 0.4) if binary else 1.0 * (r.random(masks[0].sum()) < .3)
     rows = estimate([None] * 4, masks, y, binary=binary, direction="higher", confidence_level=0.95,
-                    search_level=0.999, interval="wilson", family=40, rng=0)
+                    interval="wilson", family=40, rng=0)
     p = np.array([e["p"] for e in rows])
     for k, m in enumerate(masks):
         if binary:  # scipy's Fisher exact test on the same counts
@@ -191,6 +191,14 @@ def test_q_values_are_benjamini_hochberg_over_the_family_and_p_values_exact_or_w
     padded = np.concatenate([p, np.ones(36)])  # the 36 not carried set to 1
     np.testing.assert_allclose([e["q"] for e in rows],
                                multipletests(padded, method="fdr_bh")[1][:4], rtol=1e-12)
+    # carried in the search part's order: weighted BH (Genovese, Roeder & Wasserman 2006), i.e.
+    # plain BH (statsmodels) on p / w with w proportional to 1 / rank and averaging 1
+    ranked = estimate([None] * 4, masks, y, binary=binary, direction="higher",
+                      confidence_level=0.95, interval="wilson", family=4, rng=0, ranked=True)
+    w = 1.0 / np.arange(1, 5)
+    w *= 4 / w.sum()
+    np.testing.assert_allclose([e["q"] for e in ranked],
+                               multipletests(np.minimum(p / w, 1), method="fdr_bh")[1], rtol=1e-12)
 
 
 def test_null_data_gives_few_false_alarms():
