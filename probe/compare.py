@@ -204,6 +204,7 @@ def compare_models(
         paired difference).
     confidence_level : float, default=0.95
     rng : None, int or numpy.random.Generator
+        Seeds the worse-slice search (its split).
     encoding : Encoding, optional
         The slice columns already encoded (the run's evidence); default: encode ``X``.
 
@@ -227,8 +228,6 @@ def compare_models(
             f"candidate and baseline must be scored on the same rows: got "
             f"{len(outcomes[metric][0])} and {len(outcomes[metric][1])} decisions for {len(X)} rows"
         )
-    rng = np.random.default_rng(rng)
-    search_seed = rng.spawn(2)[1]  # the second child, as before the paired interval became closed-form
     results = []
     for name, (c_out, b_out, mask) in outcomes.items():
         c_in, b_in = c_out[mask].astype(bool), b_out[mask].astype(bool)
@@ -243,7 +242,7 @@ def compare_models(
     c_out, b_out, mask = outcomes[metric]
     worse = get_metric(metric).sign * (c_out.astype(float) - b_out.astype(float))
     found = search_slices(
-        X, worse, base=mask, options=options, confidence_level=confidence_level, rng=search_seed,
+        X, worse, base=mask, options=options, confidence_level=confidence_level, rng=rng,
         label=f"paired {metric} difference (candidate worse > 0)", encoding=encoding,
     )
     agreement = float(np.mean(outcomes["selection"][0] == outcomes["selection"][1]))

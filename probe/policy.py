@@ -369,11 +369,17 @@ def measure(*, groups=None, slices=None, flips=None, comparison=None,
 
 
 def _flip_measure(row, confidence_level) -> Measure | None:
-    """The row's judged figure (None when the row does not apply: nothing was scored)."""
-    est = row.judged_at(confidence_level)
-    if est is None or not math.isfinite(est.value):
+    """The row's judged figure; None when nothing was scored (an impossible target level). A
+    scored row whose control (placebo, own-group twins) could not be formed is inconclusive: its
+    raw flip rate would count the noise the control removes."""
+    if row.impossible or not math.isfinite(row.flip_rate.value):
         return None
     subject = f"{row.mode} flip of {row.attribute}: {row.from_} -> {row.to}"
     if row.judged_what != "flip rate":
         subject += f" ({row.judged_what})"
+    est = row.judged_at(confidence_level)
+    if est is None:
+        return Measure(subject, row.flip_rate, None, row.rows,
+                       f"not judged: the control for the {row.judged_what} could not be formed (too "
+                       "few rows), and the raw flip rate includes what the control removes")
     return Measure(subject, est, row.judged_at, row.rows)

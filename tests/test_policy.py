@@ -2,6 +2,7 @@
 Bonferroni level over rules and families, what is never passed (too few rows, zero width, selected
 estimates), and what each rule is measured on, read from typed results."""
 
+import math
 from types import SimpleNamespace
 
 import numpy as np
@@ -153,9 +154,10 @@ def test_impact_ratio_is_measured_on_every_group_but_the_reference_and_small_one
     assert m["max_slice_gap"] is None and m["max_regression"] is None
 
 
-def _row(mode, flip, what="flip rate"):
+def _row(mode, flip, what="flip rate", raw=None):
     return SimpleNamespace(attribute="sex", mode=mode, from_="F", to="M", rows=800,
-                           judged_what=what, judged_at=lambda level: flip)
+                           impossible=not math.isfinite(flip.value) if flip else False,
+                           flip_rate=raw or flip, judged_what=what, judged_at=lambda level: flip)
 
 
 def test_flip_rows_are_judged_on_their_judged_figure():
@@ -164,6 +166,15 @@ def test_flip_rows_are_judged_on_their_judged_figure():
     (rule,) = judge(measure(flips=flips), PolicyOptions(max_flip_rate=0.01)).rules
     assert rule.status == "pass" and "excess" in rule.subject
     assert rule.value["value"] == 0.004
+
+
+def test_a_flip_row_without_its_control_is_inconclusive_not_dropped():
+    # transport scored (raw rate 3 %) but the group was too small for a placebo: judged_at is None
+    flips = [SimpleNamespace(rows=(_row("transport", None, "excess over the placebo",
+                                        raw=est(0.03, 0.02, 0.04)),))]
+    (rule,) = judge(measure(flips=flips), PolicyOptions(max_flip_rate=0.01)).rules
+    assert rule.status == "inconclusive" and "could not be formed" in rule.message
+    assert rule.value["value"] == 0.03
 
 
 def test_flip_tests_that_did_not_apply_leave_the_rule_not_run():

@@ -91,7 +91,7 @@ class Slice:
         return self._at(confidence_level)[1]
 
     def _at(self, level):
-        if level == self.confidence_level or self.basis is None:
+        if level == self.confidence_level:
             return self.rate, self.gap
         return at_level(self.basis, self.binary, level)
 

@@ -28,10 +28,10 @@ def listed(rows, masks, y, *, binary, direction, confidence_level, top):
     """Indices into ``rows`` (the dicts of :func:`~probe.slices.estimate.estimate`) of the slices
     listed, in order; ``masks`` their rows of the estimate part's outcome ``y``."""
     sign = 1.0 if direction == "higher" else -1.0
-    alt = "greater" if direction == "higher" else "less"
     order = sorted((k for k in range(len(rows)) if sign * rows[k]["gap"].value > 0),
                    key=lambda k: (-rows[k]["evidence"], rows[k]["p"]))
     cut = (1.0 - confidence_level) / max(len(rows), 1)
+    worse = _Worse(y, binary, "greater" if sign > 0 else "less")
     out, covered = [], np.zeros(len(y), dtype=bool)
     for k in order:
         if len(out) >= top:
@@ -40,25 +40,35 @@ def listed(rows, masks, y, *, binary, direction, confidence_level, top):
         if out and np.any(mask & covered):
             # it adds worse rows of its own, or it is worse than the listed rows it does not hold
             # (a sharper place inside a broad listed slice)
-            if (_pvalue(y, mask & ~covered, ~(mask | covered), binary, alt) > cut
-                    and _pvalue(y, mask, covered & ~mask, binary, alt) > cut):
+            if (worse.pvalue(mask & ~covered, ~(mask | covered)) > cut
+                    and worse.pvalue(mask, covered & ~mask) > cut):
                 continue
         out.append(k)
         covered |= mask
     return out
 
 
-def _pvalue(y, a, b, binary, alt) -> float:
-    """One-sided p-value of the rows ``a`` against the rows ``b`` (1 when either is empty)."""
-    na, nb = float(np.count_nonzero(a)), float(np.count_nonzero(b))
-    if na < 1 or nb < 1:
-        return 1.0
-    if binary:
-        events = y == 1
-        p = exact_pvalue(np.count_nonzero(a & events), na, np.count_nonzero(b & events), nb,
-                         alternative=alt)
-    else:
-        sums = [(y @ m, (y * y) @ m) for m in (a, b)]
-        p = real_pvalue(*sums[0], na, *sums[1], nb, ternary=is_ternary(y), alternative=alt)
-    p = float(np.asarray(p).ravel()[0])
-    return 1.0 if np.isnan(p) else p
+class _Worse:
+    """One-sided p-values of some rows against others on one outcome (its per-row terms and its
+    kind worked out once)."""
+
+    def __init__(self, y, binary, alternative):
+        self.alt, self.binary = alternative, binary
+        if binary:
+            self.events = y == 1
+        else:
+            self.y, self.y_sq, self.ternary = y, y * y, is_ternary(y)
+
+    def pvalue(self, a, b) -> float:
+        """The rows ``a`` against the rows ``b`` (1 when either is empty)."""
+        na, nb = float(np.count_nonzero(a)), float(np.count_nonzero(b))
+        if na < 1 or nb < 1:
+            return 1.0
+        if self.binary:
+            p = exact_pvalue(np.count_nonzero(a & self.events), na,
+                             np.count_nonzero(b & self.events), nb, alternative=self.alt)
+        else:
+            sa, sb = ((self.y @ m, self.y_sq @ m) for m in (a, b))
+            p = real_pvalue(*sa, na, *sb, nb, ternary=self.ternary, alternative=self.alt)
+        p = float(np.asarray(p).ravel()[0])
+        return 1.0 if np.isnan(p) else p
