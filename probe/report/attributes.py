@@ -40,6 +40,13 @@ def _change(f: Mapping) -> str:
     return f"{f.get('from')} → {f.get('to')}"
 
 
+def _moved(f: Mapping) -> str:
+    """A transport row's proxies moved besides the attribute (``none``); empty for other modes."""
+    if f.get("mode") != "transport" or f.get("applicable") is False:
+        return ""
+    return ", ".join(str(m) for m in f.get("moved") or () if m != f.get("attribute")) or "none"
+
+
 def _flip_plot(rows: Sequence[Mapping], level: str) -> Plot:
     plotted = tuple(
         PlotRow(f"{f.get('attribute')} {_change(f)} ({f.get('mode')})",
@@ -77,6 +84,10 @@ def flips(report: Mapping) -> Section:
                  numeric=True, compact="value"),
           Column("excess", "flip rate minus the control: what is attributable to the group "
                  "(judged for transport and twins)", numeric=True)) if controlled else ())
+    transported = any(f.get("mode") == "transport" for f in rows)
+    if transported:
+        columns += (Column("proxies moved", "transport: the features moved with the attribute",
+                           label=True),)
 
     def row(f: Mapping) -> tuple[Cell, ...]:
         if f.get("impossible") or f.get("applicable") is False:
@@ -89,6 +100,8 @@ def flips(report: Mapping) -> Section:
                 key = next((k for k in ("placebo_rate", "control_rate") if k in f), None)
                 rest += ((est_cell(f[key]), est_cell(f.get("excess"))) if key
                          else (Cell(""), Cell("")))
+        if transported:
+            rest += (Cell(_moved(f)),)
         return (text_cell(f.get("attribute")), text_cell(f.get("mode")), Cell(_change(f)),
                 Cell(fmt_count(f.get("rows"))), *rest)
 

@@ -3,11 +3,14 @@
 Numbers: rates and differences with fixed decimals, counts with thousands separators, shares as
 percentages, p- and q-values, intervals ``[low, high]``; ``n/a`` for null. Phrases: the caution, a
 rule's bound and status, the verdict word, a metric's name, a slice's label, the confidence level.
+Text from the data: :func:`visible` and :func:`visible_all` write control characters as escapes.
 """
 
 from __future__ import annotations
 
 import math
+import re
+import unicodedata
 from collections.abc import Iterable, Mapping
 from typing import Any
 
@@ -16,8 +19,50 @@ from ..assemble import CAUTION
 __all__ = [
     "CAUTION", "bound_text", "caution_of", "confidence_text", "fmt_bound", "fmt_count", "fmt_est",
     "fmt_interval", "fmt_num", "fmt_p", "fmt_share", "is_number", "metric_name", "rule_status",
-    "rule_summary", "rule_title", "slice_label", "status_counts", "verdict_word",
+    "rule_summary", "rule_title", "slice_label", "status_counts", "verdict_word", "visible",
+    "visible_all",
 ]
+
+
+# -- text from the data ------------------------------------------------------------------------
+
+# control (Cc: C0, DEL, C1), format (Cf: bidi overrides and isolates, zero-width characters, the
+# BOM, soft hyphen), line and paragraph separators (Zl, Zp) and lone surrogates (Cs) are never drawn
+# as themselves: each could move the cursor, recolour the terminal, reorder or hide the text around it
+_HIDDEN = frozenset(("Cc", "Cf", "Zl", "Zp", "Cs"))
+_NOT_PLAIN = re.compile(r"[^\x20-\x7e]")
+_SHORT = {"\t": "\\t", "\n": "\\n", "\r": "\\r"}
+
+
+def _escape_char(match: re.Match) -> str:
+    ch = match.group()
+    if unicodedata.category(ch) not in _HIDDEN:
+        return ch
+    if ch in _SHORT:
+        return _SHORT[ch]
+    code = ord(ch)
+    return f"\\x{code:02x}" if code < 0x100 else f"\\u{code:04x}" if code < 0x10000 else f"\\U{code:08x}"
+
+
+def visible(text: Any) -> str:
+    """``text`` with every control, format and separator character written as its escape.
+
+    ``ESC[31m`` becomes ``\\x1b[31m``, U+202E becomes ``\\u202e``, a carriage return ``\\r``;
+    everything else, backslashes included, is kept as it is. Every renderer but the JSON shows the
+    data's strings through this (the JSON keeps the true value, escaped by JSON's own rules).
+    """
+    return _NOT_PLAIN.sub(_escape_char, "" if text is None else str(text))
+
+
+def visible_all(obj: Any) -> Any:
+    """A copy of a report dict (or any part) with :func:`visible` applied to every string, keys too."""
+    if isinstance(obj, str):
+        return visible(obj)
+    if isinstance(obj, Mapping):
+        return {visible(k) if isinstance(k, str) else k: visible_all(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [visible_all(v) for v in obj]
+    return obj
 
 
 # -- shared formatting ------------------------------------------------------------------------

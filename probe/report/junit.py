@@ -5,7 +5,8 @@ One ``<testsuite name="probe policy">`` inside ``<testsuites>``, one ``<testcase
 ``<failure>`` whose message gives the measured value, its interval and the bound; an inconclusive
 rule is ``<skipped>``, or a ``<failure>`` when the verdict was run with ``fail_on_inconclusive``.
 The suite's ``tests``/``failures``/``skipped``/``errors`` attributes count exactly those elements.
-Built with :mod:`xml.etree.ElementTree`; characters XML 1.0 cannot carry are dropped.
+Built with :mod:`xml.etree.ElementTree`; control characters are shown escaped, and any other
+character XML 1.0 cannot carry is dropped.
 """
 
 from __future__ import annotations
@@ -16,7 +17,7 @@ import xml.etree.ElementTree as ET
 from collections.abc import Mapping
 from typing import Any
 
-from .fmt import caution_of, rule_status, rule_summary, rule_title
+from .fmt import caution_of, rule_status, rule_summary, rule_title, visible_all
 
 __all__ = ["render_junit"]
 
@@ -40,8 +41,10 @@ def render_junit(report: Mapping) -> str:
     -------
     str
         The XML document (UTF-8 declaration, ending with a newline). A report without a verdict
-        gives a suite with no test cases.
+        gives a suite with no test cases. Control characters in the report's strings are shown
+        escaped (:func:`~probe.report.fmt.visible`).
     """
+    report = visible_all(report)
     verdict = report.get("verdict") or {}
     rules = verdict.get("rules") or []
     strict = bool(verdict.get("fail_on_inconclusive"))

@@ -28,6 +28,7 @@ from .fmt import (
     rule_status,
     status_counts,
     verdict_word,
+    visible_all,
 )
 
 __all__ = [
@@ -374,10 +375,12 @@ def build_model(report: Mapping) -> ReportModel:
     -------
     ReportModel
         Verdict, groups, slices, flips, proxies (only when run), comparison and provenance, in that
-        order. The input is not modified.
+        order. Every string from the report is shown through :func:`~probe.report.fmt.visible`
+        (control characters escaped). The input is not modified.
     """
     from . import attributes, sections  # the section builders use this module's types
 
+    report = visible_all(report)
     p = report.get("provenance") or {}
     meta = tuple((k, str(v)) for k, v in (
         ("model", (p.get("model") or {}).get("spec")), ("data", (p.get("data") or {}).get("path")),

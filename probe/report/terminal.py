@@ -13,12 +13,14 @@ from contextlib import contextmanager
 from pathlib import Path
 
 from rich import box
-from rich.console import Console, Group
+from rich.console import Console, ConsoleOptions, Group
+from rich.measure import Measurement
 from rich.panel import Panel
 from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
 from rich.table import Table as RichTable
 from rich.text import Text
 
+from .fmt import visible
 from .model import Cell, Code, Heading, Items, Paragraph, Section, Table, build_model
 
 __all__ = ["progress", "render"]
@@ -37,19 +39,78 @@ def _cell(cell: Cell, how: str) -> Text:
     return out
 
 
-def _table(table: Table) -> RichTable | None:
-    shown = [(j, c) for j, c in enumerate(table.columns) if c.compact]
+_LABEL_MIN = 12  # a label column folds, but keeps room to be read
+
+
+def _min_width(table: Table, j: int) -> int:
+    """Numbers never break: a numeric column is as wide as its widest cell. A label column gets
+    its widest cell up to :data:`_LABEL_MIN` (then folds); another text column its longest word.
+    A header breaks between words, never inside one."""
+    c = table.columns[j]
+    header = max((len(w) for w in c.header.split()), default=1)
+    texts = [_cell(row[j], c.compact).plain for row in table.rows]
+    if c.numeric:
+        return max(header, *(len(t) for t in texts))
+    if c.label:
+        return max(header, min(_LABEL_MIN, max(len(t) for t in texts)))
+    return max(header, *(len(w) for t in texts for w in t.split() or [""]))
+
+
+class _Fitted:
+    """A table laid out at the width it is given: in columns when every column fits at its minimum
+    width, else one record per block (``header: value`` lines), so no column is dropped and no
+    number is cut."""
+
+    def __init__(self, table: Table):
+        self.table = table
+        self.shown = [j for j, c in enumerate(table.columns) if c.compact]
+
+    def _columns(self) -> RichTable:
+        t = RichTable(box=box.SIMPLE_HEAD, pad_edge=False, show_edge=False, collapse_padding=True)
+        for j in self.shown:
+            c = self.table.columns[j]
+            t.add_column(c.header, justify="right" if c.numeric else "left",
+                         overflow="ellipsis" if c.numeric else "fold", no_wrap=c.numeric,
+                         min_width=_min_width(self.table, j))
+        for row in self.table.rows:
+            t.add_row(*(_cell(row[j], self.table.columns[j].compact) for j in self.shown))
+        return t
+
+    def _records(self, width: int):
+        cols = self.table.columns
+        lead = []  # the leading text columns name the record (a numeric first column: its header)
+        for j in self.shown[:3]:
+            if cols[j].numeric:
+                break
+            lead.append(j)
+        for row in self.table.rows:
+            title = (" · ".join(row[j].text for j in lead) if lead
+                     else f"{cols[self.shown[0]].header} {row[self.shown[0]].text}")
+            yield Text(title, style="bold")
+            for j in self.shown:
+                value = _cell(row[j], cols[j].compact)
+                if j in lead or (not lead and j == self.shown[0]) or not value.plain:
+                    continue
+                head = Text(f"  {cols[j].header}: ", style="dim")
+                if cols[j].numeric and head.cell_len + value.cell_len > width:
+                    yield head  # the number goes whole on a line of its own
+                    yield Text("    ").append_text(value)
+                else:
+                    yield head.append_text(value)
+
+    def __rich_console__(self, console: Console, options: ConsoleOptions):
+        t = self._columns()
+        # measured without the width limit (a measurement within it is capped at the limit)
+        if Measurement.get(console, options.update_width(10_000), t).minimum <= options.max_width:
+            yield t
+        else:
+            yield from self._records(options.max_width)
+
+
+def _table(table: Table) -> _Fitted | None:
     if table.detail or not table.rows:
         return None
-    t = RichTable(box=box.SIMPLE_HEAD, pad_edge=False)
-    for _, c in shown:
-        # headers never break inside a word; labels keep room to be read
-        width = 16 if c.label else max(len(w) for w in c.header.split())
-        t.add_column(c.header, justify="right" if c.numeric else "left", overflow="fold",
-                     min_width=width)
-    for row in table.rows:
-        t.add_row(*(_cell(row[j], c.compact) for j, c in shown))
-    return t
+    return _Fitted(table)
 
 
 def _legend(table: Table) -> Text | None:
@@ -134,7 +195,7 @@ def render(report: dict, console: Console, *, quiet: bool = False, written: dict
             console.print(_section(section))
     if written:
         folder = {str(Path(p).parent) for p in written.values()}
-        console.print(Text("report: " + ", ".join(sorted(folder))))
+        console.print(Text(visible("report: " + ", ".join(sorted(folder)))))
     console.print(Text(model.caution, style="dim"))
 
 
