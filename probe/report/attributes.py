@@ -37,6 +37,9 @@ __all__ = ["flips", "proxies"]
 
 
 def _change(f: Mapping) -> str:
+    """``from → to``; empty for a row without levels (a mode that does not apply)."""
+    if f.get("from") is None and f.get("to") is None:
+        return ""
     return f"{f.get('from')} → {f.get('to')}"
 
 
@@ -48,20 +51,29 @@ def _moved(f: Mapping) -> str:
 
 
 def _flip_plot(rows: Sequence[Mapping], level: str) -> Plot:
-    plotted = tuple(
-        PlotRow(f"{f.get('attribute')} {_change(f)} ({f.get('mode')})",
-                None if f.get("impossible") else (f.get("flip_rate") or {}).get("value"),
-                (f.get("flip_rate") or {}).get("low"), (f.get("flip_rate") or {}).get("high"),
-                note="not possible" if f.get("impossible") else
-                f"flip rate {fmt_est(f.get('flip_rate'))}")
-        for f in rows
-    )
+    def plotted(f: Mapping) -> PlotRow:
+        rate = f.get("flip_rate") or {}
+        if f.get("applicable") is False:  # no change was made: no bar, the reason instead
+            return PlotRow(f"{f.get('attribute')} ({f.get('mode')})", None,
+                           note=f"does not apply: {_reason(f)}")
+        if f.get("impossible"):
+            return PlotRow(f"{f.get('attribute')} {_change(f)} ({f.get('mode')})", None,
+                           note="not possible")
+        return PlotRow(f"{f.get('attribute')} {_change(f)} ({f.get('mode')})", rate.get("value"),
+                       rate.get("low"), rate.get("high"), note=f"flip rate {fmt_est(rate)}")
+
     return Plot(
         title="Decisions that flip under a counterfactual change",
         x_label=f"flip rate (dot) with its {level} interval (bar)",
         description="The share of decisions that change, per attribute, direction and mode.",
-        rows=plotted, lines=(Line(0.0, "no flips", dashed=False),),
+        rows=tuple(plotted(f) for f in rows), lines=(Line(0.0, "no flips", dashed=False),),
     )
+
+
+def _reason(f: Mapping) -> str:
+    """Why a mode does not apply, in a few words (``not a model input``)."""
+    text = " ".join(str(n) for n in f.get("notes") or ()) + " " + str(f.get("sentence") or "")
+    return "not a model input" if "not a model input" in text else "see the notes"
 
 
 def flips(report: Mapping) -> Section:
@@ -112,7 +124,8 @@ def flips(report: Mapping) -> Section:
                    "the twins matched on and what qualifies its interval.",)),
         _flip_plot(rows, level), Table(columns, tuple(row(f) for f in rows)),
         Items(tuple(
-            Item(str(f.get("sentence") or ""), title=f"{f.get('attribute')} {f.get('mode')} {_change(f)}",
+            Item(str(f.get("sentence") or ""),
+                 title=f"{f.get('attribute')} {f.get('mode')} {_change(f)}".rstrip(),
                  notes=tuple(str(n) for n in f.get("notes") or ()),
                  essential=f.get("applicable") is False)
             for f in rows

@@ -123,6 +123,11 @@ def render_plot(plot: Plot, *, uid: str) -> str:
             f'<text x="{lx + 22}" y="36" fill="#444">{e(ln.label)}</text>'
         )
         lx += 30 + int(len(ln.label) * _CHAR_W)
+    # row stripes first: the grid, the reference lines and the data are drawn over them
+    out.extend(
+        f'<rect x="0" y="{_TOP + _ROW_H * i}" width="{_WIDTH}" height="{_ROW_H}" fill="#f6f8fa"/>'
+        for i in range(0, len(rows), 2)
+    )
     # grid and ticks
     n_ticks = round((hi - lo) / step)
     out.append('<g class="axis" fill="#444">')
@@ -155,10 +160,6 @@ def render_plot(plot: Plot, *, uid: str) -> str:
         colour = "#b3261e" if r.flagged else "#1f5fa8"
         name = f"{r.label}: {r.note}" if r.note else r.label
         parts = [f'<g class="row"><title>{e(name)}</title>']
-        if i % 2 == 0:
-            parts.append(
-                f'<rect x="0" y="{y - _ROW_H / 2}" width="{_WIDTH}" height="{_ROW_H}" fill="#f6f8fa"/>'
-            )
         parts.append(
             f'<text x="{left - 10}" y="{y + 4}" text-anchor="end" fill="#1f2328">{e(short)}</text>'
         )
@@ -179,7 +180,8 @@ def render_plot(plot: Plot, *, uid: str) -> str:
             )
             parts.append(shape)
         else:
-            parts.append(f'<text x="{left + 6}" y="{y + 4}" fill="#666">n/a</text>')
+            # no bar: what the row's note says instead (why nothing was measured), else n/a
+            parts.append(f'<text x="{left + 6}" y="{y + 4}" fill="#666">{e(r.note or "n/a")}</text>')
         parts.append("</g>")
         out.append("".join(parts))
     out.append("</svg>")
