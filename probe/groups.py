@@ -3,7 +3,8 @@
 For each protected attribute, and for each requested intersection of columns, every observed group gets
 its rows, share, selection rate (the favourable decision), error rate, TPR, FPR, FNR and PPV with Wilson
 intervals; the impact ratio against the reference group; the statistical parity difference and the
-equal opportunity difference against the same group (Newcombe intervals); and the four-fifths flag
+equal opportunity difference against the same group (Newcombe intervals), and the gap in error rate,
+FPR and FNR to it at any level (``GroupRow.gap_at``, Newcombe, for the policy); and the four-fifths flag
 (impact ratio strictly below 0.8, 29 CFR 1607.4(D) and its Q&A 11, where exactly 0.80 is not flagged).
 Groups under 2 % of the rows are flagged ``small`` and still reported; they are not eligible as the
 reference group unless every group is small. Rows whose value is missing are counted as unknown.
@@ -20,6 +21,7 @@ MOVER-R interval of ``r_h / r_g`` is the reciprocal of that of ``r_g / r_h``, so
 
 from __future__ import annotations
 
+import math
 import warnings
 from dataclasses import dataclass, field
 from typing import Mapping, Sequence
@@ -34,8 +36,10 @@ from .errors import DataError, DegenerateWarning
 from .metrics import FOUR_FIFTHS, as_favorable, favorable_decision
 from .stats import Estimate, newcombe_interval, ratio_interval, wilson_interval
 
-__all__ = ["GroupRow", "GroupMetrics", "group_metrics", "four_fifths_flag"]
+__all__ = ["GAP_RATES", "GroupRow", "GroupMetrics", "group_metrics", "four_fifths_flag"]
 _RATES = ("selection_rate", "error_rate", "tpr", "fpr", "fnr", "ppv")
+#: The rates whose gap to the reference group :meth:`GroupRow.gap_at` gives (the policy's gap rules).
+GAP_RATES = ("error_rate", "fpr", "fnr")
 
 
 @dataclass(frozen=True)
@@ -90,6 +94,29 @@ class GroupRow:
     eod: Estimate
     reference_fixed: bool = False
     _basis: tuple = field(default=(), repr=False, compare=False)
+    _gap_counts: dict = field(default_factory=dict, repr=False, compare=False)
+
+    def gap_at(self, rate: str, confidence_level: float) -> Estimate:
+        """The group's ``rate`` (one of :data:`GAP_RATES`) minus the reference group's, with
+        Newcombe's interval at ``confidence_level`` (two-sided; the method of :attr:`spd`).
+
+        The reference against itself is exactly 0 (``"reference"``); NaN when either base is empty.
+        A reference chosen from the data is taken as given here (it is chosen on selection rates).
+        """
+        x, m, x_ref, m_ref = self._gap_counts[rate]
+        if self.group == self.reference_group:
+            return Estimate(0.0, 0.0, 0.0, "reference") if m > 0 else Estimate(
+                math.nan, math.nan, math.nan, "reference")
+        if m == 0 or m_ref == 0:
+            return Estimate(math.nan, math.nan, math.nan, "newcombe")
+        low, high = newcombe_interval(x, m, x_ref, m_ref, confidence_level=confidence_level)
+        return Estimate(x / m - x_ref / m_ref, float(low), float(high), "newcombe")
+
+    def gap_rows(self, rate: str) -> int:
+        """The fewer rows of the two bases the gap in ``rate`` compares (its group's and the
+        reference group's: label-negatives for FPR, label-positives for FNR, all rows for errors)."""
+        _, m, _, m_ref = self._gap_counts[rate]
+        return int(min(m, m_ref))
 
     def impact_ratio_at(self, confidence_level: float) -> Estimate:
         """:attr:`impact_ratio` with its interval at ``confidence_level`` (two-sided), by the same method.
@@ -358,6 +385,8 @@ def _attribute_rows(name, labels, c, min_share, confidence_level, notes, fixed=N
             sp_low[i], sp_high[i] = 0.0, 0.0
             eo_low[i] = eo_high[i] = 0.0 if np.isfinite(opp[i]) else np.nan
         basis = (*counts, i, ref, candidates, fixed is not None)
+        gap_counts = {k: (float(pairs[k][0][i]), float(pairs[k][1][i]), float(pairs[k][0][ref]),
+                          float(pairs[k][1][ref])) for k in GAP_RATES}
         out.append(GroupRow(
             attribute=name,
             group=label,
@@ -368,6 +397,7 @@ def _attribute_rows(name, labels, c, min_share, confidence_level, notes, fixed=N
             reference_group=labels[ref],
             reference_fixed=fixed is not None,
             _basis=basis,
+            _gap_counts=gap_counts,
             four_fifths_flag=four_fifths_flag(c["sel"][i], n[i], xr, nr),
             spd=Estimate(float(sel_rate[i] - ref_rate), float(sp_low[i]), float(sp_high[i]),
                          "reference" if i == ref else "newcombe"),

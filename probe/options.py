@@ -263,6 +263,12 @@ class PolicyOptions(_Checked):
 
     SECTION = "policy"
     min_impact_ratio: float | None = opt(None, lo=0.0, hi=1.0, cli=False, help="")
+    max_fpr_gap: float | None = opt(None, lo=0.0, hi=1.0, cli=False,
+                                    help="largest gap in false-positive rate to the reference group")
+    max_fnr_gap: float | None = opt(None, lo=0.0, hi=1.0, cli=False,
+                                    help="largest gap in false-negative rate to the reference group")
+    max_error_gap: float | None = opt(None, lo=0.0, hi=1.0, cli=False,
+                                      help="largest gap in error rate to the reference group")
     max_flip_rate: float | None = opt(None, lo=0.0, hi=1.0, cli=False, help="")
     max_slice_gap: float | None = opt(None, lo=0.0, hi=1.0, cli=False, help="")
     max_regression: float | None = opt(None, lo=0.0, hi=1.0, cli=False, help="")

@@ -21,6 +21,12 @@ What each rule is measured on (its family):
 - ``min_impact_ratio``: every group's impact ratio (groups and intersections), except the reference
   group and groups under 2 % of rows (the Uniform Guidelines' Q&A 11 compares groups above 2 %; NYC's
   rules allow leaving them out of impact ratios), which are listed as not judged.
+- ``max_fpr_gap``, ``max_fnr_gap``, ``max_error_gap``: every group's absolute gap in that rate to its
+  attribute's reference group (groups and intersections; every group but the reference, small ones
+  too), judged on the interval of ``|d|`` implied by Newcombe's interval ``[L, U]`` of the difference
+  ``d`` (``[0, max(-L, U)]`` when it holds 0, else ``[min(|L|, |U|), max(|L|, |U|)]``), so the largest
+  gap passes only when every group's does. A subject's rows are the smaller of the two bases (the
+  label-negatives for FPR, the label-positives for FNR, all rows for errors).
 - ``max_flip_rate``: every applicable flip row's judged figure: the flip rate for direct flips, the
   excess over the placebo for transport, the excess over own-group twins for twins.
 - ``max_slice_gap``: the slices carried to the estimate part (the family the q-values are over); the
@@ -58,6 +64,9 @@ class Rule:
 
 RULES = {
     "min_impact_ratio": Rule("lower", "group metrics"),
+    "max_fpr_gap": Rule("upper", "group metrics"),
+    "max_fnr_gap": Rule("upper", "group metrics"),
+    "max_error_gap": Rule("upper", "group metrics"),
     "max_flip_rate": Rule("upper", "flip tests"),
     "max_slice_gap": Rule("upper", "slice search"),
     "max_regression": Rule("upper", "model comparison"),
@@ -338,6 +347,8 @@ def measure(*, groups=None, slices=None, flips=None, comparison=None,
         chosen = {r.attribute for r in judged if not r.reference_fixed}
         size = len(chosen) + sum(1 for r in judged if r.attribute not in chosen)
         out["min_impact_ratio"] = Family(ms, size, f"{len(ms)} groups of {len({r.attribute for r in judged})} attributes")
+    for name, rate in _GAPS.items():
+        out[name] = None if groups is None else _gap_family(groups, rate)
     flip_ms = tuple(m for f in flips or () for row in f.rows
                     if (m := _flip_measure(row, confidence_level)) is not None)
     out["max_flip_rate"] = Family(flip_ms, len(flip_ms),
@@ -366,6 +377,34 @@ def measure(*, groups=None, slices=None, flips=None, comparison=None,
         out["max_regression"] = Family(ms, 1 + found.family,
                                        f"the overall shortfall and {found.family} slices")
     return out
+
+
+_GAPS = {"max_fpr_gap": "fpr", "max_fnr_gap": "fnr", "max_error_gap": "error_rate"}
+_GAP_WORDS = {"fpr": "FPR", "fnr": "FNR", "error_rate": "error rate"}
+
+
+def _absolute(est: Estimate) -> Estimate:
+    """``|d|`` with the interval of ``|d|`` that ``d``'s interval implies."""
+    if _undefined(est):
+        return Estimate(math.nan, math.nan, math.nan, est.method)
+    low, high = est.low, est.high
+    if low >= 0:
+        return Estimate(abs(est.value), low, high, est.method)
+    if high <= 0:
+        return Estimate(abs(est.value), -high, -low, est.method)
+    return Estimate(abs(est.value), 0.0, max(-low, high), est.method)
+
+
+def _gap_family(groups, rate: str) -> Family:
+    """Every group's absolute gap in ``rate`` to its reference group (the reference left out)."""
+    compared = [r for r in groups.rows if r.group != r.reference_group]
+    ms = tuple(
+        Measure(f"{r.attribute} = {r.group} (vs {r.reference_group}): {_GAP_WORDS[rate]} gap",
+                _absolute(r.gap_at(rate, groups.confidence_level)),
+                lambda level, r=r: _absolute(r.gap_at(rate, level)), r.gap_rows(rate))
+        for r in compared)
+    attributes = len({r.attribute for r in compared})
+    return Family(ms, len(ms), f"{len(ms)} groups of {attributes} attributes")
 
 
 def _flip_measure(row, confidence_level) -> Measure | None:

@@ -1,5 +1,7 @@
 """Group metrics against published worked examples, an open dataset and an independent computation."""
 
+import math
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -282,3 +284,39 @@ def test_with_one_eligible_group_the_reference_is_no_choice():
     b = _row(m, "g", "b").impact_ratio
     assert b.method == "mover-wilson" and b.value == pytest.approx(2.0)
     assert (b.low, b.high) == pytest.approx(_mover_r(9, 15, 300, 1000, 0.95), rel=1e-9)
+
+
+def test_rate_gaps_to_the_reference_match_statsmodels_newcombe():
+    rng = np.random.default_rng(11)
+    n = 900
+    g = rng.choice(["a", "b", "c"], size=n, p=[0.5, 0.3, 0.2])
+    y = rng.random(n) < 0.4
+    p = np.where(y, rng.random(n) < 0.8, rng.random(n) < np.where(g == "b", 0.35, 0.2))
+    m = group_metrics(pd.DataFrame({"g": g}), y, p, attributes=["g"], reference={"g": "c"})
+    # counts by brute force: (events, base) of each rate in group `k`
+    counts = {"fpr": lambda k: ((p & ~y & (g == k)).sum(), (~y & (g == k)).sum()),
+              "fnr": lambda k: ((~p & y & (g == k)).sum(), (y & (g == k)).sum()),
+              "error_rate": lambda k: ((p != y)[g == k].sum(), (g == k).sum())}
+    for row in m.rows:
+        for rate, count in counts.items():
+            (x, b), (xr, br) = count(row.group), count("c")
+            assert row.gap_rows(rate) == min(b, br)
+            for level in (0.95, 0.995):
+                e = row.gap_at(rate, level)
+                if row.group == "c":
+                    assert (e.value, e.low, e.high, e.method) == (0.0, 0.0, 0.0, "reference")
+                    continue
+                low, high = confint_proportions_2indep(x, b, xr, br, method="newcomb",
+                                                       compare="diff", alpha=1 - level)
+                assert e.value == pytest.approx(x / b - xr / br)
+                assert (e.low, e.high) == pytest.approx((low, high), abs=1e-9)
+                assert e.method == "newcombe"
+
+
+def test_a_rate_gap_with_an_empty_base_is_undefined():
+    g = np.array(["a"] * 10 + ["b"] * 10)
+    y = np.array([True] * 10 + [False, True] * 5)  # group a has no label-negatives
+    m = group_metrics(pd.DataFrame({"g": g}), y, y, attributes=["g"], reference={"g": "b"})
+    a = next(r for r in m.rows if r.group == "a")
+    assert math.isnan(a.gap_at("fpr", 0.95).value) and a.gap_rows("fpr") == 0
+    assert a.gap_at("fnr", 0.95).value == 0.0

@@ -200,3 +200,98 @@ def test_slice_gaps_without_a_split_are_not_judged():
     slices = _slices(True, est(-0.386, -0.42, -0.35, "newcombe"))
     (rule,) = judge(measure(slices=slices), PolicyOptions(max_slice_gap=0.05)).rules
     assert rule.status == "inconclusive" and "no split" in rule.message
+
+
+# -- the gap rules (max_fpr_gap, max_fnr_gap, max_error_gap) ---------------------------------------
+
+
+def _gap_data():
+    """Planted: 3 groups of 600 rows, half label-positive; FPR a 0.10, b 0.40, c 0.12; FNR 0.10
+    everywhere; a fixed as the reference. Plus an intersection with a second attribute."""
+    g = np.repeat(["a", "b", "c"], 600)
+    h = np.tile(["u", "v"], 900)
+    y = np.tile(np.r_[np.ones(300, bool), np.zeros(300, bool)], 3)
+    k = np.tile(np.arange(300), 6)
+    fpr = np.repeat([0.10, 0.40, 0.12], 600)
+    pred = np.where(y, k >= 30, k < (fpr * 300).round())
+    return pd.DataFrame({"g": g, "h": h}), y, pred
+
+
+def test_rate_gaps_are_measured_on_every_group_but_the_reference():
+    f, y, pred = _gap_data()
+    gm = group_metrics(f, y, pred, attributes=["g", "h"], intersections=[["g", "h"]],
+                       reference={"g": "a", "h": "u", "g & h": "a & u"})
+    fam_ = measure(groups=gm)["max_fpr_gap"]
+    # brute force: every row of every attribute and intersection but its reference group
+    expected = [(r.attribute, r.group) for r in gm.rows if r.group != r.reference_group]
+    assert [m_.subject.split(" (vs")[0] for m_ in fam_.measures] == [
+        f"{a} = {g}" for a, g in expected]
+    assert fam_.size == len(expected) == 2 + 1 + 5
+    by = {m_.subject.split(" (vs")[0]: m_ for m_ in fam_.measures}
+    b = by["g = b"]
+    assert b.estimate.value == pytest.approx(0.40 - 0.10)
+    assert b.rows == 300  # the label-negatives of b and of a
+    # the interval of |d| is Newcombe's of d (statsmodels), folded at zero
+    from statsmodels.stats.proportion import confint_proportions_2indep
+    low, high = confint_proportions_2indep(120, 300, 30, 300, method="newcomb", compare="diff",
+                                           alpha=0.01)
+    assert (b.at(0.99).low, b.at(0.99).high) == pytest.approx((low, high))
+    c = by["g = c"]  # 0.12 - 0.10: the interval holds 0, so |d| runs from 0
+    low, high = confint_proportions_2indep(36, 300, 30, 300, method="newcomb", compare="diff")
+    assert low < 0 < high
+    assert (c.estimate.low, c.estimate.high) == pytest.approx((0.0, max(-low, high)))
+
+
+def test_gap_rules_judge_fail_pass_and_inconclusive_at_the_bonferroni_level():
+    f, y, pred = _gap_data()
+    gm = group_metrics(f, y, pred, attributes=["g"], reference={"g": "a"})
+    verdict = judge(measure(groups=gm),
+                    PolicyOptions(max_fpr_gap=0.2, max_fnr_gap=0.1, max_error_gap=0.2))
+    status = {(r.name, r.subject.split(" (vs")[0]): r.status for r in verdict.rules}
+    # b's FPR gap 0.30 [>0.2]: fail; c's 0.02 straddles nothing near 0.2: pass; FNR gaps are 0
+    # with intervals of about +-0.05: pass against 0.1; error gaps 0.15 and 0.01
+    assert status[("max_fpr_gap", "g = b")] == "fail"
+    assert status[("max_fpr_gap", "g = c")] == "pass"
+    assert status[("max_fnr_gap", "g = b")] == "pass"
+    assert status[("max_error_gap", "g = c")] == "pass"
+    assert status[("max_error_gap", "g = b")] == "inconclusive"  # 0.15 with a wide interval
+    assert verdict.rules_judged == 3
+    assert all(r.family == 2 and r.level == pytest.approx(1 - 0.05 / (3 * 2))
+               for r in verdict.rules)
+    # the judged interval is the one at that level (statsmodels' Newcombe, folded at zero)
+    from statsmodels.stats.proportion import confint_proportions_2indep
+    fail = next(r for r in verdict.rules if r.name == "max_fpr_gap" and "g = b" in r.subject)
+    low, high = confint_proportions_2indep(120, 300, 30, 300, method="newcomb", compare="diff",
+                                           alpha=0.05 / 6)
+    assert (fail.value["low"], fail.value["high"]) == pytest.approx((low, high))
+
+
+def test_a_negative_gap_counts_by_its_size():
+    # a's FPR is 0.30 below the reference b's: judged on |d|, so it fails like a gap above
+    f, y, pred = _gap_data()
+    gm = group_metrics(f, y, pred, attributes=["g"], reference={"g": "b"})  # b has the high FPR
+    rules = judge(measure(groups=gm), PolicyOptions(max_fpr_gap=0.2)).rules
+    a = next(r for r in rules if "g = a" in r.subject)
+    assert a.status == "fail" and a.value["value"] == pytest.approx(0.30)
+    assert 0.2 < a.value["low"] < a.value["high"]
+
+
+def test_a_gap_on_too_few_rows_or_an_empty_base_is_inconclusive():
+    f, y, pred = _gap_data()
+    keep = ~((f["g"] == "c").to_numpy() & ~y) | (np.arange(len(y)) % 60 == 0)  # c: 5 negatives
+    gm = group_metrics(f[keep], y[keep], pred[keep], attributes=["g"], reference={"g": "a"})
+    rules = {r.subject.split(" (vs")[0]: r for r in
+             judge(measure(groups=gm), PolicyOptions(max_fpr_gap=0.5)).rules}
+    assert rules["g = c"].status == "inconclusive" and "fewer than" in rules["g = c"].message
+    assert rules["g = b"].status == "pass"
+    only_pos = y.copy()
+    gm = group_metrics(f, only_pos | (f["g"] == "c").to_numpy(), pred, attributes=["g"],
+                       reference={"g": "a"})
+    rules = {r.subject.split(" (vs")[0]: r for r in
+             judge(measure(groups=gm), PolicyOptions(max_fpr_gap=0.5, min_rows=1)).rules}
+    assert rules["g = c"].status == "inconclusive"  # c has no label-negatives: no FPR
+
+
+def test_gap_rules_without_groups_are_not_run():
+    (rule,) = judge(measure(), PolicyOptions(max_error_gap=0.1)).rules
+    assert rule.subject == "(not run)" and "group metrics" in rule.message

@@ -8,6 +8,9 @@
 - ``impact_equal``: 4 groups with equal selection rates (every true impact ratio is 1), reference
   chosen from the data: per-interval coverage and the share of datasets with any interval missing 1.
 - ``impact_uneven``: 4 groups of uneven sizes and rates (true ratios known), same figures.
+- ``rate_gaps``: 3 groups (uneven shares, base rates, FPR and FNR; the reference fixed): coverage of
+  the true gap in error rate, FPR and FNR to the reference by ``GroupRow.gap_at`` (Newcombe), what
+  the policy's ``max_*_gap`` rules judge.
 
 Each run draws its own data from its own seed (``seed + run``).
 """
@@ -99,4 +102,33 @@ def impact_uneven(runs=2000, seed=0, n=4000):
             + _impact(runs, seed, n, shares, rates, label + ", reference fixed g2", reference="g2"))
 
 
-SIMS = {"paired": paired, "impact_equal": impact_equal, "impact_uneven": impact_uneven}
+# per group: share, P(label positive), FPR, FNR (g0 is the reference)
+GAP_GROUPS = [(0.5, 0.40, 0.20, 0.10), (0.3, 0.30, 0.30, 0.10), (0.2, 0.50, 0.20, 0.25)]
+
+
+def rate_gaps(runs=2000, seed=0, n=1500, level=0.95):
+    """Coverage of the gap to a fixed reference in each rate, per compared group."""
+    share, pos, fpr, fnr = (np.array(c) for c in zip(*GAP_GROUPS))
+    truth = {"fpr": fpr, "fnr": fnr, "error_rate": pos * fnr + (1 - pos) * fpr}
+    hits = {(rate, g): 0 for rate in truth for g in (1, 2)}
+    for r in range(runs):
+        rng = np.random.default_rng([seed + r, n, 7])
+        g = group_column(rng, n, share)
+        k = np.array([int(v[1:]) for v in g])
+        y = rng.random(n) < pos[k]
+        u = rng.random(n)
+        pred = np.where(y, u >= fnr[k], u < fpr[k])
+        m = group_metrics(pd.DataFrame({"g": g}), y, pred, attributes=["g"], min_share=0.0,
+                          reference={"g": "g0"})
+        for row in m.rows[1:]:
+            i = int(row.group[1:])
+            for rate, true in truth.items():
+                e = row.gap_at(rate, level)
+                hits[(rate, i)] += bool(e.low <= true[i] - true[0] <= e.high)
+    return [proportion(f"{rate} gap coverage, g{i} vs g0, n={n}, level {level:g}", h, runs,
+                       f">= {level - 0.02:g}", _seeds(seed, runs))
+            for (rate, i), h in hits.items()]
+
+
+SIMS = {"paired": paired, "impact_equal": impact_equal, "impact_uneven": impact_uneven,
+        "rate_gaps": rate_gaps}

@@ -6,7 +6,7 @@ discordance and gave ``[0, 0]`` when the models agree; the impact ratio against 
 group missed the truth somewhere in 18 % of datasets with 4 equal groups.
 """
 
-from sim_intervals import impact_equal, impact_uneven, paired
+from sim_intervals import impact_equal, impact_uneven, paired, rate_gaps
 
 
 def _by_start(figures, start):
@@ -38,3 +38,13 @@ def test_impact_ratio_with_uneven_groups():
     assert missed.value * missed.runs <= 9, missed.row()  # true about 0.02: P(> 9 of 100) < 0.001
     for f in _by_start(figures, "impact ratio coverage per interval"):
         assert f.value >= 0.93, f.row()  # true >= 0.96
+
+
+def test_rate_gap_intervals_cover_at_the_report_and_a_simultaneous_level():
+    # 2,000-run figures: 0.947-0.958 at 95 % (n = 1,500), 0.991-0.994 at 99 % (n = 400)
+    for f in rate_gaps(runs=300, seed=0, n=1500, level=0.95):
+        # true coverage >= 0.95: P(fewer than 273 of 300) < 0.001 (binomial)
+        assert f.value * f.runs >= 273, f.row()
+    for f in rate_gaps(runs=300, seed=300, n=400, level=0.99):
+        # true coverage >= 0.99: P(10 or more misses of 300) < 0.001 (binomial)
+        assert f.value * f.runs >= 291, f.row()
