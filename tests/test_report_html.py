@@ -49,3 +49,19 @@ def test_a_flip_mode_that_does_not_apply_has_no_bar_and_says_why():
                if "region" in g)
     assert "does not apply: not a model input" in row
     assert "<circle" not in row and "<line" not in row
+
+
+def test_the_gap_rules_are_rendered_like_the_others():
+    from probe.report.junit import render_junit
+    from probe.report.markdown import render_markdown
+
+    report = json.loads(GOLDEN.read_text())
+    rules = [r for r in report["verdict"]["rules"] if r["name"] in
+             ("max_fpr_gap", "max_fnr_gap", "max_error_gap")]
+    assert len(rules) == 30  # 10 groups compared (3 + 1 + 1 + 5), three rules
+    failed = next(r for r in rules if r["status"] == "fail")
+    value = f"{failed['value']['value']:.4f}"
+    for out in (render_html(report), render_markdown(report), render_junit(report)):
+        for name in ("max_fpr_gap", "max_fnr_gap", "max_error_gap"):
+            assert name in out
+        assert value in out

@@ -105,3 +105,15 @@ def test_transport_rows_say_which_proxies_were_moved():
     golden = _render(json.loads(GOLDEN.read_text()), 120)
     block = golden[golden.index("group · transport · a → b"):]
     assert "proxies moved: region" in block.split("group · transport · a → c")[0]
+
+
+@pytest.mark.parametrize("width", [60, 80])
+def test_the_verdict_panel_keeps_each_rules_numbers_whole(width):
+    report = json.loads(GOLDEN.read_text())
+    out = _render(report, width)
+    verdict = build_model(report).sections[0]
+    summary = next(b for b in verdict.blocks if isinstance(b, Table) and not b.detail)
+    for row in summary.rows:
+        measured = row[5].text
+        assert any(measured in line for line in out.splitlines()), measured
+    assert len(summary.rows) == 7

@@ -171,12 +171,17 @@ def _verdict_panel(section: Section, verdict: str, counts) -> Panel:
         if isinstance(block, Paragraph):
             lines.append(Text("".join(str(x) for x in block.parts), style="dim"))
         elif isinstance(block, Table) and not block.detail:
-            # one line per rule: worst status, name, tally, then the worst subject and its numbers
+            # per rule: worst status, name, tally; then the worst subject; then its numbers, which
+            # start a line of their own so that an interval is never cut between two lines
+            rules = RichTable.grid(padding=(0, 1))
+            rules.add_column(min_width=12, no_wrap=True)
+            rules.add_column(overflow="fold")
             for status, name, bound, tally, subject, measured, note in block.rows:
-                line = Text(f"{status.text:<12} ", style=_STYLE.get(status.status, ""))
-                line.append(f"{name.text} {bound.text}: {tally.text}")
-                line.append(f"; e.g. {subject.text}: {measured.text}, {note.text}", style="dim")
-                lines.append(line)
+                body = Group(Text(f"{name.text} {bound.text}: {tally.text}"),
+                             Text(f"e.g. {subject.text}", style="dim"),
+                             Text(f"{measured.text}: {note.text}", style="dim"))
+                rules.add_row(Text(status.text, style=_STYLE.get(status.status, "")), body)
+            lines.append(rules)
     return Panel(Group(*lines), box=box.ROUNDED, title="probe", title_align="left")
 
 
