@@ -226,13 +226,14 @@ def test_slice_forest_marks_overall_rate_and_each_slice_rate():
         assert value_at(float(bar.get("x2"))) == pytest.approx(found["rate"]["high"], abs=0.002)
 
 
-def test_flip_chart_lists_impossible_test_as_not_available():
+def test_flip_chart_lists_impossible_test_as_not_possible():
     flips = example_report()["flips"]
     root = ET.fromstring(svg.render_plot(_plots(example_report(), "flips")[0], uid="t"))
     rows = [g for g in root.iter("g") if g.get("class") == "row"]
     assert len(rows) == len(flips)
     assert len(list(root.iter("circle"))) == sum(not f["impossible"] for f in flips)
-    assert "n/a" in [t.text for t in rows[-1].iter("text")]
+    # a row without a value says why in place of the bar (its note), not a bare n/a
+    assert "not possible" in [t.text for t in rows[-1].iter("text")]
 
 
 # -- headless Chromium ---------------------------------------------------------------------------
@@ -369,10 +370,11 @@ def test_junit_counts_and_failure_messages(strict):
 
 def test_junit_survives_characters_xml_cannot_hold():
     report = example_report()
-    report["verdict"]["rules"][0]["message"] = 'bad\x01byte & <tag> "quoted"'
+    report["verdict"]["rules"][0]["message"] = 'bad\x01byte\ufffe & <tag> "quoted"'
     suite = _suite(render_junit(report))
     msg = suite.find("testcase/failure").get("message")
-    assert 'badbyte & <tag> "quoted"' in msg
+    # a control character is shown escaped; a non-character XML cannot hold is dropped
+    assert 'bad\\x01byte & <tag> "quoted"' in msg
 
 
 def test_junit_without_policy_is_an_empty_suite():
