@@ -87,7 +87,7 @@ def load_lightgbm(data: bytes, text: str, opts: Options) -> Model:
         categories={k: tuple(v) for k, v in catmap.items()},
         score_batch=score, transform=transform, probability=True,
         details={"objective": objective},
-        batch_size=opts.batch_size,
+        batch_size=opts.batch_size, allow_unseen=opts.allow_unseen,
         n_inputs=len(names) if fnames is None else None,
     )
 

@@ -215,7 +215,7 @@ def wrap_python(obj: Any, *, spec: str, kind: str, sha256: str | None, opts: Opt
     return Model(
         spec=spec, kind=kind, sha256=sha256, feature_names=fnames,
         categories=sklearn_categories(obj), score_batch=score, transform=transform,
-        probability=probability, details={**details, **pos_info}, batch_size=opts.batch_size,
+        probability=probability, details={**details, **pos_info}, batch_size=opts.batch_size, allow_unseen=opts.allow_unseen,
         n_inputs=int(n_in) if (fnames is None and n_in is not None) else None,
     )
 
@@ -241,7 +241,7 @@ def _wrap_function(fn: Callable, *, spec: str, kind: str, sha256: str | None, op
         spec=spec, kind=kind, sha256=sha256, feature_names=opts.feature_names, categories={},
         score_batch=lambda batch: fn(batch.copy()),  # a copy: the caller's frame stays intact
         transform=f"scores returned by `{name}(frame)`", probability=True,
-        details=details, batch_size=opts.batch_size,
+        details=details, batch_size=opts.batch_size, allow_unseen=opts.allow_unseen,
     )
 
 

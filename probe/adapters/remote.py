@@ -91,7 +91,7 @@ def load_command(text: str, opts: Options) -> Model:
         categories={}, score_batch=score,
         transform="scores printed by the command (CSV rows on stdin, one score per line)",
         probability=True, details={"argv": argv, "timeout": timeout},
-        batch_size=opts.batch_size,
+        batch_size=opts.batch_size, allow_unseen=opts.allow_unseen,
     )
 
 
@@ -128,7 +128,7 @@ def load_http(text: str, opts: Options) -> Model:
         spec=text, kind="http", sha256=None, feature_names=opts.feature_names, categories={},
         score_batch=score,
         transform='scores from the endpoint (POST {"records": [...]} per batch)',
-        probability=True, details={"timeout": timeout}, batch_size=opts.batch_size,
+        probability=True, details={"timeout": timeout}, batch_size=opts.batch_size, allow_unseen=opts.allow_unseen,
     )
 
 
