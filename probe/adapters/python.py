@@ -156,7 +156,7 @@ def wrap_python(obj: Any, *, spec: str, kind: str, sha256: str | None, opts: Opt
     if has["predict_proba"]:
         idx = None
         if classes is not None:
-            idx = class_index(classes, opts.positive, spec)
+            idx = class_index(classes, opts.positive, spec, opts)
             label = f"class `{classes[idx]!r}`"
         else:
             label = "the last column" if opts.positive is None else f"column {opts.positive!r}"
@@ -180,7 +180,7 @@ def wrap_python(obj: Any, *, spec: str, kind: str, sha256: str | None, opts: Opt
                 raise ModelError(f"model `{spec}` has {len(classes)} classes and no "
                                  "predict_proba; probe scores binary classifiers")
             # decision_function > 0 means classes_[1]
-            sign = 1.0 if class_index(classes, opts.positive, spec) == 1 else -1.0
+            sign = 1.0 if class_index(classes, opts.positive, spec, opts) == 1 else -1.0
 
         def score(batch: pd.DataFrame) -> np.ndarray:
             d = np.asarray(obj.decision_function(inputs(batch)), dtype=np.float64)
@@ -198,7 +198,7 @@ def wrap_python(obj: Any, *, spec: str, kind: str, sha256: str | None, opts: Opt
     else:
         positive_label = None
         if classes is not None:
-            positive_label = classes[class_index(classes, opts.positive, spec)]
+            positive_label = classes[class_index(classes, opts.positive, spec, opts)]
         elif opts.positive is not None:
             positive_label = opts.positive
 
