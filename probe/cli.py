@@ -66,7 +66,8 @@ def _person(p: argparse.ArgumentParser) -> None:
     from .options import ModelOptions, add_flags, option_fields
 
     add_flags(p.add_argument_group("model"), ModelOptions,
-              skip=tuple(f.name for f in option_fields(ModelOptions) if f.name not in _PERSON_FLAGS))
+              skip=tuple(f.name for f in option_fields(ModelOptions)
+                         if f.name not in _PERSON_FLAGS))
 
 
 def _with_person(plan, args):

@@ -184,7 +184,8 @@ class Worker:
                 name = signal.Signals(-code).name
             except ValueError:
                 name = f"signal {-code}"
-            return ProcessFailure(f"crashed ({name})", f" (its last words: {last!r})" if last else "")
+            words = f" (its last words: {last!r})" if last else ""
+            return ProcessFailure(f"crashed ({name})", words)
         return ProcessFailure(f"exited (code {code})", "; a model must not end the process")
 
 
@@ -211,7 +212,7 @@ def _last_line(file: Any) -> str:
 
 
 def _stop(proc: subprocess.Popen, stderr: Any) -> None:
-    """Kill and reap the child, close its pipes and stderr file (a weakref finalizer: also at exit)."""
+    """Kill and reap the child, close its pipes and stderr file (a finalizer: also at exit)."""
     if proc.poll() is None:
         try:
             proc.kill()

@@ -1,8 +1,8 @@
 """Kind ``pickle``: ``.joblib``, ``.pkl`` and ``.pickle`` files, unpickled with joblib.
 
 Unpickling executes whatever code the file names, so :func:`~probe.adapters.load_model` refuses
-these files unless ``trust_pickle`` is set or ``sha256`` pins the file. The bytes are read once: the recorded SHA-256 is of the
-bytes that were loaded.
+these files unless ``trust_pickle`` is set or ``sha256`` pins the file. The bytes are read once:
+the recorded SHA-256 is of the bytes that were loaded.
 """
 
 from __future__ import annotations

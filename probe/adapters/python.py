@@ -215,7 +215,8 @@ def wrap_python(obj: Any, *, spec: str, kind: str, sha256: str | None, opts: Opt
     return Model(
         spec=spec, kind=kind, sha256=sha256, feature_names=fnames,
         categories=sklearn_categories(obj), score_batch=score, transform=transform,
-        probability=probability, details={**details, **pos_info}, batch_size=opts.batch_size, allow_unseen=opts.allow_unseen,
+        probability=probability, details={**details, **pos_info}, batch_size=opts.batch_size,
+        allow_unseen=opts.allow_unseen,
         n_inputs=int(n_in) if (fnames is None and n_in is not None) else None,
     )
 

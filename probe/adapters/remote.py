@@ -5,10 +5,11 @@ with the batch as CSV with a header on stdin, and reads one score per line from 
 ``http(s)://HOST:PORT/PATH`` POSTs ``{"records": [...]}`` and reads a JSON list of numbers or
 ``{"scores": [...]}``.
 
-These are the only kinds that honour ``timeout`` (seconds per batch): a command still running
-after ``timeout`` seconds is killed; a request gives up when the endpoint stays silent that long
+Both honour ``timeout`` (seconds per batch), as isolated models do: a command still running after
+``timeout`` seconds is killed; a request gives up when the endpoint stays silent that long
 (connecting or between reads). Either way the batch fails with a
-:class:`~probe.errors.ModelError`.
+:class:`~probe.errors.ModelError`. They run outside this process already, so they are never
+isolated again.
 """
 
 from __future__ import annotations
@@ -128,7 +129,8 @@ def load_http(text: str, opts: Options) -> Model:
         spec=text, kind="http", sha256=None, feature_names=opts.feature_names, categories={},
         score_batch=score,
         transform='scores from the endpoint (POST {"records": [...]} per batch)',
-        probability=True, details={"timeout": timeout}, batch_size=opts.batch_size, allow_unseen=opts.allow_unseen,
+        probability=True, details={"timeout": timeout}, batch_size=opts.batch_size,
+        allow_unseen=opts.allow_unseen,
     )
 
 
