@@ -168,3 +168,19 @@ def test_unseen_categories_are_refused_then_counted(files, fitted, capsys):
     assert code == EXIT_OK, err
     model = json.loads((files / "out" / "report.json").read_text())["provenance"]["model"]
     assert model["unseen_values"] == {"region": n}
+
+
+def test_a_pin_checks_a_py_module_before_it_runs_and_needs_a_file(tmp_path):
+    from probe.errors import PlanError, TrustError
+
+    (tmp_path / "m.py").write_text(
+        "import pathlib\npathlib.Path(__file__).with_name('ran').touch()\n"
+        "def score(frame):\n    return frame['x'] * 0\n")
+    pin = hashlib.sha256((tmp_path / "m.py").read_bytes()).hexdigest()  # reference: hashlib
+    with pytest.raises(TrustError, match=f"not the pinned {'1' * 64}"):
+        load_model("py:m.py:score", base_dir=tmp_path, sha256="1" * 64)
+    assert not (tmp_path / "ran").exists()
+    with load_model("py:m.py:score", base_dir=tmp_path, sha256=pin.upper()) as model:
+        assert model.sha256 == pin
+    with pytest.raises(PlanError, match="`sha256` pins a model file"):
+        load_model("column:x", sha256=pin)

@@ -82,6 +82,7 @@ class Worker:
         self.timeout = timeout
         self.started = False
         self._failure: ProcessFailure | None = None
+        self._lock = threading.Lock()  # one request at a time, whichever thread asks
         self._stderr = tempfile.TemporaryFile()
         env = dict(os.environ)
         threads = str(max(1, min(2, os.cpu_count() or 1)))
@@ -109,6 +110,10 @@ class Worker:
 
     def call(self, request: Any, timeout: float) -> tuple:
         """Send ``request`` (None: send nothing) and wait for the answer, at most ``timeout`` s."""
+        with self._lock:
+            return self._call(request, timeout)
+
+    def _call(self, request: Any, timeout: float) -> tuple:
         if self._failure is not None:
             raise ProcessFailure(f"is no longer running (it {self._failure.what} earlier)")
         deadline = time.monotonic() + timeout

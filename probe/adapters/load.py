@@ -18,7 +18,7 @@ from typing import Any
 from probe.errors import ModelError, TrustError
 
 from .column import load_column
-from .files import close_files, read_bytes, resolve
+from .files import check_pin, close_files, read_bytes, resolve
 from .isolated import load_isolated
 from .lightgbm_file import load_lightgbm
 from .model import Model
@@ -167,6 +167,8 @@ def load_spec(text: str, opts: Options) -> Model:
     lower = text.lower()
     if lower.startswith("py:"):
         return load_python(text, opts)
+    if lower.startswith(_OUTSIDE_OR_DATA):
+        check_pin(None, text, opts.sha256)
     if lower.startswith("cmd:"):
         return load_command(text, opts)
     if lower.startswith(("http://", "https://")):
@@ -198,12 +200,7 @@ def _load_file(text: str, opts: Options) -> Model:
     path = _file_path(text, opts)
     suffix = path.suffix.lower()
     data = read_bytes(path, text)
-    sha = hashlib.sha256(data).hexdigest()
-    if opts.sha256 is not None and sha != opts.sha256:
-        raise TrustError(
-            f"model file `{text}` has SHA-256 {sha}, not the pinned {opts.sha256} "
-            "(sha256 under [model]); it is not the file the plan names"
-        )
+    check_pin(hashlib.sha256(data).hexdigest(), text, opts.sha256)  # before a byte is loaded
     if suffix in _PICKLE_SUFFIXES:
         return load_pickle(data, text, opts, trust="sha256" if opts.sha256 else "flag")
     if suffix == ".skops":

@@ -28,7 +28,7 @@ from probe.data import sha256_file
 from probe.errors import ModelError
 
 from .encoders import sklearn_categories
-from .files import close_files, read_bytes, resolve
+from .files import check_pin, close_files, read_bytes, resolve
 from .inputs import check_count, reconcile_names
 from .labels import class_index, index_from_positive, labels_equal, zero_one
 from .messages import cause, close_names, first_line
@@ -51,12 +51,14 @@ def load_python(text: str, opts: Options) -> Model:
             raise ModelError(f"module file `{module_part}` not found{close_files(path)}")
         data = read_bytes(path, module_part)
         sha = hashlib.sha256(data).hexdigest()
+        check_pin(sha, module_part, opts.sha256)  # before the module runs
         module = _import_file(path, sha, text)
     else:
         module = _import_dotted(module_part, opts.base, text)
         file = getattr(module, "__file__", None)
         if file and os.path.isfile(file):
             sha = sha256_file(file)
+        check_pin(sha, module_part, opts.sha256)
     obj: Any = module
     for part in attr.split("."):
         if not hasattr(obj, part):
