@@ -57,6 +57,29 @@ def _common(p: argparse.ArgumentParser, *, model: bool = True, label: bool = Tru
     _output(p)
 
 
+#: The [model] settings `run` and `demo` take on the command line over the plan's: trust comes
+#: from the person running probe, and so may the limits on the model.
+_PERSON_FLAGS = ("trust_pickle", "timeout", "isolate", "allow_unseen")
+
+
+def _person(p: argparse.ArgumentParser) -> None:
+    from .options import ModelOptions, add_flags, option_fields
+
+    add_flags(p.add_argument_group("model"), ModelOptions,
+              skip=tuple(f.name for f in option_fields(ModelOptions)
+                         if f.name not in _PERSON_FLAGS))
+
+
+def _with_person(plan, args):
+    """The plan with the `run`/`demo` model flags that were given."""
+    from dataclasses import replace
+
+    from .options import ModelOptions, flag_values
+
+    given = flag_values(args, ModelOptions)
+    return plan.with_overrides(model=replace(plan.model, **given)) if given else plan
+
+
 def _output(p: argparse.ArgumentParser) -> None:
     o = p.add_argument_group("output")
     o.add_argument("--seed", type=int, help="random seed, written into the report (the plan's, else 0)")
@@ -90,11 +113,13 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--strict", action="store_true",
                    help="exit 1 when the policy fails, as `probe run` does (the demo's scenarios are "
                         "built to fail some rules, so by default the demo exits 0 once it has run)")
+    _person(p)
     _output(p)
 
     p = sub.add_parser("run", help="everything a plan file asks for, then the verdict")
     p.add_argument("plan", metavar="PLAN.toml")
     add_flags(p.add_argument_group("policy"), PolicyOptions)
+    _person(p)
     _output(p)
 
     p = sub.add_parser("groups", help="rates, impact ratios and differences per protected group")
@@ -181,9 +206,10 @@ def _execute(args, console) -> int:
         if not args.quiet:
             console.print(f"building scenario [bold]{args.scenario}[/] (cached after the first run) …")
         built = build_scenario(args.scenario, force=args.rebuild)
-        plan = load_plan(built.plan_path).with_overrides(name=f"demo-{args.scenario}")
+        plan = _with_person(load_plan(built.plan_path), args).with_overrides(
+            name=f"demo-{args.scenario}")
     elif args.command == "run":
-        plan = load_plan(args.plan)
+        plan = _with_person(load_plan(args.plan), args)
         if args.policy__fail_on_inconclusive:
             from dataclasses import replace
 

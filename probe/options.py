@@ -195,12 +195,26 @@ class ModelOptions(_Checked):
     threshold: float = opt(0.5, lo=0.0, hi=1.0, help="decision = score >= T")
     favorable: str = opt("positive", choices=("positive", "negative"),
                          help="which decision is the favourable outcome")
-    trust_pickle: bool = opt(False, help="allow loading pickle/joblib model files (this executes "
-                                         "their code)")
+    positive_class: Any = opt(None, metavar="VALUE",
+                              help="the model's class that means the label's positive value (when "
+                                   "the model's classes and the label's values differ)")
+    trust_pickle: bool = opt(False, help="trust the pickle/joblib model file named here (loading "
+                                         "it executes its code); a plan file cannot set this: "
+                                         "pin the file with sha256 instead")
+    sha256: str | None = opt(None, cli=False, help="the SHA-256 the model file must have; a "
+                                                   "pickle whose hash matches is trusted")
     trusted_types: tuple[str, ...] = opt((), flag="--trust-type", metavar="TYPE",
                                          help="types to trust when loading a .skops file")
     batch_size: int = opt(50_000, lo=1, help="rows per call to the model")
-    timeout: float = opt(600.0, lo=0.001, help="seconds one batch may take (cmd: and http: models)")
+    timeout: float = opt(600.0, lo=0.001, help="seconds loading the model, then each batch, may "
+                                               "take (every kind but a model in this process)")
+    isolate: bool = opt(True, flag="--no-isolate",
+                        help="load and score model files and py: models in a child process, so a "
+                             "crash, hang or exit becomes an error (--no-isolate: in this "
+                             "process, with no time limit)")
+    allow_unseen: bool = opt(False, help="score rows whose categorical value the model never saw "
+                                         "(as the model treats unknown values) instead of "
+                                         "refusing them")
 
 
 @dataclass(frozen=True)

@@ -54,11 +54,18 @@ def _bar(progress: Progress | None, step: str):
     return lambda done, total: progress(step, done, total)
 
 
-def _load(plan: Plan, spec: str, positive):
+def _load(plan: Plan, spec: str, holdout, *, pinned: bool):
+    """Load a model with the plan's options; ``pinned``: the plan's ``sha256`` names this file."""
     m = plan.model
-    return load_model(plan.resolve_spec(spec), base_dir=plan.base_dir, positive=positive,
-                      trust_pickle=m.trust_pickle, trusted_types=m.trusted_types,
-                      feature_names=plan.data.features, batch_size=m.batch_size, timeout=m.timeout)
+    values = None
+    if holdout.label:
+        values = sorted(holdout.frame[holdout.label].dropna().unique().tolist(), key=str)
+    return load_model(plan.resolve_spec(spec), base_dir=plan.base_dir, positive=holdout.positive,
+                      positive_class=m.positive_class, label_values=values,
+                      trust_pickle=m.trust_pickle, sha256=m.sha256 if pinned else None,
+                      trusted_types=m.trusted_types, feature_names=plan.data.features,
+                      batch_size=m.batch_size, timeout=m.timeout, isolate=m.isolate,
+                      allow_unseen=m.allow_unseen)
 
 
 def _never_sliced(plan: Plan, label: str | None, model) -> list[str]:
@@ -80,7 +87,7 @@ def prepare(plan: Plan, *, clock: _Clock | None = None, progress: Progress | Non
                                   source=str(path), sha256=sha256_file(path))
     frame = holdout.frame
     with clock.step("load model"):
-        model = _load(plan, plan.model.spec, holdout.positive)
+        model = _load(plan, plan.model.spec, holdout, pinned=True)
     # the model never sees the label, even when it reads the whole frame (py:, cmd:, http:)
     inputs = frame.drop(columns=[holdout.label]) if holdout.label else frame
     threshold = plan.model.threshold
@@ -89,7 +96,7 @@ def prepare(plan: Plan, *, clock: _Clock | None = None, progress: Progress | Non
             model, model.scores(inputs, progress=_bar(progress, "scoring")), threshold)}
     if plan.compare is not None:
         with clock.step("score baseline"):
-            baseline = _load(plan, plan.compare.baseline, holdout.positive)
+            baseline = _load(plan, plan.compare.baseline, holdout, pinned=False)
             runs["baseline"] = ModelRun.from_scores(
                 baseline, baseline.scores(inputs, progress=_bar(progress, "scoring baseline")),
                 threshold)

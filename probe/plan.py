@@ -17,7 +17,7 @@ from pathlib import Path
 from typing import Any
 
 from .data import close_names
-from .errors import PlanError
+from .errors import PlanError, TrustError
 from .options import (SECTIONS, CompareOptions, DataOptions, FlipOptions, ModelOptions,
                       PolicyOptions, ProxyOptions, ReportOptions, SliceOptions, coerce_option,
                       option_fields)
@@ -183,5 +183,22 @@ def load_plan(path: str | Path) -> Plan:
         raw = tomllib.loads(content.decode("utf-8"))
     except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
         raise PlanError(f"plan file `{path}` is not valid TOML: {exc}") from None
-    return plan_from_dict(raw, base_dir=path.resolve().parent, where=f"plan `{path}`",
+    plan = plan_from_dict(raw, base_dir=path.resolve().parent, where=f"plan `{path}`",
                           sha256=hashlib.sha256(content).hexdigest())
+    if plan.model is not None and plan.model.trust_pickle:
+        raise _file_grants_trust(plan, path)
+    return plan
+
+
+def _file_grants_trust(plan: Plan, path: Path) -> TrustError:
+    """A plan file must not grant itself the right to run a pickle's code: the person running
+    probe grants it (``--trust-pickle``), or the file pins the exact model file (``sha256``)."""
+    model_file = Path(plan.resolve_spec(plan.model.spec))
+    try:
+        pin = f'"{hashlib.sha256(model_file.read_bytes()).hexdigest()}"'
+    except OSError:
+        pin = '"<the SHA-256 of the model file>"'
+    return TrustError(
+        f"plan `{path}`: `trust_pickle = true` under [model] cannot come from a plan file; remove "
+        f"it and pass --trust-pickle, or pin the model file with sha256 = {pin} under [model]"
+    )

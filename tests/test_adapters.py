@@ -103,7 +103,9 @@ def test_pickle_refused_without_trust(tmp_path, pipe):
     with pytest.raises(TrustError) as info:
         load_model("model.joblib", base_dir=tmp_path)
     msg = str(info.value)
-    assert "--trust-pickle" in msg and "trust_pickle = true" in msg
+    # the fix names the flag and the pin, with the file's own hash (reference: hashlib)
+    assert "--trust-pickle" in msg and "trust_pickle = true" not in msg
+    assert f'sha256 = "{hashlib.sha256(path.read_bytes()).hexdigest()}"' in msg
     assert "arbitrary code" in msg and "\n" not in msg
 
 
@@ -224,7 +226,7 @@ def test_lightgbm_holdout_lacking_a_level_and_shuffled_scores_as_trained(
 
 def test_lightgbm_unseen_level_is_missing(tmp_path, booster, holdout):
     booster.save_model(tmp_path / "m.txt")
-    model = load_model(tmp_path / "m.txt")
+    model = load_model(tmp_path / "m.txt", allow_unseen=True)
     odd = holdout.copy()
     odd.loc[odd.index[:10], "region"] = "atlantis"
     # reference: LightGBM's pandas path maps a level outside the training categories to NaN
@@ -235,6 +237,7 @@ def test_lightgbm_unseen_level_is_missing(tmp_path, booster, holdout):
     assert nan_frame["region"].isna().sum() == 10
     np.testing.assert_allclose(model.scores(odd), booster.predict(nan_frame.to_numpy(float)),
                                rtol=0, atol=1e-12)
+    assert model.describe()["unseen_values"] == {"region": 10}  # the 10 rows planted above
 
 
 def test_lightgbm_raw_objective_is_described(tmp_path, data):
@@ -333,7 +336,8 @@ def test_onnx_without_onnxruntime(tmp_path, monkeypatch):
     (tmp_path / "m.onnx").write_bytes(b"\x08\x07")
     monkeypatch.setitem(sys.modules, "onnxruntime", None)  # makes `import onnxruntime` fail
     with pytest.raises(ModelError, match=r"pip install 'probe\[onnx\]'"):
-        load_model("m.onnx", base_dir=tmp_path)
+        # in this process: the monkeypatched import does not reach a child
+        load_model("m.onnx", base_dir=tmp_path, isolate=False)
 
 
 # --------------------------------------------------------------------------------------------
@@ -412,7 +416,7 @@ def test_object_estimator_and_positive_coercion(pipe, holdout):
     for positive in (0, "0", False):
         np.testing.assert_allclose(load_model(pipe, positive=positive).scores(holdout), p[:, 0],
                                    rtol=0, atol=1e-12)
-    with pytest.raises(ModelError, match="positive class 'yes' is not one of the classes"):
+    with pytest.raises(ModelError, match="the label's positive value 'yes' is not one of the classes"):
         load_model(pipe, positive="yes")
 
 
@@ -796,8 +800,12 @@ def test_lightgbm_positive_class_zero_is_the_complement(tmp_path, booster, holdo
 def test_lightgbm_column_with_none_of_the_trained_levels_is_refused(tmp_path, booster, holdout):
     booster.save_model(tmp_path / "m.txt")
     shouted = holdout.assign(region=holdout["region"].str.upper())  # NORTH, SOUTH: another vocabulary
+    model = load_model("m.txt", base_dir=tmp_path)
+    with pytest.raises(DataError, match=r"column `region` has 250 rows \(100.0 %\) with values "
+                                        r"the model `m.txt` never saw"):
+        model.scores(shouted)
     with pytest.raises(ModelError, match=r"column `region` holds none of the levels .* 'north'"):
-        load_model("m.txt", base_dir=tmp_path).scores(shouted)
+        load_model("m.txt", base_dir=tmp_path, allow_unseen=True).scores(shouted)
 
 
 def test_a_series_answer_is_aligned_to_the_rows_given(tmp_path):

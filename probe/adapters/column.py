@@ -27,5 +27,6 @@ def load_column(text: str, opts: Options) -> Model:
         spec=text, kind="column", sha256=None, feature_names=None, categories={},
         score_batch=score, transform=f"scores read from the data column `{name}`",
         probability=True, details={"column": name}, batch_size=opts.batch_size,
+        allow_unseen=opts.allow_unseen,
         required=(name,),
     )

@@ -5,11 +5,11 @@ from __future__ import annotations
 import difflib
 from pathlib import Path
 
-from probe.errors import ModelError
+from probe.errors import ModelError, PlanError, TrustError
 
 from .messages import ticks
 
-__all__ = ["close_files", "read_bytes", "resolve"]
+__all__ = ["check_pin", "close_files", "read_bytes", "resolve"]
 
 
 def resolve(text: str, base: Path) -> Path:
@@ -26,6 +26,18 @@ def read_bytes(path: Path, text: str) -> bytes:
     if not data:
         raise ModelError(f"model file `{text}` is empty")
     return data
+
+
+def check_pin(sha: str | None, text: str, pinned: str | None) -> None:
+    """Refuse a file whose SHA-256 is not the pinned one (``sha256`` under [model])."""
+    if pinned is None or sha == pinned:
+        return
+    if sha is None:
+        raise PlanError(f"`sha256` pins a model file, and model `{text}` has none to check")
+    raise TrustError(
+        f"model file `{text}` has SHA-256 {sha}, not the pinned {pinned} (sha256 under "
+        "[model]); it is not the file the plan names"
+    )
 
 
 def close_files(path: Path) -> str:

@@ -37,8 +37,11 @@ def _label_key(value: Any) -> Any:
     return value
 
 
-def class_index(classes: Sequence, positive: Any, spec: str) -> int:
-    """Position of the positive class among ``classes`` (default: the last of two)."""
+def class_index(classes: Sequence, positive: Any, spec: str, opts: Any = None) -> int:
+    """Position of the positive class among ``classes`` (default: the last of two).
+
+    ``opts`` (the load options) words the error when ``positive`` is the label's value rather
+    than a ``positive_class`` the user gave: it names the label's values and the fix."""
     classes = list(classes)
     if positive is None:
         if len(classes) == 2:
@@ -56,9 +59,18 @@ def class_index(classes: Sequence, positive: Any, spec: str) -> int:
     matches = [i for i, c in enumerate(classes) if _label_key(c) == key]
     if len(matches) == 1:
         return matches[0]
+    shown = ", ".join(repr(c) for c in classes)
+    if opts is None or opts.positive_class_given:
+        raise ModelError(
+            f"positive class {positive!r} is not one of the classes of model `{spec}`: {shown}"
+        )
+    held = "" if not opts.label_values else (
+        "; the label holds " + ", ".join(repr(v) for v in opts.label_values[:10])
+        + (", …" if len(opts.label_values) > 10 else ""))
     raise ModelError(
-        f"positive class {positive!r} is not one of the classes of model `{spec}`: "
-        f"{', '.join(repr(c) for c in classes)}"
+        f"the label's positive value {positive!r} is not one of the classes of model `{spec}` "
+        f"({shown}){held}; say which class means {positive!r} with --positive-class VALUE "
+        "(positive_class under [model])"
     )
 
 

@@ -11,6 +11,8 @@ booster gives the column of the positive class; any other objective's raw output
 from __future__ import annotations
 
 import hashlib
+import json
+import re
 from typing import Any
 
 import numpy as np
@@ -36,6 +38,13 @@ def load_lightgbm(data: bytes, text: str, opts: Options) -> Model:
     sha = hashlib.sha256(data).hexdigest()
     try:
         model_str = data.decode("utf-8")
+    except UnicodeDecodeError:
+        raise ModelError(
+            f"model file `{text}` is damaged or truncated (it is not UTF-8 text)") from None
+    damage = _damage(model_str)
+    if damage:
+        raise ModelError(f"model file `{text}` is damaged or truncated ({damage})")
+    try:
         booster = lightgbm.Booster(model_str=model_str)
     except Exception as exc:
         raise ModelError(f"cannot load LightGBM model file `{text}`: {cause(exc)}") from exc
@@ -87,9 +96,50 @@ def load_lightgbm(data: bytes, text: str, opts: Options) -> Model:
         categories={k: tuple(v) for k, v in catmap.items()},
         score_batch=score, transform=transform, probability=True,
         details={"objective": objective},
-        batch_size=opts.batch_size,
+        batch_size=opts.batch_size, allow_unseen=opts.allow_unseen,
         n_inputs=len(names) if fnames is None else None,
     )
+
+
+def _damage(model_str: str) -> str | None:
+    """What is structurally wrong with a LightGBM text model, or None when it is whole.
+
+    Cheap checks of what LightGBM itself writes, made before LightGBM parses the file (a cut
+    file can crash it): the ``end of trees`` marker; trees numbered 0, 1, ... in order, as many
+    as the header's ``tree_sizes`` lists, each exactly that many bytes; a whole multiple of
+    ``num_tree_per_iteration``; the parameters block closed; the ``pandas_categorical`` line
+    complete JSON.
+    """
+    end = model_str.find("\nend of trees")
+    if end < 0:
+        return "no `end of trees` line"
+    starts = [m.start() + 1 for m in re.finditer(r"\nTree=", model_str[:end + 1])]
+    numbers = [model_str[i + 5:model_str.find("\n", i)].strip() for i in starts]
+    if numbers != [str(i) for i in range(len(numbers))]:
+        return f"the trees are numbered {', '.join(numbers[:6]) or 'none'}…, not 0, 1, 2, …"
+    header = _lightgbm_header(model_str)
+    sizes = header.get("tree_sizes")
+    if sizes is not None:
+        sizes = sizes.split()
+        if len(sizes) != len(starts):
+            return f"the header lists {len(sizes)} trees, the file holds {len(starts)}"
+        bounds = starts + [end + 1]
+        for i, size in enumerate(sizes):
+            if not size.isdigit() or int(size) != bounds[i + 1] - bounds[i]:
+                return f"tree {i} is not the {size} characters the header gives"
+    per = header.get("num_tree_per_iteration", "1")
+    if not per.isdigit() or int(per) < 1 or len(starts) % int(per):
+        return f"{len(starts)} trees is not a whole number of iterations of {per}"
+    tail = model_str[end:]
+    if "\nparameters:" in tail and "\nend of parameters" not in tail:
+        return "the parameters block is not closed"
+    cats = tail.find("\npandas_categorical:")
+    if cats >= 0:
+        try:
+            json.loads(tail[cats + len("\npandas_categorical:"):].strip() or "null")
+        except ValueError:
+            return "the `pandas_categorical` line is cut"
+    return None
 
 
 def _lightgbm_header(model_str: str) -> dict[str, str]:

@@ -2,11 +2,14 @@
 
 Specs with a prefix (``py:``, ``cmd:``, ``http(s)://``, ``column:``) go to their module; anything
 else is a model file, recognised by its extension (or, for LightGBM, by its first bytes). Pickles
-are refused here, before a byte is read, unless ``trust_pickle`` is set.
+are refused here, before a byte is loaded, unless ``trust_pickle`` is set or ``sha256`` pins the
+file. Model files and ``py:`` models are handed to :mod:`.isolated` unless ``isolate=False``;
+:func:`load_spec` is what runs in the child.
 """
 
 from __future__ import annotations
 
+import hashlib
 import os
 from collections.abc import Sequence
 from pathlib import Path
@@ -15,7 +18,8 @@ from typing import Any
 from probe.errors import ModelError, TrustError
 
 from .column import load_column
-from .files import close_files, read_bytes, resolve
+from .files import check_pin, close_files, read_bytes, resolve
+from .isolated import load_isolated
 from .lightgbm_file import load_lightgbm
 from .model import Model
 from .onnx_file import load_onnx
@@ -25,11 +29,11 @@ from .python import load_python, wrap_python
 from .remote import load_command, load_http
 from .skops_file import load_skops
 
-__all__ = ["ACCEPTED_SPECS", "load_model"]
+__all__ = ["ACCEPTED_SPECS", "load_model", "load_spec"]
 
 #: The model specs :func:`load_model` accepts, as shown in error messages.
 ACCEPTED_SPECS = (
-    "model.joblib / model.pkl / model.pickle (needs trust_pickle)",
+    "model.joblib / model.pkl / model.pickle (needs --trust-pickle or a sha256 pin)",
     "model.skops",
     "model.txt / model.lgb (LightGBM)",
     "model.onnx",
@@ -40,6 +44,9 @@ ACCEPTED_SPECS = (
 )
 
 _PICKLE_SUFFIXES = (".joblib", ".pkl", ".pickle")
+#: Kinds that never run in a child: ``cmd:`` and ``http:`` already run outside this process,
+#: ``column:`` runs no code.
+_OUTSIDE_OR_DATA = ("cmd:", "http://", "https://", "column:")
 
 
 def load_model(
@@ -47,11 +54,16 @@ def load_model(
     *,
     base_dir: str | Path | None = None,
     positive: Any = None,
+    positive_class: Any = None,
+    label_values: Sequence | None = None,
     trust_pickle: bool = False,
+    sha256: str | None = None,
     trusted_types: Sequence[str] = (),
     feature_names: Sequence[str] | None = None,
     batch_size: int = 50_000,
     timeout: float = 600.0,
+    isolate: bool = True,
+    allow_unseen: bool = False,
 ) -> Model:
     """Turn a model spec (or an in-memory model) into a :class:`Model`.
 
@@ -61,15 +73,23 @@ def load_model(
         A spec from the table in :mod:`probe.adapters` (file path, ``py:``, ``cmd:``,
         ``http(s)://``, ``column:``), or an in-memory object: a fitted estimator with
         ``predict_proba`` (or ``decision_function`` / ``predict``), or a function taking a
-        DataFrame and returning one score per row.
+        DataFrame and returning one score per row. An in-memory object runs in this process.
     base_dir : str or Path, optional
         Where relative paths, ``py:`` module files and ``cmd:`` commands are resolved and run
         (the plan file's folder); default the current directory.
     positive : optional
         The label value of the positive class, matched to the model's ``classes_`` with
         ``1 == "1" == True``; default the last class.
+    positive_class : optional
+        The model's class that means the label's positive value, when the model's classes and
+        the label's values differ (a model trained on 0/1, a holdout labelled yes/no).
+    label_values : sequence, optional
+        The label's values, named in the error when ``positive`` is none of the model's classes.
     trust_pickle : bool, default=False
         Allow loading pickle/joblib files, which executes code.
+    sha256 : str, optional
+        The SHA-256 (hex) the model file must have; any other file is refused. A pickle whose
+        hash matches is trusted without ``trust_pickle``.
     trusted_types : sequence of str, default=()
         Types a skops file may use beyond skops' safe list.
     feature_names : sequence of str, optional
@@ -78,10 +98,17 @@ def load_model(
     batch_size : int, default=50000
         Rows per call to the model.
     timeout : float, default=600.0
-        Seconds one batch may take; only ``cmd:`` and ``http(s)://`` models honour it (the
-        command is killed; the request gives up when the endpoint stays silent that long).
-        Model files, ``py:``, in-memory objects and ``column:`` run in this process with no
-        time limit.
+        Seconds loading the model, and then each batch, may take, for every kind that runs
+        outside this process: an isolated model file or ``py:`` module (its process is
+        killed), a ``cmd:`` command (killed), an ``http(s)://`` endpoint (the request gives up
+        when it stays silent that long). A model in this process (``isolate=False``, an
+        in-memory object, ``column:``) has no time limit.
+    isolate : bool, default=True
+        Load and score model files and ``py:`` models in a child process of their own, so that
+        a crash, a hang or an exit inside the model becomes a :class:`ModelError`.
+    allow_unseen : bool, default=False
+        Score rows whose categorical value the model never saw (as the model treats unknown
+        values) instead of refusing them; the counts are in ``describe()["unseen_values"]``.
 
     Returns
     -------
@@ -90,10 +117,11 @@ def load_model(
     Raises
     ------
     ModelError
-        The file is missing or unreadable, the spec is not understood, or the model does not
-        fit the protocol.
+        The file is missing, unreadable or damaged, the spec is not understood, the model does
+        not fit the protocol, or its process crashed, exited or gave no answer in time.
     TrustError
-        The file would execute code (pickle) or use types (skops) that were not trusted.
+        The file would execute code (pickle) or use types (skops) that were not trusted, or its
+        SHA-256 is not the pinned one.
     PlanError
         An option has a bad value.
 
@@ -115,13 +143,10 @@ def load_model(
     'column'
     """
     opts = load_model_iv(
-        base_dir=base_dir,
-        positive=positive,
-        trust_pickle=trust_pickle,
-        trusted_types=trusted_types,
-        feature_names=feature_names,
-        batch_size=batch_size,
-        timeout=timeout,
+        base_dir=base_dir, positive=positive, positive_class=positive_class,
+        label_values=label_values, trust_pickle=trust_pickle, sha256=sha256,
+        trusted_types=trusted_types, feature_names=feature_names, batch_size=batch_size,
+        timeout=timeout, isolate=isolate, allow_unseen=allow_unseen,
     )
     if not isinstance(spec, (str, os.PathLike)):
         name = f"object:{type(spec).__name__}"
@@ -130,8 +155,20 @@ def load_model(
     if not text:
         raise ModelError(f"the model spec is empty; accepted specs: {', '.join(ACCEPTED_SPECS)}")
     lower = text.lower()
+    if opts.isolate and not lower.startswith(_OUTSIDE_OR_DATA):
+        if not lower.startswith("py:"):
+            _file_path(text, opts)  # refuse a missing file or an untrusted pickle without a child
+        return load_isolated(text, opts)
+    return load_spec(text, opts)
+
+
+def load_spec(text: str, opts: Options) -> Model:
+    """The Model of a (non-empty) spec, loaded in this process: the child's entry point too."""
+    lower = text.lower()
     if lower.startswith("py:"):
         return load_python(text, opts)
+    if lower.startswith(_OUTSIDE_OR_DATA):
+        check_pin(None, text, opts.sha256)
     if lower.startswith("cmd:"):
         return load_command(text, opts)
     if lower.startswith(("http://", "https://")):
@@ -141,27 +178,35 @@ def load_model(
     return _load_file(text, opts)
 
 
-def _load_file(text: str, opts: Options) -> Model:
+def _file_path(text: str, opts: Options) -> Path:
+    """The model file's path, once it exists; an untrusted, unpinned pickle is refused here,
+    before a byte of it is loaded."""
     path = resolve(text, opts.base)
     if not path.exists():
         raise ModelError(f"model file `{text}` not found{close_files(path)}")
     if path.is_dir():
         raise ModelError(f"model file `{text}` is a folder, not a file")
+    if path.suffix.lower() in _PICKLE_SUFFIXES and not (opts.trust_pickle or opts.sha256):
+        sha = hashlib.sha256(read_bytes(path, text)).hexdigest()
+        raise TrustError(
+            f"model file `{text}` is a pickle, and loading a pickle executes arbitrary code; "
+            "if you trust its source, pass --trust-pickle, or pin the file with "
+            f'sha256 = "{sha}" under [model] in the plan'
+        )
+    return path
+
+
+def _load_file(text: str, opts: Options) -> Model:
+    path = _file_path(text, opts)
     suffix = path.suffix.lower()
-    if suffix in _PICKLE_SUFFIXES:
-        if not opts.trust_pickle:
-            raise TrustError(
-                f"model file `{text}` is a pickle, and loading a pickle executes arbitrary code; "
-                "if you trust its source, pass --trust-pickle (or set trust_pickle = true "
-                "under [model] in the plan)"
-            )
-        data = read_bytes(path, text)
-        return load_pickle(data, text, opts)
-    if suffix == ".skops":
-        return load_skops(read_bytes(path, text), text, opts)
-    if suffix == ".onnx":
-        return load_onnx(read_bytes(path, text), text, opts)
     data = read_bytes(path, text)
+    check_pin(hashlib.sha256(data).hexdigest(), text, opts.sha256)  # before a byte is loaded
+    if suffix in _PICKLE_SUFFIXES:
+        return load_pickle(data, text, opts, trust="sha256" if opts.sha256 else "flag")
+    if suffix == ".skops":
+        return load_skops(data, text, opts)
+    if suffix == ".onnx":
+        return load_onnx(data, text, opts)
     if suffix in (".txt", ".lgb") or data[:4] == b"tree":
         if data[:4] != b"tree":
             raise ModelError(

@@ -18,14 +18,31 @@ import pandas as pd
 from probe.errors import DataError, ModelError, ProbeError
 
 from .messages import cause, close_names, first_line, plural, ticks
+from .unseen import unseen_rows
 
-__all__ = ["BatchFailure", "Model", "ScoreFn"]
+__all__ = ["BatchFailure", "Model", "ProcessFailure", "ScoreFn"]
 
 ScoreFn = Callable[[pd.DataFrame], Any]
 
 
 class BatchFailure(Exception):
     """A scoring problem the adapter itself detected; the message is the cause, one line."""
+
+
+class ProcessFailure(Exception):
+    """The model's own process crashed, exited or went silent (see :mod:`.isolated`).
+
+    ``what`` reads after the model's name ("crashed (SIGSEGV)"), ``advice`` after what it was
+    doing ("; a model must not end the process").
+    """
+
+    def __init__(self, what: str, advice: str = "") -> None:
+        super().__init__(what)
+        self.what, self.advice = what, advice
+
+    def line(self, spec: str, doing: str) -> str:
+        """The one-line message: ``model `x` <what> while <doing><advice>``."""
+        return f"model `{spec}` {self.what} while {doing}{self.advice}"
 
 
 class Model:
@@ -45,7 +62,10 @@ class Model:
     feature_names : tuple of str or None
         The input columns the model reads, in order; None passes the whole frame.
     categories : dict of str to tuple
-        For categorical inputs, the levels the model knows (empty when unknown).
+        For categorical inputs, the levels the model knows (empty when unknown). Rows holding
+        another value are counted before scoring and refused unless ``allow_unseen``.
+    isolated : bool
+        Whether the model runs in a child process of its own (:mod:`.isolated`).
     """
 
     __slots__ = (
@@ -61,6 +81,9 @@ class Model:
         "_batch_size",
         "_n_inputs",
         "_required",
+        "_allow_unseen",
+        "_unseen",
+        "_worker",
         "_frozen",
     )
 
@@ -79,6 +102,8 @@ class Model:
         batch_size: int,
         n_inputs: int | None = None,
         required: tuple[str, ...] | None = None,
+        allow_unseen: bool = False,
+        worker: Any = None,
     ) -> None:
         self._spec = spec
         self._kind = kind
@@ -92,6 +117,9 @@ class Model:
         self._batch_size = batch_size
         self._n_inputs = n_inputs
         self._required = required if required is not None else feature_names
+        self._allow_unseen = allow_unseen
+        self._unseen: dict[str, int] = {}  # the most rows with unseen values in one call
+        self._worker = worker
         self._frozen = True
 
     def __setattr__(self, name: str, value: Any) -> None:
@@ -108,6 +136,29 @@ class Model:
     feature_names = property(
         lambda self: self._feature_names, doc="The input columns in order, or None."
     )
+
+    isolated = property(lambda self: self._worker is not None,
+                        doc="Whether the model runs in a child process of its own.")
+
+    def parts(self) -> dict[str, Any]:
+        """What rebuilds this Model around another ``score_batch`` (the isolated proxy)."""
+        return {"spec": self._spec, "kind": self._kind, "sha256": self._sha256,
+                "feature_names": self._feature_names, "categories": self._categories,
+                "transform": self._transform, "probability": self._probability,
+                "details": self._details, "batch_size": self._batch_size,
+                "n_inputs": self._n_inputs, "required": self._required,
+                "allow_unseen": self._allow_unseen}
+
+    def close(self) -> None:
+        """Stop the model's child process, if it has one (it also stops with the Model)."""
+        if self._worker is not None:
+            self._worker.close()
+
+    def __enter__(self) -> "Model":
+        return self
+
+    def __exit__(self, *exc: Any) -> None:
+        self.close()
 
     @property
     def categories(self) -> dict[str, tuple]:
@@ -146,6 +197,7 @@ class Model:
                 f"model `{self._spec}` scores a pandas DataFrame, got {type(frame).__name__}"
             )
         X = self._select(frame)
+        self._check_unseen(X)
         total = len(X)
         out = np.empty(total, dtype=np.float64)
         if total == 0 and progress is not None:
@@ -166,8 +218,10 @@ class Model:
         dict
             ``spec``, ``kind``, ``sha256``, ``feature_names`` (list or None), ``score`` (how the
             raw output became a score), ``probability`` (whether the output is a probability),
-            ``batch_size``, and kind-specific keys (``trusted_types`` for skops, ``objective``
-            for LightGBM, ``classes`` and ``positive`` where known).
+            ``batch_size``, ``isolated``, ``unseen_values`` (per column, the rows scored with a
+            value the model never saw, when ``allow_unseen`` let any through), and kind-specific
+            keys (``trust`` for pickles: ``"flag"`` or ``"sha256"``; ``trusted_types`` for skops,
+            ``objective`` for LightGBM, ``classes`` and ``positive`` where known).
         """
         out: dict[str, Any] = {
             "spec": self._spec,
@@ -177,7 +231,10 @@ class Model:
             "score": self._transform,
             "probability": self._probability,
             "batch_size": self._batch_size,
+            "isolated": self.isolated,
         }
+        if self._unseen:
+            out["unseen_values"] = dict(sorted(self._unseen.items()))
         out.update({k: _jsonable(v) for k, v in self._details.items()})
         return out
 
@@ -211,11 +268,28 @@ class Model:
         by_name = {str(c): c for c in frame.columns}
         return frame.loc[:, [by_name[c] for c in cols]]
 
+    def _check_unseen(self, X: pd.DataFrame) -> None:
+        found = unseen_rows(X, self._categories)
+        if not found:
+            return
+        if not self._allow_unseen:
+            col, (n, example) = next(iter(found.items()))
+            raise DataError(
+                f"column `{col}` has {n} rows ({100 * n / len(X):.1f} %) with values the model "
+                f"`{self._spec}` never saw, e.g. {example!r}; pass --allow-unseen (allow_unseen "
+                "= true under [model]) to score them as the model treats unknown values"
+            )
+        for col, (n, _) in found.items():
+            self._unseen[col] = max(n, self._unseen.get(col, 0))
+
     def _score_rows(self, batch: pd.DataFrame, start: int, stop: int) -> np.ndarray:
         where = f"model `{self._spec}` failed on rows {start}\u2013{stop - 1}"
         try:
             raw = self._score_batch(batch)
             values = _as_scores(raw, stop - start, batch.index)
+        except ProcessFailure as exc:
+            raise ModelError(exc.line(self._spec, f"scoring rows {start}\u2013{stop - 1}")) \
+                from None
         except BatchFailure as exc:
             raise ModelError(f"{where}: {exc}") from exc
         except ProbeError as exc:

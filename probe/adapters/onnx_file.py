@@ -102,7 +102,7 @@ def load_onnx(data: bytes, text: str, opts: Options) -> Model:
         probability=True,
         details={"classes": None if classes is None else list(classes),
                  "positive": opts.positive},
-        batch_size=opts.batch_size, n_inputs=n_inputs,
+        batch_size=opts.batch_size, allow_unseen=opts.allow_unseen, n_inputs=n_inputs,
     )
 
 

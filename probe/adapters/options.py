@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+import re
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -15,25 +16,41 @@ from .messages import ticks
 
 __all__ = ["Options", "load_model_iv"]
 
+_HEX64 = re.compile(r"[0-9a-f]{64}")
+
 
 @dataclass(frozen=True)
 class Options:
-    """The validated, normalised options of one :func:`load_model` call."""
+    """The validated, normalised options of one :func:`load_model` call.
+
+    ``positive`` is the model's class that counts as positive: ``positive_class`` when given,
+    else the label's positive value; ``label_positive`` and ``label_values`` are kept for the
+    message when that value is none of the model's classes.
+    """
 
     base: Path
     positive: Any
+    positive_class_given: bool
+    label_positive: Any
+    label_values: tuple | None
     trust_pickle: bool
+    sha256: str | None
     trusted_types: tuple[str, ...]
     feature_names: tuple[str, ...] | None
     batch_size: int
     timeout: float
+    isolate: bool
+    allow_unseen: bool
 
 
-def load_model_iv(*, base_dir, positive, trust_pickle, trusted_types, feature_names,
-                  batch_size, timeout) -> Options:
+def load_model_iv(*, base_dir, positive, positive_class=None, label_values=None,
+                  trust_pickle, sha256=None, trusted_types, feature_names, batch_size, timeout,
+                  isolate=True, allow_unseen=False) -> Options:
     """Validate and normalise every option of :func:`load_model` once."""
     if isinstance(positive, np.generic):
         positive = positive.item()
+    if isinstance(positive_class, np.generic):
+        positive_class = positive_class.item()
     if isinstance(trusted_types, str) or not all(isinstance(t, str) for t in trusted_types):
         raise PlanError(f"`trusted_types` must be a list of type names, got {trusted_types!r}")
     if feature_names is not None:
@@ -53,12 +70,28 @@ def load_model_iv(*, base_dir, positive, trust_pickle, trusted_types, feature_na
     if (isinstance(timeout, bool) or not isinstance(timeout, (int, float))
             or not math.isfinite(timeout) or timeout <= 0):
         raise PlanError(f"`timeout` must be a positive number of seconds, got {timeout!r}")
+    if sha256 is not None:
+        if not isinstance(sha256, str) or not _HEX64.fullmatch(sha256.strip().lower()):
+            raise PlanError(
+                f"`sha256` must be the 64 hexadecimal digits of a SHA-256, got {sha256!r}"
+            )
+        sha256 = sha256.strip().lower()
+    for name, value in (("trust_pickle", trust_pickle), ("isolate", isolate),
+                        ("allow_unseen", allow_unseen)):
+        if not isinstance(value, (bool, np.bool_)):
+            raise PlanError(f"`{name}` must be true or false, got {value!r}")
     return Options(
         base=Path(base_dir).expanduser() if base_dir is not None else Path.cwd(),
-        positive=positive,
+        positive=positive if positive_class is None else positive_class,
+        positive_class_given=positive_class is not None,
+        label_positive=positive,
+        label_values=None if label_values is None else tuple(label_values),
         trust_pickle=bool(trust_pickle),
+        sha256=sha256,
         trusted_types=tuple(trusted_types),
         feature_names=feature_names,
         batch_size=int(batch_size),
         timeout=float(timeout),
+        isolate=bool(isolate),
+        allow_unseen=bool(allow_unseen),
     )

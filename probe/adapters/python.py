@@ -28,7 +28,7 @@ from probe.data import sha256_file
 from probe.errors import ModelError
 
 from .encoders import sklearn_categories
-from .files import close_files, read_bytes, resolve
+from .files import check_pin, close_files, read_bytes, resolve
 from .inputs import check_count, reconcile_names
 from .labels import class_index, index_from_positive, labels_equal, zero_one
 from .messages import cause, close_names, first_line
@@ -51,12 +51,14 @@ def load_python(text: str, opts: Options) -> Model:
             raise ModelError(f"module file `{module_part}` not found{close_files(path)}")
         data = read_bytes(path, module_part)
         sha = hashlib.sha256(data).hexdigest()
+        check_pin(sha, module_part, opts.sha256)  # before the module runs
         module = _import_file(path, sha, text)
     else:
         module = _import_dotted(module_part, opts.base, text)
         file = getattr(module, "__file__", None)
         if file and os.path.isfile(file):
             sha = sha256_file(file)
+        check_pin(sha, module_part, opts.sha256)
     obj: Any = module
     for part in attr.split("."):
         if not hasattr(obj, part):
@@ -156,7 +158,7 @@ def wrap_python(obj: Any, *, spec: str, kind: str, sha256: str | None, opts: Opt
     if has["predict_proba"]:
         idx = None
         if classes is not None:
-            idx = class_index(classes, opts.positive, spec)
+            idx = class_index(classes, opts.positive, spec, opts)
             label = f"class `{classes[idx]!r}`"
         else:
             label = "the last column" if opts.positive is None else f"column {opts.positive!r}"
@@ -180,7 +182,7 @@ def wrap_python(obj: Any, *, spec: str, kind: str, sha256: str | None, opts: Opt
                 raise ModelError(f"model `{spec}` has {len(classes)} classes and no "
                                  "predict_proba; probe scores binary classifiers")
             # decision_function > 0 means classes_[1]
-            sign = 1.0 if class_index(classes, opts.positive, spec) == 1 else -1.0
+            sign = 1.0 if class_index(classes, opts.positive, spec, opts) == 1 else -1.0
 
         def score(batch: pd.DataFrame) -> np.ndarray:
             d = np.asarray(obj.decision_function(inputs(batch)), dtype=np.float64)
@@ -198,7 +200,7 @@ def wrap_python(obj: Any, *, spec: str, kind: str, sha256: str | None, opts: Opt
     else:
         positive_label = None
         if classes is not None:
-            positive_label = classes[class_index(classes, opts.positive, spec)]
+            positive_label = classes[class_index(classes, opts.positive, spec, opts)]
         elif opts.positive is not None:
             positive_label = opts.positive
 
@@ -216,6 +218,7 @@ def wrap_python(obj: Any, *, spec: str, kind: str, sha256: str | None, opts: Opt
         spec=spec, kind=kind, sha256=sha256, feature_names=fnames,
         categories=sklearn_categories(obj), score_batch=score, transform=transform,
         probability=probability, details={**details, **pos_info}, batch_size=opts.batch_size,
+        allow_unseen=opts.allow_unseen,
         n_inputs=int(n_in) if (fnames is None and n_in is not None) else None,
     )
 
@@ -241,7 +244,7 @@ def _wrap_function(fn: Callable, *, spec: str, kind: str, sha256: str | None, op
         spec=spec, kind=kind, sha256=sha256, feature_names=opts.feature_names, categories={},
         score_batch=lambda batch: fn(batch.copy()),  # a copy: the caller's frame stays intact
         transform=f"scores returned by `{name}(frame)`", probability=True,
-        details=details, batch_size=opts.batch_size,
+        details=details, batch_size=opts.batch_size, allow_unseen=opts.allow_unseen,
     )
 
 

@@ -5,10 +5,11 @@ with the batch as CSV with a header on stdin, and reads one score per line from 
 ``http(s)://HOST:PORT/PATH`` POSTs ``{"records": [...]}`` and reads a JSON list of numbers or
 ``{"scores": [...]}``.
 
-These are the only kinds that honour ``timeout`` (seconds per batch): a command still running
-after ``timeout`` seconds is killed; a request gives up when the endpoint stays silent that long
+Both honour ``timeout`` (seconds per batch), as isolated models do: a command still running after
+``timeout`` seconds is killed; a request gives up when the endpoint stays silent that long
 (connecting or between reads). Either way the batch fails with a
-:class:`~probe.errors.ModelError`.
+:class:`~probe.errors.ModelError`. They run outside this process already, so they are never
+isolated again.
 """
 
 from __future__ import annotations
@@ -91,7 +92,7 @@ def load_command(text: str, opts: Options) -> Model:
         categories={}, score_batch=score,
         transform="scores printed by the command (CSV rows on stdin, one score per line)",
         probability=True, details={"argv": argv, "timeout": timeout},
-        batch_size=opts.batch_size,
+        batch_size=opts.batch_size, allow_unseen=opts.allow_unseen,
     )
 
 
@@ -129,6 +130,7 @@ def load_http(text: str, opts: Options) -> Model:
         score_batch=score,
         transform='scores from the endpoint (POST {"records": [...]} per batch)',
         probability=True, details={"timeout": timeout}, batch_size=opts.batch_size,
+        allow_unseen=opts.allow_unseen,
     )
 
 

@@ -1,0 +1,235 @@
+"""Isolation: a model file or ``py:`` model loaded and scored in a child process of its own.
+
+A native crash (a damaged LightGBM file), a hang, or an exit inside the model then cannot take
+probe down; each becomes one :class:`~probe.errors.ModelError` line:
+
+- killed by a signal: "model `x` crashed (SIGSEGV) while scoring rows 0–49999";
+- exited, with any code: "model `x` exited (code 0) while loading; a model must not end the
+  process";
+- silent past ``timeout``: the child is killed, "model `x` gave no answer within 600 s while …;
+  raise --timeout / [model] timeout if it is just slow";
+- a Python exception: its first line, as for a model in this process.
+
+The child (:mod:`.worker`) loads with the same loaders (:func:`.load.load_spec`), so the trust
+checks, hashes, feature names, categories and ``describe()`` come back to the parent, where a
+:class:`Model` is rebuilt around a ``score_batch`` that sends each batch and waits at most
+``timeout`` seconds. One child serves a Model for its life; it is killed when the Model is
+closed or collected, when this process exits, or when a wait is interrupted, and it ends by
+itself when this process dies. Its threads are bounded (``OMP_NUM_THREADS`` and friends: the
+value already set, else at most 2) and its stderr goes to a temporary file whose last line is
+quoted when the child crashes.
+
+Start-up imports only ``probe.adapters`` (not the whole library) and pandas: the bootstrap
+registers a bare ``probe`` package so that ``probe/__init__.py`` is not run in the child.
+"""
+
+from __future__ import annotations
+
+import os
+import select
+import signal
+import subprocess
+import sys
+import tempfile
+import threading
+import time
+import weakref
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from probe import errors
+
+from .model import BatchFailure, Model, ProcessFailure
+from .options import Options
+from .worker import _HEADER
+
+__all__ = ["load_isolated", "Worker"]
+
+#: The least time a child gets to start (imports), whatever ``timeout`` says.
+STARTUP_SECONDS = 60.0
+_THREAD_VARS = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS",
+                "VECLIB_MAXIMUM_THREADS", "NUMEXPR_NUM_THREADS")
+_PACKAGE = str(Path(__file__).resolve().parent.parent)
+_BOOT = ("import sys, types; p = types.ModuleType('probe'); p.__path__ = [{!r}]; "
+         "sys.modules['probe'] = p; from probe.adapters.worker import main; main()")
+_ERRORS = {"ModelError": errors.ModelError, "TrustError": errors.TrustError,
+           "PlanError": errors.PlanError, "DataError": errors.DataError}
+
+
+def load_isolated(text: str, opts: Options) -> Model:
+    """The Model of ``text``, loaded in a child process that then scores its batches."""
+    worker = Worker(opts.timeout)
+    try:
+        worker.call(None, STARTUP_SECONDS + opts.timeout)  # the child's "ready"
+        reply = worker.call(("load", text, opts, list(sys.path)), opts.timeout)
+    except ProcessFailure as exc:
+        worker.close()
+        doing = "loading" if worker.started else "starting"
+        raise errors.ModelError(exc.line(text, doing)) from None
+    if reply[0] != "ok":
+        worker.close()
+        raise _ERRORS.get(reply[1], errors.ModelError)(reply[2])
+    return Model(**reply[1], score_batch=worker.score, worker=worker)
+
+
+class Worker:
+    """One child process serving one model; every wait is bounded by ``timeout`` seconds."""
+
+    def __init__(self, timeout: float) -> None:
+        self.timeout = timeout
+        self.started = False
+        self._failure: ProcessFailure | None = None
+        self._lock = threading.Lock()  # one request at a time, whichever thread asks
+        self._stderr = tempfile.TemporaryFile()
+        env = dict(os.environ)
+        threads = str(max(1, min(2, os.cpu_count() or 1)))
+        for var in _THREAD_VARS:
+            env[var] = os.environ.get(var, threads)
+        env["PROBE_WORKER_PARENT"] = str(os.getpid())
+        # the parent-death signal follows the thread that started the child: only the main one
+        env["PROBE_WORKER_PDEATHSIG"] = str(int(
+            threading.current_thread() is threading.main_thread()))
+        self._proc = subprocess.Popen(
+            [sys.executable, "-c", _BOOT.format(_PACKAGE)], stdin=subprocess.PIPE,
+            stdout=subprocess.PIPE, stderr=self._stderr, env=env, close_fds=True)
+        self._finalizer = weakref.finalize(self, _stop, self._proc, self._stderr)
+
+    @property
+    def pid(self) -> int:
+        return self._proc.pid
+
+    def score(self, batch: pd.DataFrame) -> np.ndarray:
+        """One batch's scores; a failure of the model's own code is a :class:`BatchFailure`."""
+        reply = self.call(("score", batch), self.timeout)
+        if reply[0] == "batch":
+            raise BatchFailure(reply[1])
+        return reply[1]
+
+    def call(self, request: Any, timeout: float) -> tuple:
+        """Send ``request`` (None: send nothing) and wait for the answer, at most ``timeout`` s."""
+        with self._lock:
+            return self._call(request, timeout)
+
+    def _call(self, request: Any, timeout: float) -> tuple:
+        if self._failure is not None:
+            raise ProcessFailure(f"is no longer running (it {self._failure.what} earlier)")
+        deadline = time.monotonic() + timeout
+        try:
+            if request is not None:
+                self._send(request, deadline)
+            reply = self._receive(deadline)
+        except TimeoutError:
+            self.close()
+            self._failure = ProcessFailure(
+                f"gave no answer within {timeout:g} s",
+                "; raise --timeout / [model] timeout if it is just slow")
+            raise self._failure from None
+        except (BrokenPipeError, EOFError):
+            self._failure = self._ended()
+            raise self._failure from None
+        except BaseException:  # interrupted: the child must not outlive the wait
+            self.close()
+            raise
+        if reply == ("ready",):
+            self.started = True
+        return reply
+
+    def close(self) -> None:
+        """Kill the child and reap it (idempotent)."""
+        self._finalizer()
+
+    # -- internals ------------------------------------------------------------------------
+
+    def _send(self, message: Any, deadline: float) -> None:
+        import pickle
+
+        body = pickle.dumps(message, protocol=pickle.HIGHEST_PROTOCOL)
+        view = memoryview(_HEADER.pack(len(body)) + body)
+        fd = self._proc.stdin.fileno()
+        os.set_blocking(fd, False)
+        while view:
+            _wait(fd, deadline, write=True)
+            try:
+                view = view[os.write(fd, view):]
+            except BlockingIOError:
+                continue
+
+    def _receive(self, deadline: float) -> Any:
+        import pickle
+
+        fd = self._proc.stdout.fileno()
+        head = self._read(fd, _HEADER.size, deadline)
+        return pickle.loads(self._read(fd, _HEADER.unpack(head)[0], deadline))
+
+    @staticmethod
+    def _read(fd: int, n: int, deadline: float) -> bytes:
+        buf = bytearray()
+        while len(buf) < n:
+            _wait(fd, deadline, write=False)
+            chunk = os.read(fd, min(n - len(buf), 1 << 20))
+            if not chunk:
+                raise EOFError
+            buf += chunk
+        return bytes(buf)
+
+    def _ended(self) -> ProcessFailure:
+        """Why the child is gone: a signal or an exit code (and its last line on stderr)."""
+        try:
+            code = self._proc.wait(timeout=10)
+        except subprocess.TimeoutExpired:  # the pipe closed but the process lingers
+            self.close()
+            code = self._proc.returncode
+        last = _last_line(self._stderr)
+        self.close()
+        if code is not None and code < 0:
+            try:
+                name = signal.Signals(-code).name
+            except ValueError:
+                name = f"signal {-code}"
+            words = f" (its last words: {last!r})" if last else ""
+            return ProcessFailure(f"crashed ({name})", words)
+        return ProcessFailure(f"exited (code {code})", "; a model must not end the process")
+
+
+def _wait(fd: int, deadline: float, *, write: bool) -> None:
+    remaining = deadline - time.monotonic()
+    if remaining <= 0:
+        raise TimeoutError
+    ready = select.select([], [fd], [], remaining)[1] if write else \
+        select.select([fd], [], [], remaining)[0]
+    if not ready:
+        raise TimeoutError
+
+
+def _last_line(file: Any) -> str:
+    try:
+        file.seek(0, os.SEEK_END)
+        size = file.tell()
+        file.seek(max(0, size - 4096))
+        lines = [ln.strip() for ln in file.read().decode("utf-8", "replace").splitlines()]
+    except (OSError, ValueError):
+        return ""
+    lines = [ln for ln in lines if ln]
+    return lines[-1][:200] if lines else ""
+
+
+def _stop(proc: subprocess.Popen, stderr: Any) -> None:
+    """Kill and reap the child, close its pipes and stderr file (a finalizer: also at exit)."""
+    if proc.poll() is None:
+        try:
+            proc.kill()
+        except OSError:
+            pass
+    try:
+        proc.wait(timeout=10)
+    except subprocess.TimeoutExpired:
+        pass
+    for f in (proc.stdin, proc.stdout):
+        try:
+            f.close()
+        except OSError:
+            pass
+    stderr.close()
