@@ -24,18 +24,29 @@ from probe.cli import EXIT_BAD_INPUT, main
 from probe.errors import ModelError
 
 
-def _children() -> list[int]:
-    """Live (not zombie) processes whose parent is this one, read from /proc (no psutil here)."""
-    me, found = os.getpid(), []
+def _servers() -> set[int]:
+    """multiprocessing's long-lived helpers: the forkserver models are forked from, and its
+    resource tracker. They live as long as this process, by design."""
+    from multiprocessing import forkserver, resource_tracker
+
+    pids = (forkserver._forkserver._forkserver_pid, resource_tracker._resource_tracker._pid)
+    return {p for p in pids if p}
+
+
+def _children() -> list[tuple[int, str]]:
+    """Processes this one started, directly or through the forkserver, read from /proc (no
+    psutil here), with their state (Z: a zombie)."""
+    servers = _servers()
+    parents, found = {os.getpid(), *servers}, []
     for entry in Path("/proc").iterdir():
-        if not entry.name.isdigit():
+        if not entry.name.isdigit() or int(entry.name) in servers:
             continue
         try:
             stat = (entry / "stat").read_text()
         except OSError:
             continue
         state, ppid = stat.rsplit(")", 1)[1].split()[:2]
-        if int(ppid) == me:
+        if int(ppid) in parents:
             found.append((int(entry.name), state))
     return found
 

@@ -1,9 +1,8 @@
 """The child side of an isolated model (see :mod:`.isolated`): load it, then score batches.
 
-Started by the parent as ``python -c <bootstrap>`` (or ``python -m probe.adapters.worker``).
-The protocol runs over the child's original stdin and stdout, which are moved to fresh
-descriptors first; descriptor 1 and ``sys.stdout`` then point at stderr, so a model that prints
-cannot corrupt an answer. Each message is a frame: 8 bytes of big-endian length, then a pickle
+Forked by the parent's forkserver and entered at :func:`serve`, handed one end of a socket pair.
+Descriptors 1 and 2 and ``sys.stdout`` then point at a log file the parent reads when the child
+dies, so a model that prints cannot corrupt an answer. Each message is a frame: 8 bytes of big-endian length, then a pickle
 (both ends are probe, so a pickle is safe here).
 
 Requests and answers:
@@ -14,8 +13,8 @@ Requests and answers:
 - ``("score", batch)`` → ``("ok", float64 array)`` or ``("batch", cause)``, the cause worded as
   :class:`~probe.adapters.model.Model` words an in-process failure.
 
-The child ignores SIGINT (the parent decides), and ends when its parent does (Linux's parent-
-death signal, and a thread that watches the parent's pid).
+The child ignores SIGINT (the parent decides), and ends when its parent does (a thread that
+watches the parent's end of the pipe, or the parent's pid).
 """
 
 from __future__ import annotations
@@ -26,10 +25,9 @@ import signal
 import struct
 import sys
 import threading
-import time
 from typing import Any
 
-__all__ = ["main", "read_frame", "write_frame"]
+__all__ = ["serve", "read_frame", "write_frame"]
 
 _HEADER = struct.Struct(">Q")
 
@@ -61,20 +59,21 @@ def _read_exactly(fd: int, n: int) -> bytes | None:
     return bytes(buf)
 
 
-def _leave_with_parent(parent: int) -> None:
-    if sys.platform.startswith("linux") and os.environ.get("PROBE_WORKER_PDEATHSIG") == "1":
-        try:
-            import ctypes
+def _leave_with_parent() -> None:
+    """End this process as soon as probe's process is gone (even as an unreaped zombie).
 
-            ctypes.CDLL(None, use_errno=True).prctl(1, signal.SIGKILL)  # PR_SET_PDEATHSIG
-        except (OSError, AttributeError):
-            pass
-    if os.getppid() != parent:
-        os._exit(1)
+    The sentinel is a pipe only probe's process writes to; it reads as closed once that process
+    has ended. (Polling the pid would not do: a killed parent that is not yet reaped still has
+    one, and a child kept alive by that would keep the forkserver, and whatever waits on its
+    inherited stdout, alive too.)
+    """
+    import multiprocessing
+    import select
+
+    sentinel = multiprocessing.parent_process().sentinel
 
     def watch() -> None:
-        while os.getppid() == parent:
-            time.sleep(0.5)
+        select.select([sentinel], [], [])
         os._exit(1)
 
     threading.Thread(target=watch, name="probe-parent-watch", daemon=True).start()
@@ -110,18 +109,7 @@ def _answer(op: str, request: tuple, state: dict) -> tuple:
         return ("batch", cause(exc))
 
 
-def main() -> None:
-    """Serve one model until the parent closes the pipe or goes away."""
-    signal.signal(signal.SIGINT, signal.SIG_IGN)
-    proto_in, proto_out = os.dup(0), os.dup(1)
-    null = os.open(os.devnull, os.O_RDONLY)
-    os.dup2(null, 0)
-    os.dup2(2, 1)  # whatever the model prints goes to stderr, never into the protocol
-    os.close(null)
-    sys.stdout = sys.stderr
-    _leave_with_parent(int(os.environ.get("PROBE_WORKER_PARENT", os.getppid())))
-    import pandas  # noqa: F401 - the batches are DataFrames; import before saying ready
-
+def _loop(proto_in: int, proto_out: int) -> None:
     write_frame(proto_out, ("ready",))
     state: dict = {}
     while True:
@@ -131,5 +119,24 @@ def main() -> None:
         write_frame(proto_out, _answer(request[0], request, state))
 
 
-if __name__ == "__main__":
-    main()
+def serve(conn: Any, log: str, threads: int) -> None:
+    """The forked child's entry: the protocol on ``conn``; prints and errors go to ``log``."""
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    out = os.open(log, os.O_WRONLY | os.O_APPEND)
+    null = os.open(os.devnull, os.O_RDONLY)
+    os.dup2(null, 0)
+    os.dup2(out, 1)
+    os.dup2(out, 2)
+    os.close(null)
+    os.close(out)
+    sys.stdout = sys.stderr
+    try:
+        from threadpoolctl import threadpool_limits
+
+        threadpool_limits(threads)  # the libraries the server preloaded read their bound early
+    except ImportError:  # pragma: no cover - ships with scikit-learn
+        pass
+    _leave_with_parent()
+    fd = conn.fileno()
+    os.set_blocking(fd, True)
+    _loop(fd, fd)
