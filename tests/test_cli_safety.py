@@ -389,5 +389,5 @@ def test_readme_and_contracts_document_the_new_surface():
     for needle in ("PROBE_CACHE_DIR", "~/.cache/probe", "[proxies]", "share", "probe render",
                    "--policy", "`3`"):
         assert needle in readme, needle
-    for needle in ("| 3 |", "| 143 |", "probe render", "--policy", "relative to the plan file"):
+    for needle in ("| 3 |", "| 143 |", "probe render", "--policy", "**The path rule.**"):
         assert needle in contracts, needle
