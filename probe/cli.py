@@ -176,10 +176,10 @@ def _plan_dict(args) -> dict:
         data["protected"] = protected
     if args.intersection:
         data["intersections"] = [_list(i) for i in args.intersection]
-    if not protected and args.command != "slices" and args.command != "compare":
-        if args.command != "groups" or not args.intersection:
-            raise ProbeError(f"probe {args.command}: --protected names the attribute(s) to "
-                             f"{_VERB[args.command]} (e.g. --protected sex,age_band); none given")
+    # groups, flips and proxies do nothing without an attribute (groups: or an intersection)
+    if not protected and args.command in _VERB and not (args.command == "groups" and args.intersection):
+        raise ProbeError(f"probe {args.command}: --protected names the attribute(s) to "
+                         f"{_VERB[args.command]} (e.g. --protected sex,age_band); none given")
     raw: dict = {"name": args.command, "data": data}
     if getattr(args, "model", None):
         data.update(flag_values(args, DataOptions))
