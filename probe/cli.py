@@ -2,7 +2,9 @@
 
 ``main(argv)`` returns the exit code (contract): 0 ran and the policy passed (or there was no policy),
 1 ran and the policy failed, 2 bad usage or bad input (one line on stderr; ``--debug`` shows the
-traceback). No computation happens here.
+traceback), 3 an internal error (an exception that is not a :class:`ProbeError`: a bug in probe),
+128 + N stopped by signal N (130 SIGINT, 143 SIGTERM). Every flag, the plan, the policy file and
+the outputs are checked before any data is read or model loaded. No computation happens here.
 """
 
 from __future__ import annotations
@@ -11,17 +13,24 @@ import argparse
 import shlex
 import sys
 import traceback
-from datetime import datetime
 from pathlib import Path
 from typing import Sequence
 
-from .errors import ProbeError
+from .cli_signals import Terminated, terminating_on_signals
+from .errors import DataError, ProbeError
 
-__all__ = ["main", "EXIT_OK", "EXIT_POLICY_FAILED", "EXIT_BAD_INPUT"]
+__all__ = ["main", "EXIT_OK", "EXIT_POLICY_FAILED", "EXIT_BAD_INPUT", "EXIT_INTERNAL",
+           "EXIT_INTERRUPTED"]
 
 EXIT_OK = 0
 EXIT_POLICY_FAILED = 1
 EXIT_BAD_INPUT = 2
+EXIT_INTERNAL = 3
+EXIT_INTERRUPTED = 130
+
+_EXIT_CODES = ("Exit codes: 0 ran and the policy passed (or there is none), 1 the policy failed, "
+               "2 bad usage or input, 3 internal error (a bug: re-run with --debug and report it), "
+               "130/143 interrupted/terminated.")
 
 
 class _Parser(argparse.ArgumentParser):
@@ -81,12 +90,22 @@ def _with_person(plan, args):
 
 
 def _output(p: argparse.ArgumentParser) -> None:
-    o = p.add_argument_group("output")
-    o.add_argument("--seed", type=int, help="random seed, written into the report (the plan's, else 0)")
+    o = p.add_argument_group("policy and output")
+    o.add_argument("--policy", metavar="FILE",
+                   help="judge the run against the rules of FILE's [policy] table (replacing the "
+                        "plan's) and exit 1 when they fail")
+    o.add_argument("--seed", type=int, help="random seed 0 to 2**32-1, written into the report "
+                                            "(the plan's, else 0)")
     o.add_argument("--confidence-level", type=float,
-                   help="for every interval (the plan's, else 0.95)")
-    o.add_argument("--out", metavar="DIR", help="report folder (default reports/<name>-<time>/)")
+                   help="for every interval, in [0.5, 1) (the plan's, else 0.95)")
+    o.add_argument("--out", metavar="DIR",
+                   help="report folder, replaced as a whole; relative to the working directory "
+                        "(run/demo default: the plan's [report] out, else reports/<name>-<time>/)")
     o.add_argument("--json", metavar="FILE", help="also write the report JSON to FILE")
+    _quiet_debug(o)
+
+
+def _quiet_debug(o) -> None:
     o.add_argument("--quiet", action="store_true", help="print only the verdict line")
     o.add_argument("--debug", action="store_true", help="show tracebacks")
 
@@ -99,8 +118,7 @@ def build_parser() -> argparse.ArgumentParser:
     parser = _Parser(
         prog="probe",
         description="Test a trained binary classifier before release.",
-        epilog="Exit codes: 0 ran and the policy passed (or there is none), 1 the policy failed, "
-               "2 bad usage or input. probe is a statistical screen, not a legal finding; the "
+        epilog=_EXIT_CODES + " probe is a statistical screen, not a legal finding; the "
                "four-fifths rule is a rule of thumb; defer to counsel, local law and licensed practice.",
     )
     parser.add_argument("--version", action="version", version=f"probe {__version__}")
@@ -117,7 +135,8 @@ def build_parser() -> argparse.ArgumentParser:
     _output(p)
 
     p = sub.add_parser("run", help="everything a plan file asks for, then the verdict")
-    p.add_argument("plan", metavar="PLAN.toml")
+    p.add_argument("plan", metavar="PLAN.toml",
+                   help="the plan file; its relative paths resolve against its own folder")
     add_flags(p.add_argument_group("policy"), PolicyOptions)
     _person(p)
     _output(p)
@@ -141,7 +160,30 @@ def build_parser() -> argparse.ArgumentParser:
     _common(p)
     add_flags(p.add_argument_group("comparison"), CompareOptions)
     add_flags(p.add_argument_group("worse-slice search"), SliceOptions, skip=("metric",))
+
+    p = sub.add_parser("render", help="write a saved report.json in other formats, without re-running")
+    p.add_argument("report", metavar="REPORT.json", help="a report.json written by probe")
+    p.add_argument("--format", default="html,md,junit", metavar="F[,F]",
+                   help="formats to write: json, html, md, junit (html,md,junit)")
+    p.add_argument("--out", metavar="DIR",
+                   help="folder to write the files into (default: the folder holding REPORT.json)")
+    _quiet_debug(p)
     return parser
+
+
+_VERB = {"groups": "compare", "flips": "flip", "proxies": "find proxies for"}
+
+
+def _check_flags(args) -> None:
+    """Every option flag given, checked by its option's rule and blamed on the flag as typed."""
+    from .options import SECTIONS, check_flags
+    from .plan import check_top_level
+
+    for cls in SECTIONS.values():
+        check_flags(args, cls)
+    for key in ("seed", "confidence_level"):
+        if getattr(args, key, None) is not None:
+            check_top_level(key, getattr(args, key), "--" + key.replace("_", "-"))
 
 
 def _plan_dict(args) -> dict:
@@ -154,10 +196,15 @@ def _plan_dict(args) -> dict:
         data["label"] = args.label
     if getattr(args, "positive", None) is not None:
         data["positive"] = args.positive
-    if args.protected:
-        data["protected"] = _list(args.protected)
+    protected = _list(args.protected)
+    if protected:
+        data["protected"] = protected
     if args.intersection:
         data["intersections"] = [_list(i) for i in args.intersection]
+    # groups, flips and proxies do nothing without an attribute (groups: or an intersection)
+    if not protected and args.command in _VERB and not (args.command == "groups" and args.intersection):
+        raise ProbeError(f"probe {args.command}: --protected names the attribute(s) to "
+                         f"{_VERB[args.command]} (e.g. --protected sex,age_band); none given")
     raw: dict = {"name": args.command, "data": data}
     if getattr(args, "model", None):
         data.update(flag_values(args, DataOptions))
@@ -165,44 +212,28 @@ def _plan_dict(args) -> dict:
     if args.command == "slices":
         raw["slices"] = flag_values(args, SliceOptions)
     elif args.command == "flips":
-        if not args.protected:
-            raise ProbeError("probe flips: --protected names the attribute to flip")
-        raw["flips"] = {"attributes": _list(args.protected), **flag_values(args, FlipOptions)}
+        raw["flips"] = {"attributes": protected, **flag_values(args, FlipOptions)}
     elif args.command == "proxies":
-        if not args.protected:
-            raise ProbeError("probe proxies: --protected names the attribute(s)")
-        raw["proxies"] = {"attributes": _list(args.protected), **flag_values(args, ProxyOptions)}
+        raw["proxies"] = {"attributes": protected, **flag_values(args, ProxyOptions)}
     elif args.command == "compare":
         raw["compare"] = flag_values(args, CompareOptions)
         raw["slices"] = flag_values(args, SliceOptions)
     return raw
 
 
-def _out_dir(args, plan) -> Path | None:
-    if args.out:
-        return Path(args.out)
-    if args.command in ("run", "demo"):
-        if plan.report.out:
-            return plan.resolve(plan.report.out)
-        stamp = datetime.now().strftime("%Y%m%d-%H%M%S")
-        return Path("reports") / f"{plan.name}-{stamp}"
-    return None
+def _plan(args, console):
+    """The validated plan of ``run``, ``demo`` or an analysis command, with the flags applied."""
+    from dataclasses import replace
 
+    from .cli_paths import Outputs
+    from .plan import load_plan, load_policy, plan_from_dict
 
-def _execute(args, console) -> int:
-    from . import pipeline
-    from .plan import load_plan, plan_from_dict
-    from .report import terminal
-    from .report.files import write_report
-    from .report.json import to_json
-
+    policy = load_policy(args.policy) if args.policy else None
     if args.command == "demo":
-        from .scenarios import SCENARIOS, build_scenario
+        from .scenarios import build_scenario
 
-        if args.list:
-            for name in SCENARIOS:
-                console.print(name)
-            return EXIT_OK
+        # explicit outputs are checked before the scenario is built (a first build trains models)
+        Outputs(Path(args.out) if args.out else None, Path(args.json) if args.json else None).check()
         if not args.quiet:
             console.print(f"building scenario [bold]{args.scenario}[/] (cached after the first run) …")
         built = build_scenario(args.scenario, force=args.rebuild)
@@ -210,57 +241,123 @@ def _execute(args, console) -> int:
             name=f"demo-{args.scenario}")
     elif args.command == "run":
         plan = _with_person(load_plan(args.plan), args)
-        if args.policy__fail_on_inconclusive:
-            from dataclasses import replace
-
-            plan = plan.with_overrides(policy=replace(plan.policy, fail_on_inconclusive=True))
     else:
         plan = plan_from_dict(_plan_dict(args))
+    if policy is not None:
+        plan = plan.with_overrides(policy=policy)
+    if getattr(args, "policy__fail_on_inconclusive", None):
+        plan = plan.with_overrides(policy=replace(plan.policy, fail_on_inconclusive=True))
+    # flags win over the plan; already checked by their own rules (named as typed)
     overrides = {k: v for k, v in (("seed", args.seed), ("confidence_level", args.confidence_level))
                  if v is not None}
-    if overrides:  # flags win over the plan; validated like the plan's own values
-        raw = {k: v for k, v in plan.to_dict().items() if v is not None}
-        plan = plan_from_dict({**raw, **overrides}, base_dir=plan.base_dir, sha256=plan.sha256)
+    return plan.with_overrides(**overrides) if overrides else plan
+
+
+def _execute(args, console) -> int:
+    from . import pipeline
+    from .cli_paths import report_outputs
+    from .report import terminal
+    from .report.files import write_file, write_report
+    from .report.json import to_json
+
+    _check_flags(args)
+    if args.command == "render":
+        return _render(args, console)
+    if args.command == "demo" and args.list:
+        from .scenarios import SCENARIOS
+
+        for name in SCENARIOS:
+            console.print(name)
+        return EXIT_OK
+    plan = _plan(args, console)
+    outputs = report_outputs(args, plan)
+    outputs.check()  # before any data is read or model loaded
 
     argv = sys.argv[1:] if args.argv is None else args.argv
     command = "probe " + " ".join(shlex.quote(a) for a in argv)
     with terminal.progress(console, enabled=not args.quiet) as progress:
         report = pipeline.run_plan(plan, command=command, progress=progress)
 
-    out = _out_dir(args, plan)
-    written = {}
     text = to_json(report)
-    if out is not None:
-        written = write_report(report, out, formats=plan.report.formats, json_text=text)
-    if args.json:
-        written["json-copy"] = write_report(report, Path(args.json).parent, formats=("json",),
-                                            json_text=text, names={"json": Path(args.json).name})["json"]
+    written = {}
+    if outputs.folder is not None:
+        written = write_report(report, outputs.folder, formats=plan.report.formats, json_text=text)
+    if outputs.json_file is not None:
+        written["json-copy"] = write_file(outputs.json_file, text)
     terminal.render(report, console, quiet=args.quiet, written=written)
-    if args.command == "demo" and not args.strict:
+    if args.command == "demo" and not (args.strict or args.policy):
         return EXIT_OK
     return EXIT_POLICY_FAILED if report["verdict"]["passed"] is False else EXIT_OK
 
 
+def _render(args, console) -> int:
+    """``probe render``: the saved report's dict through the renderers, each file written atomically."""
+    from rich.text import Text
+
+    from .cli_paths import render_targets
+    from .options import FORMATS, ReportOptions, check_option, option_fields
+    from .report.files import render_files, write_file
+    from .report.json import read_report, to_json
+
+    formats = tuple(_list(args.format))
+    if not formats:
+        raise ProbeError(f"--format is empty; list some of {', '.join(FORMATS)}")
+    check_option(next(f for f in option_fields(ReportOptions) if f.name == "formats"), formats,
+                 "--format")
+    source = Path(args.report)
+    report = read_report(source)
+    targets = render_targets(source, args.out, formats)
+    try:
+        texts = render_files(report, formats, json_text=to_json(report))
+    except (KeyError, TypeError, ValueError, AttributeError, IndexError) as exc:
+        raise DataError(f"`{source}` is not a complete report the renderers can read "
+                        f"({type(exc).__name__}: {exc}); re-run the analysis") from None
+    written = [write_file(targets[fmt], text) for fmt, text in texts.items()]
+    if not args.quiet:
+        console.print(Text("report: " + ", ".join(str(p) for p in written)))
+    return EXIT_OK
+
+
+def _internal_error(exc: BaseException) -> str:
+    first = str(exc).strip().splitlines()[0] if str(exc).strip() else ""
+    what = f"{type(exc).__name__}: {first}" if first else type(exc).__name__
+    return f"error: internal error ({what}); re-run with --debug and report it"
+
+
 def main(argv: Sequence[str] | None = None, *, console=None) -> int:
-    """Run the command line; return the exit code."""
+    """Run the command line; return the exit code.
+
+    SIGINT, SIGTERM and SIGHUP unwind the run (temporary files are removed) and give ``128 + N``;
+    a ``ProbeError`` gives one ``error:`` line and 2; any other exception is a bug: one line and 3.
+    """
     from rich.console import Console
 
     console = console or Console(highlight=False)
     err = Console(stderr=True, highlight=False, soft_wrap=True)
     debug = "--debug" in (argv if argv is not None else sys.argv[1:])
     try:
-        parser = build_parser()
-        args = parser.parse_args(argv)
-        args.argv = None if argv is None else list(argv)
-        if args.command is None:
-            parser.print_help(console.file)
-            return EXIT_BAD_INPUT
-        return _execute(args, console)
+        with terminating_on_signals():
+            parser = build_parser()
+            args = parser.parse_args(argv)
+            args.argv = None if argv is None else list(argv)
+            if args.command is None:
+                parser.print_help(console.file)
+                return EXIT_BAD_INPUT
+            return _execute(args, console)
     except ProbeError as exc:
         if debug:
             traceback.print_exc()
         err.print(f"error: {exc}", markup=False)
         return EXIT_BAD_INPUT
+    except Terminated as exc:
+        err.print("interrupted" if exc.exit_code == EXIT_INTERRUPTED else f"terminated ({exc})",
+                  markup=False)
+        return exc.exit_code
     except KeyboardInterrupt:
         err.print("interrupted", markup=False)
-        return 130
+        return EXIT_INTERRUPTED
+    except Exception as exc:  # a bug in probe: one line, the traceback only when asked
+        if debug:
+            traceback.print_exc()
+        err.print(_internal_error(exc), markup=False)
+        return EXIT_INTERNAL

@@ -23,7 +23,7 @@ from .metrics import METRIC_NAMES
 
 __all__ = ["DataOptions", "ModelOptions", "SliceOptions", "FlipOptions", "ProxyOptions",
            "CompareOptions", "PolicyOptions", "ReportOptions", "MODES", "FORMATS", "INTERVALS",
-           "check_option", "coerce_option", "add_flags", "flag_values", "option_fields"]
+           "check_option", "coerce_option", "add_flags", "check_flags", "flag_values", "option_fields"]
 
 MODES = ("direct", "transport", "twins")
 FORMATS = ("json", "html", "md", "junit")
@@ -62,6 +62,7 @@ def check_option(f, value: Any, name: str) -> None:
     meta = f.metadata
     if value is None:
         return
+    shown = name if name.startswith("-") else f"`{name}`"  # a flag is named as typed: --threshold
     choices = meta.get("choices")
     if choices is not None:
         items = value if isinstance(value, tuple) else (value,)
@@ -71,16 +72,16 @@ def check_option(f, value: Any, name: str) -> None:
 
                 hint = close_names(item, choices) if isinstance(item, str) else ""
                 if isinstance(value, tuple):  # `flips.modes` has unknown mode 'direkt'
-                    kind = name.rsplit(".", 1)[-1].removesuffix("s")
-                    raise PlanError(f"`{name}` has unknown {kind} {item!r}; expected "
+                    kind = f.name.removesuffix("s")
+                    raise PlanError(f"{shown} has unknown {kind} {item!r}; expected "
                                     f"{', '.join(choices)}{hint}")
-                raise PlanError(f"`{name}` must be one of {', '.join(choices)}, got {item!r}{hint}")
+                raise PlanError(f"{shown} must be one of {', '.join(choices)}, got {item!r}{hint}")
     lo, hi = meta.get("lo"), meta.get("hi")
     if (lo is not None or hi is not None) and isinstance(value, (int, float)):
         if isinstance(value, float) and not math.isfinite(value):
-            raise PlanError(f"`{name}` must be a finite number, got {value!r}")
+            raise PlanError(f"{shown} must be a finite number, got {value!r}")
         if (lo is not None and value < lo) or (hi is not None and value > hi):
-            raise PlanError(f"`{name}` must {_range_text(lo, hi)}, got {value!r}")
+            raise PlanError(f"{shown} must {_range_text(lo, hi)}, got {value!r}")
 
 
 def coerce_option(f, value: Any, name: str) -> Any:
@@ -300,8 +301,13 @@ class ReportOptions(_Checked):
     """``[report]``: where and in which formats the report is written."""
 
     SECTION = "report"
-    out: str | None = opt(None, cli=False, help="report folder")
+    out: str | None = opt(None, cli=False, help="report folder (relative to the plan file's folder)")
     formats: tuple[str, ...] = opt(FORMATS, choices=FORMATS, cli=False, help="files to write")
+
+    def __post_init__(self):
+        super().__post_init__()
+        if not self.formats:
+            raise PlanError(f"`report.formats` is empty; list some of {', '.join(FORMATS)}")
 
 
 SECTIONS = {cls.SECTION: cls for cls in (DataOptions, ModelOptions, SliceOptions, FlipOptions,
@@ -350,6 +356,14 @@ def add_flags(group, cls, *, skip: tuple[str, ...] = ()) -> None:
 
 def _comma_list(text: str) -> list[str]:
     return [t.strip() for t in text.split(",") if t.strip()]
+
+
+def check_flags(args, cls) -> None:
+    """Check the flags of ``cls`` that were given, each blamed on the flag as typed (``--top``)."""
+    for f in fields(cls):
+        value = getattr(args, f"{cls.SECTION}__{f.name}", None)
+        if value is not None:
+            check_option(f, tuple(value) if isinstance(value, list) else value, _flag(f))
 
 
 def flag_values(args, cls) -> dict:

@@ -3,7 +3,8 @@
 Every key has a default except ``data.path``, ``data.label`` and ``model.spec`` (a plan that only
 runs flips or proxies needs no label; one that only runs proxies needs no model). An unknown key is an
 error that names it and suggests the close key: a typo must not silently change a release decision.
-Relative paths are relative to the plan file. The sections present decide what ``probe run`` does:
+Every relative path in a plan file (``data.path``, a model file, ``report.out``) is relative to the
+plan file's folder (flags' paths: to the working directory). The sections present decide what ``probe run`` does:
 groups always (when protected attributes are given), slices / flips / proxies / compare when their
 section is present, the policy when ``[policy]`` has rules.
 """
@@ -11,6 +12,7 @@ section is present, the policy when ``[policy]`` has rules.
 from __future__ import annotations
 
 import hashlib
+import re
 import sys
 from dataclasses import dataclass, field, replace
 from pathlib import Path
@@ -19,15 +21,15 @@ from typing import Any
 from .data import close_names
 from .errors import PlanError, TrustError
 from .options import (SECTIONS, CompareOptions, DataOptions, FlipOptions, ModelOptions,
-                      PolicyOptions, ProxyOptions, ReportOptions, SliceOptions, coerce_option,
-                      option_fields)
+                      PolicyOptions, ProxyOptions, ReportOptions, SliceOptions, check_option,
+                      coerce_option, option_fields)
 
 if sys.version_info >= (3, 11):
     import tomllib
 else:  # pragma: no cover - exercised on Python 3.10 only
     import tomli as tomllib
 
-__all__ = ["Plan", "load_plan", "plan_from_dict"]
+__all__ = ["Plan", "load_plan", "load_policy", "plan_from_dict", "check_top_level"]
 
 
 @dataclass(frozen=True)
@@ -44,7 +46,8 @@ class Plan:
     seed : int
     confidence_level : float
     name : str
-        Used in the default report folder name.
+        Used in the default report folder name, so a plain file-name fragment (letters, digits,
+        ``-``, ``_``, ``.``; no leading dot, no ``..``, at most 80 characters).
     base_dir : Path
         Where relative paths resolve (the plan file's folder, or the working directory).
     source : dict
@@ -101,6 +104,8 @@ class Plan:
 
 
 _TOP_LEVEL = {"name": "str", "seed": "int", "confidence_level": "float"}
+_SEED_MAX = 2**32 - 1
+_NAME = re.compile(r"[A-Za-z0-9_-][A-Za-z0-9._-]{0,79}")
 
 
 def _fail(where: str, message: str) -> PlanError:
@@ -129,10 +134,28 @@ def _section(name: str, raw: Any, where: str):
 
 
 class _Top:
-    """The plan's top-level keys, as fields for :func:`coerce_option`."""
+    """The plan's top-level keys, as fields for :func:`coerce_option` and :func:`check_option`."""
 
     def __init__(self, name, type_):
-        self.name, self.type, self.metadata = name, type_, {}
+        self.name, self.type = name, type_
+        self.metadata = {"lo": 0, "hi": _SEED_MAX} if name == "seed" else {}
+
+
+def check_top_level(key: str, value: Any, name: str) -> Any:
+    """Check and normalise the top-level ``key`` (``name``, ``seed``, ``confidence_level``).
+
+    ``name`` is how the message names it: the plan key, or the flag the user typed (``--seed``).
+    """
+    field_ = _Top(key, _TOP_LEVEL[key])
+    value = coerce_option(field_, value, name)
+    check_option(field_, value, name)
+    shown = name if name.startswith("-") else f"`{name}`"
+    if key == "confidence_level" and not 0.5 <= value < 1.0:
+        raise PlanError(f"{shown} must lie in [0.5, 1), got {value}")
+    if key == "name" and (not _NAME.fullmatch(value) or ".." in value):
+        raise PlanError(f"{shown} must be a plain file-name fragment (letters, digits, `-`, `_`, `.`; "
+                        f"no leading dot, no `..`, at most 80 characters), got {value!r}")
+    return value
 
 
 def plan_from_dict(raw: dict, *, base_dir: str | Path | None = None, where: str = "plan",
@@ -154,10 +177,10 @@ def plan_from_dict(raw: dict, *, base_dir: str | Path | None = None, where: str 
     if needs_model and "model" not in raw:
         raise _fail(where, "the plan needs a [model] table with `spec`")
     kwargs: dict[str, Any] = {}
-    for key, typ in _TOP_LEVEL.items():
+    for key in _TOP_LEVEL:
         if key in raw:
             try:
-                kwargs[key] = coerce_option(_Top(key, typ), raw[key], key)
+                kwargs[key] = check_top_level(key, raw[key], key)
             except PlanError as exc:
                 raise _fail(where, str(exc)) from None
     for name in SECTIONS:
@@ -167,22 +190,23 @@ def plan_from_dict(raw: dict, *, base_dir: str | Path | None = None, where: str 
     needs_label = bool({"slices", "compare"} & set(raw)) or not ({"flips", "proxies"} & set(raw))
     if needs_label and not kwargs["data"].label:
         raise _fail(where, "[data] needs `label`")
-    plan = Plan(base_dir=Path(base_dir) if base_dir is not None else Path.cwd(), sha256=sha256, **kwargs)
-    if not 0.5 <= plan.confidence_level < 1.0:
-        raise _fail(where, f"`confidence_level` must lie in [0.5, 1), got {plan.confidence_level}")
-    return plan
+    return Plan(base_dir=Path(base_dir) if base_dir is not None else Path.cwd(), sha256=sha256, **kwargs)
+
+
+def _read_toml(path: Path, what: str) -> tuple[dict, bytes]:
+    if not path.is_file():
+        raise PlanError(f"{what} `{path}` not found")
+    content = path.read_bytes()
+    try:
+        return tomllib.loads(content.decode("utf-8")), content
+    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
+        raise PlanError(f"{what} `{path}` is not valid TOML: {exc}") from None
 
 
 def load_plan(path: str | Path) -> Plan:
     """Read and validate a plan TOML file; relative paths in it resolve against its folder."""
     path = Path(path)
-    if not path.is_file():
-        raise PlanError(f"plan file `{path}` not found")
-    content = path.read_bytes()
-    try:
-        raw = tomllib.loads(content.decode("utf-8"))
-    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
-        raise PlanError(f"plan file `{path}` is not valid TOML: {exc}") from None
+    raw, content = _read_toml(path, "plan file")
     plan = plan_from_dict(raw, base_dir=path.resolve().parent, where=f"plan `{path}`",
                           sha256=hashlib.sha256(content).hexdigest())
     if plan.model is not None and plan.model.trust_pickle:
@@ -202,3 +226,22 @@ def _file_grants_trust(plan: Plan, path: Path) -> TrustError:
         f"plan `{path}`: `trust_pickle = true` under [model] cannot come from a plan file; remove "
         f"it and pass --trust-pickle, or pin the model file with sha256 = {pin} under [model]"
     )
+
+
+def load_policy(path: str | Path) -> PolicyOptions:
+    """Read a policy file: a TOML file holding one ``[policy]`` table, checked like a plan's.
+
+    Raises
+    ------
+    PlanError
+        Not found, not TOML, no ``[policy]`` table, another top-level key, or a bad rule (named).
+    """
+    path = Path(path)
+    raw, _ = _read_toml(path, "policy file")
+    where = f"policy file `{path}`"
+    for key in raw:
+        if key != "policy":
+            raise _fail(where, f"unknown key `{key}`; a policy file holds one [policy] table")
+    if "policy" not in raw:
+        raise _fail(where, "no [policy] table")
+    return _section("policy", raw["policy"], where)

@@ -87,12 +87,15 @@ def test_groups_command_renders_on_a_narrow_plain_console(tmp_path, capsys):
 
 
 @pytest.mark.parametrize("argv, needle", [
-    (["groups", "--model", "column:score", "--data", "MISSING.csv", "--label", "y"], "not found"),
-    (["groups", "--model", "column:score", "--data", "{data}", "--label", "yy"],
+    (["groups", "--model", "column:score", "--data", "MISSING.csv", "--label", "y",
+          "--protected", "group"], "not found"),
+    (["groups", "--model", "column:score", "--data", "{data}", "--label", "yy", "--protected", "group"],
      "label column `yy` is not in"),
-    (["groups", "--model", "column:scor", "--data", "{data}", "--label", "y"], "scor"),
-    (["groups", "--model", "column:score", "--data", "{data}", "--label", "income"], "not binary"),
-    (["groups", "--model", "column:score", "--data", "{data}", "--label", "y", "--positive", "7"],
+    (["groups", "--model", "column:scor", "--data", "{data}", "--label", "y", "--protected", "group"], "scor"),
+    (["groups", "--model", "column:score", "--data", "{data}", "--label", "income", "--protected", "group"],
+         "not binary"),
+    (["groups", "--model", "column:score", "--data", "{data}", "--label", "y", "--positive", "7",
+          "--protected", "group"],
      "does not occur"),
     (["groups", "--data", "{data}"], "required"),
     (["frobnicate"], "invalid choice"),

@@ -26,7 +26,7 @@ from markdown_it import MarkdownIt
 from probe.errors import PlanError
 from probe.report import files as report_files
 from probe.report import svg
-from probe.report.files import write_report
+from probe.report.files import write_file, write_report
 from probe.report.html import render_html
 from probe.report.junit import render_junit
 from probe.report.fmt import CAUTION
@@ -502,21 +502,60 @@ def test_write_report_replaces_existing_files_whole_and_uses_json_text(tmp_path)
     assert sorted(os.listdir(tmp_path)) == ["report.json", "report.md"]
 
 
-def test_write_report_failure_leaves_old_files_and_no_temp_files(tmp_path, monkeypatch):
-    report = example_report()
-    (tmp_path / "report.html").write_text("old html")
+def _snapshot(folder):
+    return {p.name: p.read_bytes() for p in sorted(folder.iterdir())}
+
+
+@pytest.mark.parametrize("fail_at", ["second file", "swap"])
+def test_write_report_failure_leaves_the_old_folder_whole_and_no_temp_files(tmp_path, monkeypatch,
+                                                                            fail_at):
+    out = tmp_path / "out"
+    write_report(example_report(), out)
+    before = _snapshot(out)
     calls = []
+    real_write, real_rename = report_files._write_synced, report_files.os.rename
 
-    def failing_replace(src, dst):
+    def failing_write(path, data):
+        calls.append(path)
+        if len(calls) == 2:
+            raise OSError(28, "No space left on device")
+        real_write(path, data)
+
+    def failing_rename(src, dst):
         calls.append(dst)
-        raise OSError(28, "No space left on device")
+        if Path(dst) == out and str(src).endswith(".tmp"):  # the new folder moving in
+            raise OSError(28, "No space left on device")
+        real_rename(src, dst)
 
-    monkeypatch.setattr(report_files.os, "replace", failing_replace)
-    with pytest.raises(PlanError, match="cannot write report file .*report.html.*No space left"):
-        write_report(report, tmp_path, formats=("html",))
+    if fail_at == "swap":
+        monkeypatch.setattr(report_files, "_exchange", lambda a, b: False)  # the two-rename path
+        monkeypatch.setattr(report_files.os, "rename", failing_rename)
+    else:
+        monkeypatch.setattr(report_files, "_write_synced", failing_write)
+    with pytest.raises(PlanError, match="cannot write report folder .*out.*No space left"):
+        write_report(example_report(with_comparison=True), out)
     assert calls
-    assert os.listdir(tmp_path) == ["report.html"]
-    assert (tmp_path / "report.html").read_text() == "old html"
+    assert os.listdir(tmp_path) == ["out"] and _snapshot(out) == before
+
+
+@pytest.mark.parametrize("exchange", [True, False])
+def test_write_report_replaces_the_folder_as_a_whole(tmp_path, monkeypatch, exchange):
+    out = tmp_path / "out"
+    write_report(example_report(), out, formats=("json", "md", "junit"))
+    inode = out.stat().st_ino
+    if not exchange:
+        monkeypatch.setattr(report_files, "_exchange", lambda a, b: False)
+    paths = write_report(example_report(), out, formats=("html",))
+    assert paths == {"html": out / "report.html"}
+    assert os.listdir(out) == ["report.html"]  # the old files went with the old folder
+    assert os.listdir(tmp_path) == ["out"] and out.stat().st_ino != inode
+
+
+def test_write_report_refuses_a_folder_holding_other_files(tmp_path):
+    (tmp_path / "data.csv").write_text("a\n1\n")
+    with pytest.raises(PlanError, match="holds files probe did not write .*data.csv"):
+        write_report(example_report(), tmp_path)
+    assert os.listdir(tmp_path) == ["data.csv"]
 
 
 def test_write_report_renders_before_writing(tmp_path):
@@ -557,13 +596,17 @@ def test_a_report_with_nothing_run_still_renders_everywhere():
     assert (suite.get("tests"), suite.get("failures"), suite.get("skipped")) == ("0", "0", "0")
 
 
-def test_write_report_takes_other_file_names(tmp_path):
-    paths = write_report(
-        example_report(), tmp_path, formats=("json",), json_text="{}", names={"json": "x.json"}
-    )
-    assert paths == {"json": tmp_path / "x.json"} and (tmp_path / "x.json").read_text() == "{}"
-    with pytest.raises(PlanError, match="must be a plain file name"):
-        write_report(example_report(), tmp_path, formats=("json",), names={"json": "../x.json"})
+def test_write_file_is_atomic_and_leaves_no_temp_file(tmp_path, monkeypatch):
+    path = write_file(tmp_path / "a" / "x.json", "{}")
+    assert path == tmp_path / "a" / "x.json" and path.read_text() == "{}"
+
+    def failing_replace(src, dst):
+        raise OSError(28, "No space left on device")
+
+    monkeypatch.setattr(report_files.os, "replace", failing_replace)
+    with pytest.raises(PlanError, match="cannot write file .*x.json.*No space left"):
+        write_file(path, '{"new": 1}')
+    assert os.listdir(path.parent) == ["x.json"] and path.read_text() == "{}"
 
 
 def test_number_formatting_helpers():

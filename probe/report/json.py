@@ -10,6 +10,7 @@ from typing import Any
 import numpy as np
 
 from ..assemble import SCHEMA
+from ..errors import DataError
 
 __all__ = ["SCHEMA", "plain", "to_json", "read_report"]
 
@@ -37,5 +38,24 @@ def to_json(report: dict) -> str:
 
 
 def read_report(path: str | Path) -> dict:
-    """Load a saved ``report.json`` (for re-rendering)."""
-    return json.loads(Path(path).read_text(encoding="utf-8"))
+    """Load a saved ``report.json`` (for re-rendering), refusing anything but this schema's report.
+
+    Raises
+    ------
+    DataError
+        Not found, not JSON, not a probe report, or a report of another schema.
+    """
+    path = Path(path)
+    try:
+        report = json.loads(path.read_text(encoding="utf-8"))
+    except FileNotFoundError:
+        raise DataError(f"report `{path}` not found") from None
+    except (OSError, UnicodeDecodeError, ValueError) as exc:
+        raise DataError(f"`{path}` is not a readable JSON file ({exc})") from None
+    schema = report.get("schema") if isinstance(report, dict) else None
+    if not isinstance(schema, str) or not schema.startswith("probe.report/"):
+        raise DataError(f"`{path}` is not a probe report (no `schema` key naming probe.report/N)")
+    if schema != SCHEMA:
+        raise DataError(f"`{path}` has schema {schema!r}; this probe renders {SCHEMA!r}: re-run "
+                        "the analysis with this version")
+    return report

@@ -10,7 +10,6 @@ as ``rich.text.Text``, never as markup, so ``income[k]`` stays ``income[k]``.
 from __future__ import annotations
 
 from contextlib import contextmanager
-from pathlib import Path
 
 from rich import box
 from rich.console import Console, ConsoleOptions, Group
@@ -198,9 +197,8 @@ def render(report: dict, console: Console, *, quiet: bool = False, written: dict
     for section in rest:
         if section.ran and section.key != "provenance":
             console.print(_section(section))
-    if written:
-        folder = {str(Path(p).parent) for p in written.values()}
-        console.print(Text(visible("report: " + ", ".join(sorted(folder)))))
+    if written:  # every file written, the JSON first
+        console.print(Text(visible("report: " + ", ".join(str(p) for p in written.values()))))
     console.print(Text(model.caution, style="dim"))
 
 
