@@ -46,6 +46,7 @@ from .data import attribute_levels, require_finite
 from .encode import encode_columns
 from .errors import DataError, PlanError
 from .stats import Estimate
+from .values import as_rng, json_number, report_level
 
 __all__ = ["find_proxies", "ProxyFindings", "ProxyRow"]
 
@@ -94,10 +95,10 @@ class ProxyRow:
             "feature": self.feature,
             "kind": self.kind,
             "levels": self.levels,
-            "mutual_information": _json(self.mutual_information),
-            "auc": _json(self.auc),
-            "importance": _json(self.importance),
-            "importance_sd": _json(self.importance_sd),
+            "mutual_information": json_number(self.mutual_information),
+            "auc": json_number(self.auc),
+            "importance": json_number(self.importance),
+            "importance_sd": json_number(self.importance_sd),
         }
 
 
@@ -136,7 +137,7 @@ class ProxyFindings:
     def to_dict(self) -> dict:
         return {
             "attribute": self.attribute,
-            "attribute_levels": [_plain(v) for v in self.attribute_levels],
+            "attribute_levels": [report_level(v) for v in self.attribute_levels],
             "rows_used": self.rows_used,
             "rows_dropped": self.rows_dropped,
             "multivariate_auc": None if self.multivariate_auc is None
@@ -206,9 +207,9 @@ def find_proxies(
     >>> find_proxies(X, "group", multivariate=False).top(1)
     ('postcode',)
     """
+    gen = as_rng(rng)
     frame, features, y, levels, dropped, notes = _find_proxies_iv(
         X, attribute, features, cv, n_repeats, confidence_level, max_rows)
-    gen = np.random.default_rng(rng)
     sub_seed, fold_seed, model_seed = (int(s) for s in gen.integers(0, 2**31 - 1, size=3))
 
     if len(y) > max_rows:
@@ -360,11 +361,3 @@ def _multivariate(frame, enc, y, n_levels, cv, n_repeats, confidence_level, fold
 def _nan_low(x):
     return -math.inf if x is None or (isinstance(x, float) and math.isnan(x)) else x
 
-
-def _json(x):
-    x = float(x)
-    return None if math.isnan(x) or math.isinf(x) else x
-
-
-def _plain(v):
-    return v.item() if isinstance(v, np.generic) else v

@@ -11,6 +11,7 @@ import pandas as pd
 from scipy import stats as _sps
 
 from ..stats import Estimate, wilson
+from ..values import json_number, report_level
 
 __all__ = ["FlipFindings", "FlipRow", "FlipSlice", "DIRECT_FLIP_CAUTION", "SCREEN_CAUTION"]
 
@@ -170,14 +171,14 @@ class FlipRow:
         out = {
             "attribute": self.attribute,
             "mode": self.mode,
-            "from": _plain(self.from_),
-            "to": _plain(self.to),
+            "from": report_level(self.from_),
+            "to": report_level(self.to),
             "rows": self.rows,
             "flip_rate": self.flip_rate.to_dict(),
             "to_favorable": self.to_favorable.to_dict(),
             "to_unfavorable": self.to_unfavorable.to_dict(),
             "mean_score_change": self.mean_score_change.to_dict(),
-            "max_score_change": _json(self.max_score_change),
+            "max_score_change": json_number(self.max_score_change),
             "impossible": self.impossible,
             "moved": list(self.moved),
             "by_slice": [s.to_dict() for s in self.by_slice],
@@ -345,11 +346,3 @@ def twin_sentence(row: FlipRow, k, subsampled, confidence_level) -> str:
             f"{sample}: an excess of {_points(ex.value)} points ({cl} {_points(ex.low)}{sep}"
             f"{_points(ex.high)}). {tail}")
 
-
-def _json(x):
-    x = float(x)
-    return None if math.isnan(x) or math.isinf(x) else x
-
-
-def _plain(v):
-    return v.item() if isinstance(v, np.generic) else v

@@ -11,6 +11,7 @@ from ..data import close_names
 from ..encode import Encoding, encode_columns
 from ..errors import DataError, PlanError
 from ..metrics import as_binary, get_metric
+from ..values import as_rng
 from ..options import SliceOptions, check_option, coerce_option, option_fields
 from .findings import SliceFindings
 from .search import Inputs, run
@@ -254,7 +255,7 @@ def _search_iv(X, outcome, base, direction, opts, confidence_level, similarity, 
     if strata is not None:
         st = _group_codes(strata if base_idx is None else strata[base_idx])
     return Inputs(yb, base_idx, binary, direction, st, similarity, float(confidence_level), opts,
-                  np.random.default_rng(rng))
+                  as_rng(rng))
 
 
 def _group_codes(values):

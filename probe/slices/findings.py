@@ -12,6 +12,7 @@ import pandas as pd
 
 from ..encode import Encoding
 from ..stats import Estimate
+from ..values import json_number
 from .estimate import at_level
 
 __all__ = ["CANDIDATES_NOTE", "Slice", "SliceFindings", "make_slice"]
@@ -102,14 +103,14 @@ class Slice:
             "predicates": [dict(p) for p in self.predicates],
             "label": self.label,
             "rows": self.rows,
-            "share": _jf(self.share),
-            "events": _jf(self.events),
+            "share": json_number(self.share),
+            "events": json_number(self.events),
             "rate": self.rate.to_dict(),
             "gap": self.gap.to_dict(),
             "effect_ratio": self.effect_ratio.to_dict(),
-            "p_value": _jf(self.p_value),
-            "q_value": _jf(self.q_value),
-            "score": _jf(self.score),
+            "p_value": json_number(self.p_value),
+            "q_value": json_number(self.q_value),
+            "score": json_number(self.score),
             "search_rows": self.search_rows,
             "sentence": self.sentence,
         }
@@ -195,11 +196,6 @@ class SliceFindings:
     def sentences(self) -> list:
         """One plain-language sentence per slice found."""
         return [s.sentence for s in self.found]
-
-
-def _jf(x):
-    x = float(x)
-    return None if math.isnan(x) or math.isinf(x) else x
 
 
 _WORDING = {
