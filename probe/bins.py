@@ -1,6 +1,8 @@
-"""Quantile bin edges that a person can read: each edge the roundest number near its quantile.
+"""Bins and conditions a person can read: quantile edges at the roundest number near each quantile,
+and the one wording of a bin or a conjunction of conditions.
 
-Used by the one encoder (:mod:`probe.encode`) for every numeric column it cuts into bins.
+Used by the one encoder (:mod:`probe.encode`) for every numeric column it cuts into bins, by the
+slice and flip reports for their conditions, and for binned protected attributes.
 """
 
 from __future__ import annotations
@@ -9,8 +11,9 @@ import math
 
 import numpy as np
 
-__all__ = ["quantile_edges", "fmt_number"]
+__all__ = ["quantile_edges", "fmt_number", "edge_texts", "bin_labels", "conjunction"]
 
+_LABEL_DIGITS = 3  # significant figures of a cut-point in a label (more where two would collide)
 _EDGE_WINDOW = 0.05  # an edge may move this share of a bin's rows (over the bins) to become round
 
 
@@ -88,10 +91,18 @@ def _round_edge(below: float, edge: float) -> float:
     return edge
 
 
-def fmt_number(v: float) -> str:
+def fmt_number(v: float, digits: int | None = None) -> str:
+    """A number as a label shows it: thousands separators, no trailing zeros; with ``digits``, the
+    fraction rounded to that many significant figures (the whole part is never rounded)."""
     v = float(v)
+    if not math.isfinite(v):
+        return str(v)
     if v != 0 and abs(v) < 1e-4:
-        return f"{v:.3g}"
+        return f"{v:.{digits or 3}g}"
+    if digits is not None and v != int(v):
+        whole_digits = math.floor(math.log10(abs(v))) + 1 if abs(v) >= 1 else 0
+        lead = 0 if abs(v) >= 1 else -math.floor(math.log10(abs(v))) - 1  # zeros after the point
+        v = round(v, max(0, digits - whole_digits) + lead)
     if v == int(v) and abs(v) < 1e15:
         return f"{int(v):,}"
     text = np.format_float_positional(v, trim="-")
@@ -99,3 +110,30 @@ def fmt_number(v: float) -> str:
     sign = "-" if whole.startswith("-") else ""
     whole = f"{int(whole.lstrip('-') or 0):,}"
     return f"{sign}{whole}.{frac}" if frac else f"{sign}{whole}"
+
+
+def edge_texts(edges) -> list[str]:
+    """The cut-points of one column as labels show them: three significant figures, more only where
+    two edges would otherwise read the same."""
+    for digits in range(_LABEL_DIGITS, 18):
+        texts = [fmt_number(e, digits) for e in edges]
+        if len(set(texts)) == len(texts):
+            return texts
+    return [fmt_number(e) for e in edges]
+
+
+def bin_labels(name: str, edges) -> list[str]:
+    """The label of each bin ``[e_j, e_{j+1})`` cut at ``edges`` (sorted): ``age < 25``,
+    ``age in [25, 40)``, ``age >= 60``. Every numeric condition probe writes (slices, the flips'
+    breakdown, binned protected attributes) is worded here."""
+    texts = edge_texts(edges)
+    if not texts:
+        return [f"{name} (all values)"]
+    out = [f"{name} < {texts[0]}"]
+    out += [f"{name} in [{lo}, {hi})" for lo, hi in zip(texts[:-1], texts[1:])]
+    return out + [f"{name} >= {texts[-1]}"]
+
+
+def conjunction(labels) -> str:
+    """Conditions that hold together, as one label: ``age < 25 and region = north``."""
+    return " and ".join(labels)

@@ -338,14 +338,15 @@ def _multivariate(frame, enc, y, n_levels, cv, n_repeats, confidence_level, fold
     for i, (train, test) in enumerate(splitter.split(Z, y)):
         est = HistGradientBoostingClassifier(
             categorical_features=is_cat if is_cat.any() else None, random_state=model_seed + i)
-        est.fit(Z[train], y[train])
-        proba = est.predict_proba(Z[test])
+        Z_train, Z_test = _fold_design(Z, train, test)
+        est.fit(Z_train, y[train])
+        proba = est.predict_proba(Z_test)
         if n_levels == 2:
             fold_aucs.append(roc_auc_score(y[test], proba[:, 1]))
         else:
             fold_aucs.append(roc_auc_score(y[test], proba, multi_class="ovr", average="macro",
                                            labels=np.arange(n_levels)))
-        pi = permutation_importance(est, Z[test], y[test], scoring=scoring, n_repeats=n_repeats,
+        pi = permutation_importance(est, Z_test, y[test], scoring=scoring, n_repeats=n_repeats,
                                     random_state=model_seed + 1000 + i)
         drops.append(pi.importances)  # (n_features, n_repeats)
     a = np.asarray(fold_aucs)
@@ -356,6 +357,18 @@ def _multivariate(frame, enc, y, n_levels, cv, n_repeats, confidence_level, fold
     imp = {name: (float(allv[j].mean()), float(allv[j].std(ddof=1)) if allv.shape[1] > 1 else math.nan)
            for j, name in enumerate(enc.names)}
     return m_auc, imp
+
+
+def _fold_design(Z, train, test):
+    """A fold's training and test rows; a column with no value in the training rows (all missing
+    there) becomes a constant 0 in both, which is what it tells the model (the gradient boosting
+    cannot bin a column with no value)."""
+    Z_train, Z_test = Z[train], Z[test]
+    empty = np.isnan(Z_train).all(axis=0)
+    if empty.any():
+        Z_train[:, empty] = 0.0
+        Z_test[:, empty] = 0.0
+    return Z_train, Z_test
 
 
 def _nan_low(x):

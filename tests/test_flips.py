@@ -737,7 +737,7 @@ def test_breakdown_reads_the_shared_encoding_and_its_counts_equal_brute_force():
         assert row.by_slice and row.by_slice[0].predicates[0]["column"] == "income"
         for s in row.by_slice:
             # every predicate and label is the encoder's own
-            assert s.label == " & ".join(labels[repr(p)] for p in s.predicates)
+            assert s.label == " and ".join(labels[repr(p)] for p in s.predicates)
             inside = source.copy()
             for p in s.predicates:
                 inside &= _satisfies(X, p)

@@ -43,7 +43,7 @@ class FlipSlice:
         writes them: op ``"=="`` (a level), ``"in"`` (a numeric bin ``[low, high)``, None for an
         open end), ``"not in"`` (the ``other`` level: value the named levels) or ``"missing"``.
     label : str
-        The encoder's labels of the predicates joined by ``" & "``.
+        The encoder's labels of the predicates joined by ``" and "`` (:func:`probe.bins.conjunction`).
     rows : int
     flip_rate : Estimate
     """

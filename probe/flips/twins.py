@@ -226,6 +226,10 @@ class _TwinDesign:
         for c in self.features:
             if c in self.numeric:
                 v = self.numeric[c]
+                # divided by the largest magnitude first, so values near the float limit (1e308)
+                # standardise without overflow; the standardised values are the same
+                top = np.nanmax(np.abs(v[both])) if (~np.isnan(v[both])).any() else 0.0
+                v = v / top if top > 0 else v
                 pooled = v[both]
                 mu = np.nanmean(pooled) if (~np.isnan(pooled)).any() else 0.0
                 sd = np.nanstd(pooled)

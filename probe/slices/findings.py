@@ -10,6 +10,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from ..bins import conjunction
 from ..encode import Encoding
 from ..stats import Estimate
 from ..values import json_number
@@ -212,7 +213,7 @@ def make_slice(rank, cand, est, enc: Encoding, metric, confidence_level, binary)
     score, cols, levels, search_rows = cand
     columns = [enc.columns[c] for c in cols]
     preds = tuple(dict(col.predicates[lv]) for col, lv in zip(columns, levels))
-    label = " and ".join(col.labels[lv] for col, lv in zip(columns, levels))
+    label = conjunction(col.labels[lv] for col, lv in zip(columns, levels))
     return Slice(
         rank=rank, predicates=preds, label=label, rows=est["rows"], share=float(est["share"]),
         events=est["events"], rate=est["rate"], gap=est["gap"], effect_ratio=est["ratio"],
