@@ -11,6 +11,7 @@ order and times them. It never prints; progress goes through the optional callba
 from __future__ import annotations
 
 import time
+import warnings
 from contextlib import contextmanager
 from dataclasses import replace
 from typing import Callable
@@ -20,9 +21,10 @@ from .assemble import Findings, assemble_report, provenance
 from .compare import compare_models
 from .data import close_names, prepare_holdout, read_table, sha256_file
 from .encode import encode_columns
-from .errors import DataError
+from .errors import DataError, ProbeWarning
 from .evidence import Evidence, ModelRun
 from .flips import flip_test
+from .flips.context import refuse_fixed_scores
 from .groups import group_metrics
 from .plan import Plan
 from .policy import judge, measure
@@ -81,6 +83,8 @@ def prepare(plan: Plan, *, clock: _Clock | None = None, progress: Progress | Non
     frame = holdout.frame
     with clock.step("load model"):
         model = _load(plan, plan.model.spec, holdout.positive)
+    if plan.flips is not None:
+        refuse_fixed_scores(model)  # before the scoring and every other analysis
     # the model never sees the label, even when it reads the whole frame (py:, cmd:, http:)
     inputs = frame.drop(columns=[holdout.label]) if holdout.label else frame
     threshold = plan.model.threshold
@@ -205,10 +209,13 @@ def _flips(plan: Plan, ev: Evidence, rankings: dict, progress) -> list:
         if mode == "transport" and f.proxies is None:
             ranking = _ranking(plan, ev.frame, attribute, ev.model().feature_names,
                                ev.holdout.label, ev.holdout.protected, rankings)
-        out.append(flip_test(ev.model(), ev.inputs, attribute, options=f, mode=mode,
-                             threshold=ev.threshold, favorable=ev.favorable,
-                             confidence_level=plan.confidence_level, rng=plan.seed,
-                             scores=ev.scores(), encoding=ev.encoding, proxy_ranking=ranking))
+        with warnings.catch_warnings():  # the report states it: the row that does not apply
+            warnings.filterwarnings("ignore", message=".*direct flip does not apply",
+                                    category=ProbeWarning)
+            out.append(flip_test(ev.model(), ev.inputs, attribute, options=f, mode=mode,
+                                 threshold=ev.threshold, favorable=ev.favorable,
+                                 confidence_level=plan.confidence_level, rng=plan.seed,
+                                 scores=ev.scores(), encoding=ev.encoding, proxy_ranking=ranking))
     if tick:
         tick(len(jobs), len(jobs))
     return out

@@ -214,6 +214,9 @@ class FlipFindings:
     favorable : bool
     extras : dict
         Mode-specific settings (the proxies moved; the twins' ``k``, features and control).
+    not_applicable : str
+        Why the mode does not apply (a direct flip of an attribute that is not a model input);
+        empty when it applies. A test that does not apply has no rows and is never a pass.
     """
 
     attribute: str
@@ -224,6 +227,12 @@ class FlipFindings:
     threshold: float = 0.5
     favorable: bool = True
     extras: dict = field(default_factory=dict, compare=False)
+    not_applicable: str = ""
+
+    @property
+    def applies(self) -> bool:
+        """False when the mode does not apply to this attribute (see :attr:`not_applicable`)."""
+        return not self.not_applicable
 
     def to_dict(self) -> list:
         """The report's ``flips`` entries: one dict per row, each with this test's ``notes``.
@@ -235,7 +244,7 @@ class FlipFindings:
             return [{"attribute": self.attribute, "mode": self.mode, "from": None, "to": None,
                      "rows": 0, "flip_rate": None, "to_favorable": None, "to_unfavorable": None,
                      "mean_score_change": None, "applicable": False,
-                     "sentence": "; ".join(self.notes)
+                     "sentence": self.not_applicable or "; ".join(self.notes)
                      or f"{self.mode} flips do not apply to `{self.attribute}`",
                      "notes": list(self.notes)}]
         return [{**r.to_dict(), "notes": list(self.notes)} for r in self.rows]
