@@ -193,8 +193,9 @@ class ModelOptions(_Checked):
     spec: str = opt(help="model file, py:module:attr, cmd:COMMAND, http://127.0.0.1:PORT/PATH or "
                          "column:NAME", required=True, cli=False)
     threshold: float = opt(0.5, lo=0.0, hi=1.0, help="decision = score >= T")
-    favorable: str = opt("positive", choices=("positive", "negative"),
-                         help="which decision is the favourable outcome")
+    favorable: str | None = opt(None, choices=("positive", "negative"),
+                                help="which decision is the favourable outcome (default: "
+                                     "positive, unless the label reads as adverse: then say)")
     trust_pickle: bool = opt(False, help="allow loading pickle/joblib model files (this executes "
                                          "their code)")
     trusted_types: tuple[str, ...] = opt((), flag="--trust-type", metavar="TYPE",

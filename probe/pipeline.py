@@ -23,6 +23,7 @@ from .data import close_names, prepare_holdout, read_table, sha256_file
 from .encode import encode_columns
 from .errors import DataError, ProbeWarning
 from .evidence import Evidence, ModelRun
+from .metrics import resolve_favorable
 from .flips import flip_test
 from .flips.context import refuse_fixed_scores
 from .groups import group_metrics
@@ -81,6 +82,7 @@ def prepare(plan: Plan, *, clock: _Clock | None = None, progress: Progress | Non
                                   protected=d.protected, intersections=d.intersections,
                                   source=str(path), sha256=sha256_file(path))
     frame = holdout.frame
+    favorable, _ = resolve_favorable(plan.model.favorable, holdout.label, holdout.positive)
     with clock.step("load model"):
         model = _load(plan, plan.model.spec, holdout.positive)
     if plan.flips is not None:
@@ -102,7 +104,7 @@ def prepare(plan: Plan, *, clock: _Clock | None = None, progress: Progress | Non
         encoding = encode_columns(frame, columns=s.columns,
                                   exclude=_never_sliced(plan, holdout.label, model), bins=s.bins)
     return Evidence(holdout, inputs, runs, encoding, threshold=threshold,
-                    favorable=plan.model.favorable)
+                    favorable=favorable)
 
 
 def run_plan(plan: Plan, *, command: str | None = None, progress: Progress | None = None) -> dict:
@@ -163,7 +165,8 @@ def run_plan(plan: Plan, *, command: str | None = None, progress: Progress | Non
                            comparison=found.comparison, confidence_level=cl)
         verdict = judge(measured, plan.policy, confidence_level=cl)
     prov = provenance(plan, command=command, timings=clock.timings,
-                      model=ev.model().describe(), data=h.describe())
+                      model=ev.model().describe(), data=h.describe(),
+                      favorable=resolve_favorable(plan.model.favorable, h.label, h.positive))
     return assemble_report(found, verdict, prov)
 
 
@@ -232,6 +235,10 @@ def _run_proxies_only(plan: Plan, command, clock: _Clock) -> dict:
     if label and label not in frame.columns:
         raise DataError(f"label column `{label}` is not in `{path}`"
                         + close_names(label, list(frame.columns)))
+    if not label and not plan.proxies.features:
+        raise DataError("proxies need to know the label so that it is not ranked as a proxy: "
+                        "name it with --label COL (plan: `label` in [data]), or name the candidate "
+                        "features with --features A,B (plan: `features` in [proxies])")
     found = Findings()
     with clock.step("proxies"):
         attributes = _attributes(plan.proxies.attributes, protected, "proxies", frame)
