@@ -51,6 +51,8 @@ def _common(p: argparse.ArgumentParser, *, model: bool = True, label: bool = Tru
                             "or column:NAME")
         add_flags(g, ModelOptions)
         add_flags(g, DataOptions)
+    else:
+        add_flags(g, DataOptions, skip=("features", "reference_groups"))
     g.add_argument("--protected", metavar="A,B,...", help="protected attribute columns")
     g.add_argument("--intersection", action="append", default=[], metavar="A,B",
                    help="report the joint groups of these columns (repeatable)")
@@ -134,8 +136,8 @@ def _plan_dict(args) -> dict:
     if args.intersection:
         data["intersections"] = [_list(i) for i in args.intersection]
     raw: dict = {"name": args.command, "data": data}
+    data.update(flag_values(args, DataOptions))
     if getattr(args, "model", None):
-        data.update(flag_values(args, DataOptions))
         raw["model"] = {"spec": args.model, **flag_values(args, ModelOptions)}
     if args.command == "slices":
         raw["slices"] = flag_values(args, SliceOptions)
