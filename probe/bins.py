@@ -156,8 +156,8 @@ _BINS_FIX = ("bin it: --bins {a}=25:40:60 (edges) or --bins {a}=4 (quantile bins
 
 def parse_bins(value, where: str = "data.bins") -> dict | None:
     """``bins`` in its plan form ``{column: edges or count}``, from the plan's table or the flag's
-    ``A=25:40:60,B=4`` text: edges a strictly increasing tuple of finite numbers, a count an
-    integer of at least 2 (quantile bins at round edges)."""
+    ``A=25:40:60,B=4`` text (one edge: ``A=40:``): edges a strictly increasing tuple of finite
+    numbers, a count an integer of at least 2 (quantile bins at round edges)."""
     if value is None or value == {} or value == "":
         return None
     if isinstance(value, str):
@@ -170,7 +170,7 @@ def parse_bins(value, where: str = "data.bins") -> dict | None:
                 raise PlanError(f"`{where}` entries are COLUMN=EDGES (25:40:60) or COLUMN=COUNT, "
                                 f"got {entry!r}")
             try:
-                nums = [float(t) for t in spec.split(":")]
+                nums = [float(t) for t in spec.split(":") if t.strip()]
             except ValueError:
                 raise PlanError(f"`{where}`: {entry!r} holds something that is not a number") from None
             parsed[name.strip()] = nums if ":" in spec else (

@@ -33,6 +33,7 @@ from .groups import group_metrics
 from .plan import Plan
 from .policy import judge, measure
 from .proxies import find_proxies
+from .threads import limited
 from .slices import find_slices
 
 __all__ = ["run_plan", "prepare", "Progress"]
@@ -134,8 +135,13 @@ def run_plan(plan: Plan, *, command: str | None = None, progress: Progress | Non
         ``slices``, ``flips``, ``proxies``, ``comparison``; sections not run are None.
     """
     clock = _Clock()
-    if plan.model is None:
-        return _run_proxies_only(plan, command, clock)
+    with limited():  # every estimator and BLAS/OpenMP pool of the run, the model's included
+        if plan.model is None:
+            return _run_proxies_only(plan, command, clock, progress)
+        return _run(plan, command, clock, progress)
+
+
+def _run(plan: Plan, command, clock: _Clock, progress) -> dict:
     ev = prepare(plan, clock=clock, progress=progress)
     found = Findings()
     cl, seed = plan.confidence_level, plan.seed
@@ -156,7 +162,8 @@ def run_plan(plan: Plan, *, command: str | None = None, progress: Progress | Non
         with clock.step("proxies"):
             attributes = _attributes(plan.proxies.attributes, h.protected, "proxies", ev.frame)
             found.proxies = [_ranking(plan, ev.frame, a, ev.model().feature_names, h.label,
-                                      h.protected, rankings, ev.groups) for a in attributes]
+                                      h.protected, rankings, ev.groups, progress)
+                             for a in attributes]
     if plan.flips is not None:
         with clock.step("flips"):
             found.flips = _flips(plan, ev, rankings, progress)
@@ -192,7 +199,7 @@ def _attributes(asked, protected, section: str, frame) -> tuple:
 
 
 def _ranking(plan: Plan, frame, attribute, model_features, label, protected, rankings: dict,
-             groups):
+             groups, progress: Progress | None = None):
     """The proxy ranking of one attribute, computed once per run (the table and transport share it);
     the attribute as the groups see it (its bands when binned), the features as they are."""
     if attribute not in rankings:
@@ -208,7 +215,8 @@ def _ranking(plan: Plan, frame, attribute, model_features, label, protected, ran
             frame = frame.assign(**{attribute: groups[attribute]})
         rankings[attribute] = find_proxies(frame, attribute, features=features,
                                            confidence_level=plan.confidence_level, rng=plan.seed,
-                                           multivariate=attribute in shown)
+                                           multivariate=attribute in shown,
+                                           progress=_bar(progress, f"proxies of {attribute}"))
     return rankings[attribute]
 
 
@@ -252,7 +260,7 @@ def _flip_frame(ev: Evidence, attribute: str, mode: str):
     return ev.inputs.assign(**{attribute: banded})
 
 
-def _run_proxies_only(plan: Plan, command, clock: _Clock) -> dict:
+def _run_proxies_only(plan: Plan, command, clock: _Clock, progress) -> dict:
     """``probe proxies``: no model, no label needed."""
     with clock.step("load data"):
         path = plan.resolve(plan.data.path)
@@ -271,7 +279,7 @@ def _run_proxies_only(plan: Plan, command, clock: _Clock) -> dict:
     with clock.step("proxies"):
         attributes = _attributes(plan.proxies.attributes, protected, "proxies", frame)
         groups = group_view(frame, attributes, plan.data.bins)
-        found.proxies = [_ranking(plan, frame, a, None, label, protected, {}, groups)
+        found.proxies = [_ranking(plan, frame, a, None, label, protected, {}, groups, progress)
                          for a in attributes]
     verdict = judge(measure(), plan.policy, confidence_level=plan.confidence_level)
     prov = provenance(plan, command=command, timings=clock.timings, model=None, data=data)

@@ -46,6 +46,7 @@ from .data import attribute_levels, require_finite
 from .encode import encode_columns
 from .errors import DataError, PlanError
 from .stats import Estimate
+from .threads import N_JOBS, limited
 from .values import as_rng, json_number, report_level
 
 __all__ = ["find_proxies", "ProxyFindings", "ProxyRow"]
@@ -163,6 +164,7 @@ def find_proxies(
     rng=0,
     max_rows: int = 50_000,
     multivariate: bool = True,
+    progress=None,
 ) -> ProxyFindings:
     """Rank the features of ``X`` by how well they stand in for ``attribute``.
 
@@ -184,7 +186,10 @@ def find_proxies(
         Rows beyond this are subsampled (seeded, without replacement).
     multivariate : bool, default=True
         Fit the multivariate model and permutation importances (the slow part); off, only the
-        single-feature measures are computed.
+        single-feature measures are computed. It runs with one thread per native pool
+        (:func:`probe.threads.limited`).
+    progress : callable, optional
+        ``progress(done, total)`` as the multivariate check's folds complete.
 
     Returns
     -------
@@ -243,8 +248,9 @@ def find_proxies(
                 f"multivariate check skipped: the smallest level of `{attribute}` has "
                 f"{int(counts.min())} rows, fewer than cv={cv}")
         else:
-            m_auc, imp = _multivariate(frame, enc, y, n_levels, cv, n_repeats,
-                                       confidence_level, fold_seed, model_seed)
+            with limited():
+                m_auc, imp = _multivariate(frame, enc, y, n_levels, cv, n_repeats,
+                                           confidence_level, fold_seed, model_seed, progress)
 
     order = sorted(single, key=lambda r: (-_nan_low(r[4]), -_nan_low(r[3]), r[0]))
     rows = tuple(
@@ -325,7 +331,7 @@ def _design(frame, enc):
 
 
 def _multivariate(frame, enc, y, n_levels, cv, n_repeats, confidence_level, fold_seed,
-                  model_seed):
+                  model_seed, progress):
     from sklearn.ensemble import HistGradientBoostingClassifier
     from sklearn.inspection import permutation_importance
     from sklearn.metrics import roc_auc_score
@@ -336,6 +342,8 @@ def _multivariate(frame, enc, y, n_levels, cv, n_repeats, confidence_level, fold
     splitter = StratifiedKFold(n_splits=cv, shuffle=True, random_state=fold_seed)
     fold_aucs, drops = [], []
     for i, (train, test) in enumerate(splitter.split(Z, y)):
+        if progress:
+            progress(i, cv)
         est = HistGradientBoostingClassifier(
             categorical_features=is_cat if is_cat.any() else None, random_state=model_seed + i)
         Z_train, Z_test = _fold_design(Z, train, test)
@@ -347,8 +355,10 @@ def _multivariate(frame, enc, y, n_levels, cv, n_repeats, confidence_level, fold
             fold_aucs.append(roc_auc_score(y[test], proba, multi_class="ovr", average="macro",
                                            labels=np.arange(n_levels)))
         pi = permutation_importance(est, Z_test, y[test], scoring=scoring, n_repeats=n_repeats,
-                                    random_state=model_seed + 1000 + i)
+                                    random_state=model_seed + 1000 + i, n_jobs=N_JOBS)
         drops.append(pi.importances)  # (n_features, n_repeats)
+    if progress:
+        progress(cv, cv)
     a = np.asarray(fold_aucs)
     mean = float(a.mean())
     half = float(_sps.t.ppf(0.5 + confidence_level / 2, cv - 1) * a.std(ddof=1) / math.sqrt(cv))

@@ -869,3 +869,65 @@ def test_judged_at_twins_is_the_shown_excess_and_none_without_a_control():
     impossible = replace(row, impossible=True)
     assert impossible.judged_at(0.95) is None
     assert replace(row, excess=None).judged_at(0.95) is None
+
+
+# ---------------------------------------------------------------------------------------------
+# hardening: fixed scores, a direct flip that does not apply, extreme values, dates, seeds
+
+
+class _LinearModel:
+    feature_names = ("income", "big")
+
+    def scores(self, frame):
+        return np.clip(frame["income"].to_numpy(dtype=float) / 100.0, 0.0, 1.0)
+
+
+def _hardening_frame(n=400, seed=0):
+    r = np.random.default_rng(seed)
+    return pd.DataFrame({"group": r.choice(["a", "b"], n), "income": r.uniform(0, 100, n),
+                         "big": np.where(r.random(n) < 0.5, 1e308, -1e308)})
+
+
+def test_a_column_model_is_refused_for_flips():
+    from probe.adapters import load_model
+
+    frame = _hardening_frame().assign(score=0.5)
+    model = load_model("column:score")
+    with pytest.raises(PlanError, match="fixed scores"):
+        flip_test(model, frame, "group", mode="direct")
+
+
+def test_a_direct_flip_of_a_non_input_warns_and_says_it_does_not_apply():
+    from probe.errors import ProbeWarning
+
+    with pytest.warns(ProbeWarning, match="not a model input"):
+        res = flip_test(_LinearModel(), _hardening_frame(), "group", mode="direct")
+    assert not res.applies and "not a model input" in res.not_applicable and res.rows == ()
+    (row,) = res.to_dict()
+    assert row["applicable"] is False and row["sentence"] == res.not_applicable
+
+
+def test_twins_standardise_values_at_the_float_limit():
+    frame = _hardening_frame()
+    res = flip_test(_LinearModel(), frame, "group", mode="twins")
+    # `big` takes two values: scaled, it is +-1 standard deviation, so twins match on its sign first;
+    # the same test with `big` as +-1 (the same standardised values) is the independent reference
+    ref = flip_test(_LinearModel(), frame.assign(big=np.sign(frame["big"])), "group", mode="twins")
+    assert [r.flip_rate.value for r in res.rows] == [r.flip_rate.value for r in ref.rows]
+
+
+def test_a_date_attribute_reports_its_levels_as_text():
+    import json
+
+    frame = _hardening_frame()
+    frame["day"] = pd.to_datetime(np.where(frame["group"] == "a", "2024-01-01", "2024-06-30"))
+    res = flip_test(_LinearModel(), frame, "day", mode="twins")
+    levels = {(r["from"], r["to"]) for r in json.loads(json.dumps(res.to_dict()))}
+    assert levels == {("2024-01-01T00:00:00", "2024-06-30T00:00:00"),
+                      ("2024-06-30T00:00:00", "2024-01-01T00:00:00")}
+
+
+@pytest.mark.parametrize("seed", [-1, 1.5, "x"])
+def test_a_bad_seed_is_one_plan_error(seed):
+    with pytest.raises(PlanError, match="`rng`"):
+        flip_test(_LinearModel(), _hardening_frame(), "group", mode="twins", rng=seed)

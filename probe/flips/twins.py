@@ -64,6 +64,7 @@ from ..data import is_numeric
 from ..encode import encode_columns
 from ..errors import DataError
 from ..stats import Estimate, wilson_interval
+from ..threads import N_JOBS, limited
 from .context import FlipContext, outcome_row
 from .findings import SCREEN_CAUTION, FlipFindings, spread_interval, twin_sentence
 
@@ -252,11 +253,13 @@ def _kneighbors(pool, queries, n_neighbors) -> np.ndarray:
     # a k-d tree wins in few dimensions; beyond that sklearn's brute search (computed in chunks
     # under its working-memory bound, never an n x n matrix) is several times faster
     algorithm = "kd_tree" if pool.shape[1] <= _KD_TREE_MAX_DIM else "brute"
-    nn = NearestNeighbors(n_neighbors=n_neighbors, algorithm=algorithm).fit(pool)
     out = np.empty((len(queries), n_neighbors), dtype=np.int64)
-    for start in range(0, len(queries), _TWIN_CHUNK):
-        stop = min(start + _TWIN_CHUNK, len(queries))
-        out[start:stop] = nn.kneighbors(queries[start:stop], return_distance=False)
+    with limited():
+        nn = NearestNeighbors(n_neighbors=n_neighbors, algorithm=algorithm,
+                              n_jobs=N_JOBS).fit(pool)
+        for start in range(0, len(queries), _TWIN_CHUNK):
+            stop = min(start + _TWIN_CHUNK, len(queries))
+            out[start:stop] = nn.kneighbors(queries[start:stop], return_distance=False)
     return out
 
 
