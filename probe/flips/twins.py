@@ -227,13 +227,12 @@ class _TwinDesign:
         for c in self.features:
             if c in self.numeric:
                 v = self.numeric[c]
-                # divided by the largest magnitude first, so values near the float limit (1e308)
-                # standardise without overflow; the standardised values are the same
-                top = np.nanmax(np.abs(v[both])) if (~np.isnan(v[both])).any() else 0.0
-                v = v / top if top > 0 else v
-                pooled = v[both]
-                mu = np.nanmean(pooled) if (~np.isnan(pooled)).any() else 0.0
-                sd = np.nanstd(pooled)
+                mu, sd = _centre_scale(v[both])
+                if not (np.isfinite(mu) and np.isfinite(sd)):
+                    # values near the float limit (1e308) overflow the mean or the variance:
+                    # divided by the largest magnitude first, they standardise to the same values
+                    v = v / np.nanmax(np.abs(v[both]))
+                    mu, sd = _centre_scale(v[both])
                 sd = sd if sd > 0 and np.isfinite(sd) else 1.0
                 blocks_s.append(np.where(np.isnan(v[idx]), 0.0, (v[idx] - mu) / sd)[:, None])
                 blocks_t.append(np.where(np.isnan(v[tgt]), 0.0, (v[tgt] - mu) / sd)[:, None])
@@ -243,6 +242,14 @@ class _TwinDesign:
                 blocks_s.append(eye[col.codes[idx]])
                 blocks_t.append(eye[col.codes[tgt]])
         return np.hstack(blocks_s), np.hstack(blocks_t)
+
+
+def _centre_scale(pooled):
+    """The mean and standard deviation of the present values (both 0 when there are none)."""
+    if np.isnan(pooled).all():
+        return 0.0, 0.0
+    with np.errstate(over="ignore", invalid="ignore"):
+        return np.nanmean(pooled), np.nanstd(pooled)
 
 
 def _kneighbors(pool, queries, n_neighbors) -> np.ndarray:
