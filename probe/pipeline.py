@@ -20,21 +20,21 @@ import pandas as pd
 
 from .adapters import load_model
 from .assemble import Findings, assemble_report, provenance
-from .compare import compare_models
 from .bins import group_view
+from .compare import compare_models
 from .data import close_names, prepare_holdout, read_table, sha256_file
 from .encode import encode_columns
 from .errors import DataError, ProbeWarning
 from .evidence import Evidence, ModelRun
 from .flips import flip_test
 from .flips.context import refuse_fixed_scores
-from .metrics import resolve_favorable
 from .groups import group_metrics
+from .metrics import resolve_favorable
 from .plan import Plan
 from .policy import judge, measure
 from .proxies import find_proxies
-from .threads import limited
 from .slices import find_slices
+from .threads import limited
 
 __all__ = ["run_plan", "prepare", "Progress"]
 

@@ -11,8 +11,8 @@ from ..data import close_names
 from ..encode import Encoding, encode_columns
 from ..errors import DataError, PlanError
 from ..metrics import as_binary, get_metric
-from ..values import as_rng
 from ..options import SliceOptions, check_option, coerce_option, option_fields
+from ..values import as_rng
 from .findings import SliceFindings
 from .search import Inputs, run
 

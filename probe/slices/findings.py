@@ -3,7 +3,6 @@ report's JSON objects, a table and one plain sentence per slice."""
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass, field
 from typing import Any
 
