@@ -12,7 +12,7 @@ from scipy import stats
 from scipy.special import expit
 from statsmodels.stats.proportion import proportion_confint
 
-from probe.errors import DataError, ModelError, PlanError
+from probe.errors import DataError, ModelError, PlanError, ProbeWarning
 from probe.proxies import find_proxies
 from probe.flips import (
     DIRECT_FLIP_CAUTION,
@@ -183,8 +183,9 @@ def test_favorable_negative_swaps_the_directions():
 def test_direct_does_not_apply_when_attribute_is_not_an_input():
     X = _credit()
     model = Wrapped(lambda f: expit((f["income"] - 50) / 5), ["income", "debt"])
-    res = flip_test(model, X, "sex")
-    assert res.rows == ()
+    with pytest.warns(ProbeWarning, match="not a model input"):
+        res = flip_test(model, X, "sex")
+    assert res.rows == () and not res.applies
     assert any("not a model input" in n for n in res.notes)
     # the report gets one row saying why, with no estimate (never a made-up zero)
     (row,) = res.to_dict()
@@ -898,8 +899,6 @@ def test_a_column_model_is_refused_for_flips():
 
 
 def test_a_direct_flip_of_a_non_input_warns_and_says_it_does_not_apply():
-    from probe.errors import ProbeWarning
-
     with pytest.warns(ProbeWarning, match="not a model input"):
         res = flip_test(_LinearModel(), _hardening_frame(), "group", mode="direct")
     assert not res.applies and "not a model input" in res.not_applicable and res.rows == ()
