@@ -22,6 +22,9 @@ _NATIVE = 1  # threads per native pool, for the same reason (measured: DEVELOPER
 @contextmanager
 def limited():
     """Run the body with OpenMP and BLAS pools capped at one thread each."""
+    # a native pool loaded after the limit is set escapes it: load scikit-learn's first
+    import sklearn.ensemble  # noqa: F401
+    import sklearn.neighbors  # noqa: F401
     from threadpoolctl import threadpool_limits
 
     with threadpool_limits(limits=_NATIVE):
