@@ -89,8 +89,10 @@ def versions() -> dict:
 
 
 def provenance(plan, *, command: str | None, timings: dict, model: dict | None,
-               data: dict) -> dict:
-    """What an auditor needs to reproduce the run: inputs, their hashes, the plan, seed, versions."""
+               data: dict, favorable: tuple[str, bool] | None = None) -> dict:
+    """What an auditor needs to reproduce the run: inputs, their hashes, the plan, seed, versions.
+
+    ``favorable`` is the reading used and whether the plan stated it (None without a model)."""
     return {
         "probe_version": __version__,
         "created": datetime.now(timezone.utc).isoformat(timespec="seconds"),
@@ -98,7 +100,8 @@ def provenance(plan, *, command: str | None, timings: dict, model: dict | None,
         "seed": plan.seed,
         "confidence_level": plan.confidence_level,
         "threshold": plan.model.threshold if plan.model else None,
-        "favorable": plan.model.favorable if plan.model else None,
+        "favorable": favorable[0] if favorable else None,
+        "favorable_stated": favorable[1] if favorable else None,
         "model": model,
         "data": data,
         "plan": plan.to_dict(),

@@ -1,6 +1,8 @@
-"""Quantile bin edges that a person can read: each edge the roundest number near its quantile.
+"""Bins and conditions a person can read: quantile edges at the roundest number near each quantile,
+and the one wording of a bin or a conjunction of conditions.
 
-Used by the one encoder (:mod:`probe.encode`) for every numeric column it cuts into bins.
+Used by the one encoder (:mod:`probe.encode`) for every numeric column it cuts into bins, by the
+slice and flip reports for their conditions, and for binned protected attributes.
 """
 
 from __future__ import annotations
@@ -8,9 +10,15 @@ from __future__ import annotations
 import math
 
 import numpy as np
+import pandas as pd
 
-__all__ = ["quantile_edges", "fmt_number"]
+from .data import is_numeric
+from .errors import DataError, PlanError
 
+__all__ = ["quantile_edges", "fmt_number", "edge_texts", "bin_labels", "conjunction",
+           "MAX_NUMERIC_GROUPS", "parse_bins", "group_view"]
+
+_LABEL_DIGITS = 3  # significant figures of a cut-point in a label (more where two would collide)
 _EDGE_WINDOW = 0.05  # an edge may move this share of a bin's rows (over the bins) to become round
 
 
@@ -88,10 +96,18 @@ def _round_edge(below: float, edge: float) -> float:
     return edge
 
 
-def fmt_number(v: float) -> str:
+def fmt_number(v: float, digits: int | None = None) -> str:
+    """A number as a label shows it: thousands separators, no trailing zeros; with ``digits``, the
+    fraction rounded to that many significant figures (the whole part is never rounded)."""
     v = float(v)
+    if not math.isfinite(v):
+        return str(v)
     if v != 0 and abs(v) < 1e-4:
-        return f"{v:.3g}"
+        return f"{v:.{digits or 3}g}"
+    if digits is not None and v != int(v):
+        whole_digits = math.floor(math.log10(abs(v))) + 1 if abs(v) >= 1 else 0
+        lead = 0 if abs(v) >= 1 else -math.floor(math.log10(abs(v))) - 1  # zeros after the point
+        v = round(v, max(0, digits - whole_digits) + lead)
     if v == int(v) and abs(v) < 1e15:
         return f"{int(v):,}"
     text = np.format_float_positional(v, trim="-")
@@ -99,3 +115,121 @@ def fmt_number(v: float) -> str:
     sign = "-" if whole.startswith("-") else ""
     whole = f"{int(whole.lstrip('-') or 0):,}"
     return f"{sign}{whole}.{frac}" if frac else f"{sign}{whole}"
+
+
+def edge_texts(edges) -> list[str]:
+    """The cut-points of one column as labels show them: three significant figures, more only where
+    two edges would otherwise read the same."""
+    for digits in range(_LABEL_DIGITS, 18):
+        texts = [fmt_number(e, digits) for e in edges]
+        if len(set(texts)) == len(texts):
+            return texts
+    return [fmt_number(e) for e in edges]
+
+
+def bin_labels(name: str, edges) -> list[str]:
+    """The label of each bin ``[e_j, e_{j+1})`` cut at ``edges`` (sorted): ``age < 25``,
+    ``age in [25, 40)``, ``age >= 60``. Every numeric condition probe writes (slices, the flips'
+    breakdown, binned protected attributes) is worded here."""
+    texts = edge_texts(edges)
+    if not texts:
+        return [f"{name} (all values)"]
+    out = [f"{name} < {texts[0]}"]
+    out += [f"{name} in [{lo}, {hi})" for lo, hi in zip(texts[:-1], texts[1:])]
+    return out + [f"{name} >= {texts[-1]}"]
+
+
+def conjunction(labels) -> str:
+    """Conditions that hold together, as one label: ``age < 25 and region = north``."""
+    return " and ".join(labels)
+
+
+# ---------------------------------------------------------------------------------------------
+# numeric protected attributes: bands as groups
+
+MAX_NUMERIC_GROUPS = 10
+"""A numeric protected attribute with more distinct values than this must be binned (``bins``)."""
+
+_BINS_FIX = ("bin it: --bins {a}=25:40:60 (edges) or --bins {a}=4 (quantile bins); plan: "
+             "[data] bins = {{ {a} = [25, 40, 60] }} or {{ {a} = 4 }}")
+
+
+def parse_bins(value, where: str = "data.bins") -> dict | None:
+    """``bins`` in its plan form ``{column: edges or count}``, from the plan's table or the flag's
+    ``A=25:40:60,B=4`` text (one edge: ``A=40:``): edges a strictly increasing tuple of finite
+    numbers, a count an integer of at least 2 (quantile bins at round edges)."""
+    if value is None or value == {} or value == "":
+        return None
+    if isinstance(value, str):
+        value = [value]
+    if isinstance(value, (list, tuple)):  # from the command line: "A=25:40:60,B=4" (repeatable)
+        parsed = {}
+        for entry in (e.strip() for v in value for e in str(v).split(",") if e.strip()):
+            name, sep, spec = entry.partition("=")
+            if not sep or not name.strip() or not spec.strip():
+                raise PlanError(f"`{where}` entries are COLUMN=EDGES (25:40:60) or COLUMN=COUNT, "
+                                f"got {entry!r}")
+            try:
+                nums = [float(t) for t in spec.split(":") if t.strip()]
+            except ValueError:
+                raise PlanError(f"`{where}`: {entry!r} holds something that is not a number") from None
+            parsed[name.strip()] = nums if ":" in spec else (
+                int(nums[0]) if nums[0].is_integer() else nums[0])
+        value = parsed
+    if not isinstance(value, dict):
+        raise PlanError(f"`{where}` must be a table {{ column = [edges] or count }}, got {value!r}")
+    out = {}
+    for name, spec in value.items():
+        if isinstance(spec, (list, tuple)):
+            if not spec or not all(isinstance(e, (int, float)) and not isinstance(e, bool)
+                                    and math.isfinite(e) for e in spec) \
+                    or any(b <= a for a, b in zip(spec, spec[1:])):
+                raise PlanError(f"`{where}.{name}` edges must be finite numbers in increasing "
+                                f"order, got {list(spec)!r}")
+            out[str(name)] = tuple(float(e) for e in spec)
+        elif isinstance(spec, int) and not isinstance(spec, bool) and 2 <= spec <= 20:
+            out[str(name)] = spec
+        else:
+            raise PlanError(f"`{where}.{name}` must be a list of edges or a number of quantile bins "
+                            f"from 2 to 20, got {spec!r}")
+    return out
+
+
+def group_view(frame: pd.DataFrame, columns, bins: dict | None) -> pd.DataFrame:
+    """``frame`` with each binned column of ``columns`` replaced by its bands (an ordered
+    categorical of :func:`bin_labels`, missing kept missing), wherever that column is a group:
+    groups, intersections, the flips' source groups, the proxies' target. ``frame`` itself is not
+    modified. A numeric column of ``columns`` with more than :data:`MAX_NUMERIC_GROUPS` distinct
+    values and no bins is a :class:`~probe.errors.DataError` with the fix."""
+    bins = bins or {}
+    columns = list(dict.fromkeys(columns))
+    stray = [b for b in bins if b not in columns]
+    if stray:
+        raise PlanError(f"`data.bins` names `{stray[0]}`, which is not a protected attribute or an "
+                        "intersection column")
+    banded = {}
+    for name in columns:
+        col = frame[name]
+        if name in bins:
+            if not is_numeric(col):
+                raise DataError(f"`data.bins` bins `{name}`, which is not numeric")
+            banded[name] = _bands(col, name, bins[name])
+        elif is_numeric(col) and col.nunique() > MAX_NUMERIC_GROUPS:
+            raise DataError(f"protected attribute `{name}` is numeric with {col.nunique()} "
+                            f"distinct values (more than {MAX_NUMERIC_GROUPS} groups); "
+                            + _BINS_FIX.format(a=name))
+    return frame.assign(**banded) if banded else frame
+
+
+def _bands(col: pd.Series, name: str, spec) -> pd.Categorical:
+    x = col.to_numpy(dtype=float, na_value=np.nan)
+    present = ~np.isnan(x)
+    if np.isinf(x[present]).any():
+        raise DataError(f"column `{name}` has infinite values; replace them before binning it")
+    srt = np.sort(x[present])
+    if len(np.unique(srt)) < 2:
+        raise DataError(f"protected attribute `{name}` has fewer than two values to bin")
+    edges = list(spec) if isinstance(spec, tuple) else quantile_edges(srt, spec)
+    codes = np.where(present, np.searchsorted(np.asarray(edges), np.where(present, x, 0.0),
+                                              side="right"), -1)
+    return pd.Categorical.from_codes(codes, categories=bin_labels(name, edges), ordered=True)

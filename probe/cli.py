@@ -60,6 +60,8 @@ def _common(p: argparse.ArgumentParser, *, model: bool = True, label: bool = Tru
                             "or column:NAME")
         add_flags(g, ModelOptions)
         add_flags(g, DataOptions)
+    else:
+        add_flags(g, DataOptions, skip=("features", "reference_groups"))
     g.add_argument("--protected", metavar="A,B,...", help="protected attribute columns")
     g.add_argument("--intersection", action="append", default=[], metavar="A,B",
                    help="report the joint groups of these columns (repeatable)")
@@ -206,8 +208,8 @@ def _plan_dict(args) -> dict:
         raise ProbeError(f"probe {args.command}: --protected names the attribute(s) to "
                          f"{_VERB[args.command]} (e.g. --protected sex,age_band); none given")
     raw: dict = {"name": args.command, "data": data}
+    data.update(flag_values(args, DataOptions))
     if getattr(args, "model", None):
-        data.update(flag_values(args, DataOptions))
         raw["model"] = {"spec": args.model, **flag_values(args, ModelOptions)}
     if args.command == "slices":
         raw["slices"] = flag_values(args, SliceOptions)

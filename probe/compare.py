@@ -21,6 +21,7 @@ from .options import SliceOptions
 from .paired import paired_difference
 from .slices import search_slices
 from .stats import Estimate, mcnemar_pvalue, wilson
+from .values import json_number
 
 __all__ = ["MetricComparison", "Comparison", "compare_models"]
 
@@ -80,7 +81,7 @@ class MetricComparison:
         return {"metric": self.metric, "rows": self.rows, "candidate": self.candidate.to_dict(),
                 "baseline": self.baseline.to_dict(), "difference": self.difference.to_dict(),
                 "shortfall": self.shortfall.to_dict(),
-                "p_value": self.p_value, "test": "mcnemar-exact",
+                "p_value": json_number(self.p_value), "test": "mcnemar-exact",
                 "discordant": list(self.discordant),
                 "worse_if": get_metric(self.metric).worse}
 
@@ -139,7 +140,7 @@ class Comparison:
         keep = {s.rank for s in self.worse}
         worse = [{**s, "sentence": _worse_sentence(s, self.metric, self.confidence_level)}
                  for s in found["found"] if s["rank"] in keep]
-        return {"metric": self.metric, "agreement": self.agreement,
+        return {"metric": self.metric, "agreement": json_number(self.agreement),
                 "overall": self.overall.to_dict(),
                 "metrics": [m.to_dict() for m in self.metrics],
                 "worse_search": {k: v for k, v in found.items() if k != "found"},

@@ -8,6 +8,7 @@ whose message names the file, the column and the offending values or rows, and s
 
 from __future__ import annotations
 
+import csv
 import difflib
 import hashlib
 from dataclasses import dataclass, field
@@ -20,7 +21,7 @@ import pandas as pd
 from .errors import DataError
 
 __all__ = ["read_table", "sha256_file", "prepare_holdout", "Holdout", "close_names", "rows_text",
-           "require_finite", "is_numeric", "attribute_levels", "MAX_LEVELS"]
+           "require_finite", "is_numeric", "attribute_levels", "MAX_LEVELS", "MISSING_TOKENS"]
 
 _READERS = {
     ".csv": "csv",
@@ -104,8 +105,18 @@ def require_finite(frame: pd.DataFrame, columns: Sequence[str]) -> None:
                                 f"({rows_text(bad)}); replace them or leave the column out")
 
 
+MISSING_TOKENS = ("NA", "N/A", "n/a", "NaN", "nan", "-nan", "NULL", "null", "None", "<NA>", "#N/A")
+"""Words that mean a missing value in a CSV/TSV column whose other values are all numbers. In a column
+of text they are values (``NA`` is a continent, an initial); an empty field is missing everywhere."""
+
+
 def read_table(path: str | Path) -> pd.DataFrame:
     """Read a CSV, TSV, Parquet or Feather file into a DataFrame.
+
+    Missing values in CSV/TSV: an empty field is missing in every column. The words of
+    :data:`MISSING_TOKENS` (``NA``, ``N/A``, ``NaN``, ``null``, ``None`` ...) are missing only in a
+    column whose other values are all numbers (the column is then numeric); in any other column they
+    are values like the rest, so a continent ``NA`` stays a group of its own.
 
     Parameters
     ----------
@@ -120,7 +131,8 @@ def read_table(path: str | Path) -> pd.DataFrame:
     Raises
     ------
     DataError
-        The file is missing, has an unknown suffix, cannot be parsed, or holds no rows.
+        The file is missing, has an unknown suffix, cannot be parsed, holds no rows, or has two
+        columns of the same name.
     """
     path = Path(path)
     if not path.is_file():
@@ -135,14 +147,17 @@ def read_table(path: str | Path) -> pd.DataFrame:
             f"expected one of {', '.join(sorted(_READERS))}"
         )
     try:
-        if kind == "csv":
-            frame = pd.read_csv(path)
-        elif kind == "tsv":
-            frame = pd.read_csv(path, sep="\t")
+        _refuse_duplicates(path, _header(path, kind))
+        if kind in ("csv", "tsv"):
+            frame = pd.read_csv(path, sep="\t" if kind == "tsv" else ",",
+                                keep_default_na=False, na_values=[""])
+            frame = _numeric_with_tokens(frame)
         elif kind == "parquet":
             frame = pd.read_parquet(path)
         else:
             frame = pd.read_feather(path)
+    except DataError:
+        raise
     except pd.errors.EmptyDataError:
         raise DataError(f"data file `{path}` is empty") from None
     except (ValueError, OSError, pd.errors.ParserError) as exc:
@@ -151,6 +166,45 @@ def read_table(path: str | Path) -> pd.DataFrame:
     if len(frame) == 0:
         raise DataError(f"data file `{path}` has a header but no rows")
     return frame
+
+
+def _header(path: Path, kind: str) -> list[str]:
+    """The column names as the file holds them (before any reader could rename a duplicate)."""
+    if kind in ("csv", "tsv"):
+        with open(path, newline="", encoding="utf-8-sig", errors="replace") as fh:
+            return next(csv.reader(fh, delimiter="\t" if kind == "tsv" else ","), [])
+    import pyarrow.ipc as ipc
+    import pyarrow.parquet as pq
+
+    try:
+        schema = pq.read_schema(path) if kind == "parquet" else ipc.open_file(path).schema
+    except Exception:  # noqa: BLE001 - not readable here: the reader says why, in its own words
+        return []
+    return list(schema.names)
+
+
+def _refuse_duplicates(path: Path, names: Sequence[str]) -> None:
+    twice = sorted({n for n in names if list(names).count(n) > 1})
+    if twice:
+        raise DataError(f"data file `{path}` has more than one column named "
+                        + ", ".join(f"`{n}`" for n in twice) + "; rename them first")
+
+
+def _numeric_with_tokens(frame: pd.DataFrame) -> pd.DataFrame:
+    """Text columns whose values are numbers and :data:`MISSING_TOKENS` become numeric, the tokens
+    missing; any other column keeps the tokens as values."""
+    out = {}
+    for name in frame.columns:
+        col = frame[name]
+        if not (col.dtype == object or pd.api.types.is_string_dtype(col.dtype)):
+            continue
+        token = col.isin(MISSING_TOKENS).to_numpy()
+        if not token.any() or token.all():
+            continue
+        numbers = pd.to_numeric(col.where(~token), errors="coerce")
+        if int(numbers.isna().sum()) == int((token | col.isna().to_numpy()).sum()):
+            out[name] = numbers
+    return frame.assign(**out) if out else frame
 
 
 @dataclass(frozen=True)

@@ -28,7 +28,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from .bins import fmt_number, quantile_edges
+from .bins import bin_labels, fmt_number, quantile_edges
 from .data import attribute_levels, close_names, is_numeric
 from .errors import DataError, PlanError
 
@@ -385,17 +385,10 @@ def _bin(name, x, missing, bins, srt):
     else:
         codes = np.searchsorted(np.asarray(edges, dtype=float), np.where(missing, 0.0, x),
                                 side="right").astype(dtype)
-    labels, preds = [], []
+    labels = bin_labels(name, edges)
     bounds = [None] + [int(e) if e == int(e) and abs(e) < 2**53 else e for e in edges] + [None]
-    for j in range(len(edges) + 1):
-        lo, hi = bounds[j], bounds[j + 1]
-        if lo is None:
-            labels.append(f"{name} < {fmt_number(hi)}")
-        elif hi is None:
-            labels.append(f"{name} >= {fmt_number(lo)}")
-        else:
-            labels.append(f"{name} in [{fmt_number(lo)}, {fmt_number(hi)})")
-        preds.append({"column": name, "op": "in", "value": [lo, hi]})
+    preds = [{"column": name, "op": "in", "value": [lo, hi]}
+             for lo, hi in zip(bounds[:-1], bounds[1:])]
     if has_missing:
         codes[missing] = len(labels)
         labels.append(f"{name} is missing")

@@ -78,6 +78,9 @@ class Evidence:
         True when the positive decision is the favourable one.
     weights : ndarray of float64
         Row weights (all ones unless given), read-only.
+    groups : pandas.DataFrame
+        The frame as the groups see it: a binned protected attribute as its bands
+        (:func:`probe.bins.group_view`); default the frame itself.
     """
 
     holdout: Holdout
@@ -87,10 +90,13 @@ class Evidence:
     threshold: float = 0.5
     favorable: bool = True
     weights: np.ndarray = None
+    groups: pd.DataFrame = None
     _cache: dict = field(default_factory=dict, repr=False, compare=False)
 
     def __post_init__(self):
         object.__setattr__(self, "favorable", as_favorable(self.favorable))
+        if self.groups is None:
+            object.__setattr__(self, "groups", self.holdout.frame)
         if self.weights is None:
             object.__setattr__(self, "weights", _read_only(np.ones(len(self.holdout.frame))))
 

@@ -35,6 +35,7 @@ from .encode import attribute_codes
 from .errors import DataError, DegenerateWarning
 from .metrics import FOUR_FIFTHS, as_favorable, favorable_decision
 from .stats import Estimate, newcombe_interval, ratio_interval, wilson_interval
+from .values import json_number
 
 __all__ = ["GAP_RATES", "GroupRow", "GroupMetrics", "group_metrics", "four_fifths_flag"]
 _RATES = ("selection_rate", "error_rate", "tpr", "fpr", "fnr", "ppv")
@@ -127,7 +128,7 @@ class GroupRow:
 
     def to_dict(self) -> dict:
         out = {"attribute": self.attribute, "group": self.group, "rows": self.rows,
-               "share": self.share, "small": self.small}
+               "share": json_number(self.share), "small": self.small}
         for name in _RATES:
             out[name] = getattr(self, name).to_dict()
         out.update(impact_ratio=self.impact_ratio.to_dict(), reference_group=self.reference_group,

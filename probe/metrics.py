@@ -13,11 +13,14 @@ selection   the favourable decision         all rows              lower
 ==========  ==============================  ====================  ==============
 
 The favourable decision is set once per run (``favorable``: the positive decision by default, the
-negative one for, e.g., a fraud flag where "not flagged" is what a person wants).
+negative one for, e.g., a fraud flag where "not flagged" is what a person wants). A run that does not
+state it, on a label that reads as adverse (``denied``, ``default``), is refused
+(:func:`resolve_favorable`): the default reading would invert every selection rate.
 """
 
 from __future__ import annotations
 
+import re
 from dataclasses import dataclass
 from fractions import Fraction
 
@@ -26,7 +29,7 @@ import numpy as np
 from .errors import DataError, PlanError
 
 __all__ = ["FOUR_FIFTHS", "Metric", "METRICS", "METRIC_NAMES", "get_metric", "as_favorable", "as_binary",
-           "metric_outcome", "favorable_decision"]
+           "metric_outcome", "favorable_decision", "ADVERSE_WORDS", "resolve_favorable"]
 
 
 FOUR_FIFTHS = Fraction(4, 5)
@@ -114,6 +117,36 @@ def as_favorable(favorable) -> bool:
     if favorable in (True, False, 0, 1):
         return bool(favorable)
     raise PlanError(f"`favorable` must be True/False or 'positive'/'negative', got {favorable!r}")
+
+
+ADVERSE_WORDS = ("deny", "denied", "denial", "decline", "reject", "refus", "default", "fraud", "bad",
+                 "churn", "delinquen", "chargeoff", "writeoff", "arrear", "foreclos", "bankrupt",
+                 "evict", "recidiv", "rearrest", "fail", "risk", "flag")
+"""Word parts that make a label (or its positive value) read as an adverse outcome: a part of the
+name (split at anything not a letter and at lower-to-upper case changes) that starts with one of
+them, case-insensitively (``loan_denied``, ``isDefault``, ``charge-off``)."""
+
+
+def _adverse_word(text) -> str | None:
+    """The first entry of :data:`ADVERSE_WORDS` that a word part of ``text`` starts with."""
+    spaced = re.sub(r"(?<=[a-z])(?=[A-Z])", " ", str(text))
+    parts = [p.lower() for p in re.split(r"[^A-Za-z]+", spaced) if p]
+    parts += [a + b for a, b in zip(parts, parts[1:])]  # charge-off, write off
+    return next((w for p in parts for w in ADVERSE_WORDS if p.startswith(w)), None)
+
+
+def resolve_favorable(favorable, label, positive) -> tuple[str, bool]:
+    """The favourable decision of a run and whether it was stated: ``(favorable, True)`` as given,
+    else ``("positive", False)`` unless the label's name or its positive value reads as an adverse
+    outcome (:data:`ADVERSE_WORDS`), which is a :class:`~probe.errors.PlanError` asking which."""
+    if favorable is not None:
+        return favorable, True
+    if label and (_adverse_word(label) or (isinstance(positive, str) and _adverse_word(positive))):
+        raise PlanError(
+            f"label `{label}` (positive value {positive!r}) reads as an adverse outcome, so the "
+            "favourable decision is probably the negative one; say which: --favorable negative "
+            "(or --favorable positive to keep the default reading; plan: `favorable` in [model])")
+    return "positive", False
 
 
 def favorable_decision(decision, favorable) -> np.ndarray:

@@ -171,9 +171,15 @@ class DataOptions(_Checked):
                                             help="fix an attribute's reference group for the impact "
                                                  "ratio (default: the most-favoured group, allowed "
                                                  "for in the intervals)")
+    bins: Any = opt(None, metavar="ATTR=25:40:60|ATTR=4",
+                    help="bands of a numeric protected attribute: edges, or a number of quantile "
+                         "bins (comma-separated for several)")
 
     def __post_init__(self):
         super().__post_init__()
+        from .bins import parse_bins
+
+        object.__setattr__(self, "bins", parse_bins(self.bins))
         for entry in self.reference_groups:
             attribute, sep, level = entry.partition("=")
             if not sep or not attribute.strip() or not level.strip():
@@ -194,8 +200,9 @@ class ModelOptions(_Checked):
     spec: str = opt(help="model file, py:module:attr, cmd:COMMAND, http://127.0.0.1:PORT/PATH or "
                          "column:NAME", required=True, cli=False)
     threshold: float = opt(0.5, lo=0.0, hi=1.0, help="decision = score >= T")
-    favorable: str = opt("positive", choices=("positive", "negative"),
-                         help="which decision is the favourable outcome")
+    favorable: str | None = opt(None, choices=("positive", "negative"),
+                                help="which decision is the favourable outcome (default: "
+                                     "positive, unless the label reads as adverse: then say)")
     positive_class: Any = opt(None, metavar="VALUE",
                               help="the model's class that means the label's positive value (when "
                                    "the model's classes and the label's values differ)")
@@ -227,7 +234,8 @@ class SliceOptions(_Checked):
     depth: int = opt(3, lo=1, hi=4, help="largest number of conditions")
     min_rows: int | None = opt(None, lo=2, help="smallest slice, in rows of the metric's "
                                                 "population (default: by the data's size)")
-    bins: int = opt(5, lo=2, hi=20, help="quantile bins per numeric column")
+    bins: int = opt(5, lo=2, hi=20, flag="--slice-bins",
+                    help="quantile bins per numeric column")
     top: int = opt(10, lo=1, hi=1000, help="slices to report")
     max_share: float = opt(0.5, lo=0.0, hi=1.0, help="largest share of the rows a slice may hold "
                                                       "(slices are sub-groups)")

@@ -11,23 +11,30 @@ order and times them. It never prints; progress goes through the optional callba
 from __future__ import annotations
 
 import time
+import warnings
 from contextlib import contextmanager
 from dataclasses import replace
 from typing import Callable
 
+import pandas as pd
+
 from .adapters import load_model
 from .assemble import Findings, assemble_report, provenance
+from .bins import group_view
 from .compare import compare_models
 from .data import close_names, prepare_holdout, read_table, sha256_file
 from .encode import encode_columns
-from .errors import DataError
+from .errors import DataError, ProbeWarning
 from .evidence import Evidence, ModelRun
 from .flips import flip_test
+from .flips.context import refuse_fixed_scores
 from .groups import group_metrics
+from .metrics import resolve_favorable
 from .plan import Plan
 from .policy import judge, measure
 from .proxies import find_proxies
 from .slices import find_slices
+from .threads import limited
 
 __all__ = ["run_plan", "prepare", "Progress"]
 
@@ -86,8 +93,12 @@ def prepare(plan: Plan, *, clock: _Clock | None = None, progress: Progress | Non
                                   protected=d.protected, intersections=d.intersections,
                                   source=str(path), sha256=sha256_file(path))
     frame = holdout.frame
+    groups = group_view(frame, _group_columns(holdout.protected, holdout.intersections), d.bins)
+    favorable, _ = resolve_favorable(plan.model.favorable, holdout.label, holdout.positive)
     with clock.step("load model"):
         model = _load(plan, plan.model.spec, holdout, pinned=True)
+    if plan.flips is not None:
+        refuse_fixed_scores(model)  # before the scoring and every other analysis
     # the model never sees the label, even when it reads the whole frame (py:, cmd:, http:)
     inputs = frame.drop(columns=[holdout.label]) if holdout.label else frame
     threshold = plan.model.threshold
@@ -105,7 +116,12 @@ def prepare(plan: Plan, *, clock: _Clock | None = None, progress: Progress | Non
         encoding = encode_columns(frame, columns=s.columns,
                                   exclude=_never_sliced(plan, holdout.label, model), bins=s.bins)
     return Evidence(holdout, inputs, runs, encoding, threshold=threshold,
-                    favorable=plan.model.favorable)
+                    favorable=favorable, groups=groups)
+
+
+def _group_columns(protected, intersections) -> list:
+    """The columns that define groups: the protected attributes and the intersections' columns."""
+    return list(dict.fromkeys([*protected, *(c for combo in intersections for c in combo)]))
 
 
 def run_plan(plan: Plan, *, command: str | None = None, progress: Progress | None = None) -> dict:
@@ -126,15 +142,20 @@ def run_plan(plan: Plan, *, command: str | None = None, progress: Progress | Non
         ``slices``, ``flips``, ``proxies``, ``comparison``; sections not run are None.
     """
     clock = _Clock()
-    if plan.model is None:
-        return _run_proxies_only(plan, command, clock)
+    with limited():  # every estimator and BLAS/OpenMP pool of the run, the model's included
+        if plan.model is None:
+            return _run_proxies_only(plan, command, clock, progress)
+        return _run(plan, command, clock, progress)
+
+
+def _run(plan: Plan, command, clock: _Clock, progress) -> dict:
     ev = prepare(plan, clock=clock, progress=progress)
     found = Findings()
     cl, seed = plan.confidence_level, plan.seed
     h = ev.holdout
     if ev.y_true is not None and (h.protected or h.intersections):
         with clock.step("groups"):
-            found.groups = group_metrics(ev.frame, ev.y_true, ev.decision(),
+            found.groups = group_metrics(ev.groups, ev.y_true, ev.decision(),
                                          attributes=h.protected, intersections=h.intersections,
                                          favorable=ev.favorable, confidence_level=cl,
                                          reference=plan.data.references)
@@ -148,7 +169,8 @@ def run_plan(plan: Plan, *, command: str | None = None, progress: Progress | Non
         with clock.step("proxies"):
             attributes = _attributes(plan.proxies.attributes, h.protected, "proxies", ev.frame)
             found.proxies = [_ranking(plan, ev.frame, a, ev.model().feature_names, h.label,
-                                      h.protected, rankings) for a in attributes]
+                                      h.protected, rankings, ev.groups, progress)
+                             for a in attributes]
     if plan.flips is not None:
         with clock.step("flips"):
             found.flips = _flips(plan, ev, rankings, progress)
@@ -166,7 +188,8 @@ def run_plan(plan: Plan, *, command: str | None = None, progress: Progress | Non
                            comparison=found.comparison, confidence_level=cl)
         verdict = judge(measured, plan.policy, confidence_level=cl)
     prov = provenance(plan, command=command, timings=clock.timings,
-                      model=ev.model().describe(), data=h.describe())
+                      model=ev.model().describe(), data=h.describe(),
+                      favorable=resolve_favorable(plan.model.favorable, h.label, h.positive))
     return assemble_report(found, verdict, prov)
 
 
@@ -182,8 +205,10 @@ def _attributes(asked, protected, section: str, frame) -> tuple:
     return tuple(attributes)
 
 
-def _ranking(plan: Plan, frame, attribute, model_features, label, protected, rankings: dict):
-    """The proxy ranking of one attribute, computed once per run (the table and transport share it)."""
+def _ranking(plan: Plan, frame, attribute, model_features, label, protected, rankings: dict,
+             groups, progress: Progress | None = None):
+    """The proxy ranking of one attribute, computed once per run (the table and transport share it);
+    the attribute as the groups see it (its bands when binned), the features as they are."""
     if attribute not in rankings:
         features = (plan.proxies.features if plan.proxies else None) or model_features
         if features:
@@ -193,9 +218,12 @@ def _ranking(plan: Plan, frame, attribute, model_features, label, protected, ran
             features = [c for c in frame.columns if c not in skip]
         # the multivariate check runs only for the attributes the proxies table shows
         shown = (plan.proxies.attributes or protected) if plan.proxies else ()
+        if groups is not frame and attribute in groups.columns:
+            frame = frame.assign(**{attribute: groups[attribute]})
         rankings[attribute] = find_proxies(frame, attribute, features=features,
                                            confidence_level=plan.confidence_level, rng=plan.seed,
-                                           multivariate=attribute in shown)
+                                           multivariate=attribute in shown,
+                                           progress=_bar(progress, f"proxies of {attribute}"))
     return rankings[attribute]
 
 
@@ -211,17 +239,35 @@ def _flips(plan: Plan, ev: Evidence, rankings: dict, progress) -> list:
         ranking = None
         if mode == "transport" and f.proxies is None:
             ranking = _ranking(plan, ev.frame, attribute, ev.model().feature_names,
-                               ev.holdout.label, ev.holdout.protected, rankings)
-        out.append(flip_test(ev.model(), ev.inputs, attribute, options=f, mode=mode,
-                             threshold=ev.threshold, favorable=ev.favorable,
-                             confidence_level=plan.confidence_level, rng=plan.seed,
-                             scores=ev.scores(), encoding=ev.encoding, proxy_ranking=ranking))
+                               ev.holdout.label, ev.holdout.protected, rankings, ev.groups)
+        with warnings.catch_warnings():  # the report states it: the row that does not apply
+            warnings.filterwarnings("ignore", message=".*direct flip does not apply",
+                                    category=ProbeWarning)
+            out.append(flip_test(ev.model(), _flip_frame(ev, attribute, mode), attribute,
+                                 options=f, mode=mode,
+                                 threshold=ev.threshold, favorable=ev.favorable,
+                                 confidence_level=plan.confidence_level, rng=plan.seed,
+                                 scores=ev.scores(), encoding=ev.encoding, proxy_ranking=ranking))
     if tick:
         tick(len(jobs), len(jobs))
     return out
 
 
-def _run_proxies_only(plan: Plan, command, clock: _Clock) -> dict:
+def _flip_frame(ev: Evidence, attribute: str, mode: str):
+    """The model's inputs with a binned attribute as its bands (its groups); a flip that would
+    set a band as the value of a model input cannot be scored, so it is refused."""
+    if ev.groups is ev.frame or not isinstance(ev.groups[attribute].dtype, pd.CategoricalDtype) \
+            or isinstance(ev.frame[attribute].dtype, pd.CategoricalDtype):
+        return ev.inputs
+    banded = ev.groups[attribute]
+    names = ev.model().feature_names
+    if mode != "twins" and (names is None or attribute in names):
+        raise DataError(f"{mode} flips of `{attribute}` would set a band (a binned value) as a "
+                        "model input, which cannot be scored; flip it with --mode twins")
+    return ev.inputs.assign(**{attribute: banded})
+
+
+def _run_proxies_only(plan: Plan, command, clock: _Clock, progress) -> dict:
     """``probe proxies``: no model, no label needed."""
     with clock.step("load data"):
         path = plan.resolve(plan.data.path)
@@ -232,10 +278,16 @@ def _run_proxies_only(plan: Plan, command, clock: _Clock) -> dict:
     if label and label not in frame.columns:
         raise DataError(f"label column `{label}` is not in `{path}`"
                         + close_names(label, list(frame.columns)))
+    if not label and not plan.proxies.features:
+        raise DataError("proxies need to know the label so that it is not ranked as a proxy: "
+                        "name it with --label COL (plan: `label` in [data]), or name the candidate "
+                        "features with --features A,B (plan: `features` in [proxies])")
     found = Findings()
     with clock.step("proxies"):
         attributes = _attributes(plan.proxies.attributes, protected, "proxies", frame)
-        found.proxies = [_ranking(plan, frame, a, None, label, protected, {}) for a in attributes]
+        groups = group_view(frame, attributes, plan.data.bins)
+        found.proxies = [_ranking(plan, frame, a, None, label, protected, {}, groups, progress)
+                         for a in attributes]
     verdict = judge(measure(), plan.policy, confidence_level=plan.confidence_level)
     prov = provenance(plan, command=command, timings=clock.timings, model=None, data=data)
     return assemble_report(found, verdict, prov)

@@ -88,7 +88,7 @@ class Plan:
 
     @property
     def favorable(self) -> bool:
-        return self.model is None or self.model.favorable == "positive"
+        return self.model is None or self.model.favorable != "negative"
 
     def to_dict(self) -> dict:
         """The plan as plain data (JSON-ready), for provenance."""

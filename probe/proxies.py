@@ -46,6 +46,8 @@ from .data import attribute_levels, require_finite
 from .encode import encode_columns
 from .errors import DataError, PlanError
 from .stats import Estimate
+from .threads import N_JOBS, limited
+from .values import as_rng, json_number, report_level
 
 __all__ = ["find_proxies", "ProxyFindings", "ProxyRow"]
 
@@ -94,10 +96,10 @@ class ProxyRow:
             "feature": self.feature,
             "kind": self.kind,
             "levels": self.levels,
-            "mutual_information": _json(self.mutual_information),
-            "auc": _json(self.auc),
-            "importance": _json(self.importance),
-            "importance_sd": _json(self.importance_sd),
+            "mutual_information": json_number(self.mutual_information),
+            "auc": json_number(self.auc),
+            "importance": json_number(self.importance),
+            "importance_sd": json_number(self.importance_sd),
         }
 
 
@@ -136,7 +138,7 @@ class ProxyFindings:
     def to_dict(self) -> dict:
         return {
             "attribute": self.attribute,
-            "attribute_levels": [_plain(v) for v in self.attribute_levels],
+            "attribute_levels": [report_level(v) for v in self.attribute_levels],
             "rows_used": self.rows_used,
             "rows_dropped": self.rows_dropped,
             "multivariate_auc": None if self.multivariate_auc is None
@@ -162,6 +164,7 @@ def find_proxies(
     rng=0,
     max_rows: int = 50_000,
     multivariate: bool = True,
+    progress=None,
 ) -> ProxyFindings:
     """Rank the features of ``X`` by how well they stand in for ``attribute``.
 
@@ -183,7 +186,10 @@ def find_proxies(
         Rows beyond this are subsampled (seeded, without replacement).
     multivariate : bool, default=True
         Fit the multivariate model and permutation importances (the slow part); off, only the
-        single-feature measures are computed.
+        single-feature measures are computed. It runs with one thread per native pool
+        (:func:`probe.threads.limited`).
+    progress : callable, optional
+        ``progress(done, total)`` as the multivariate check's folds complete.
 
     Returns
     -------
@@ -206,9 +212,9 @@ def find_proxies(
     >>> find_proxies(X, "group", multivariate=False).top(1)
     ('postcode',)
     """
+    gen = as_rng(rng)
     frame, features, y, levels, dropped, notes = _find_proxies_iv(
         X, attribute, features, cv, n_repeats, confidence_level, max_rows)
-    gen = np.random.default_rng(rng)
     sub_seed, fold_seed, model_seed = (int(s) for s in gen.integers(0, 2**31 - 1, size=3))
 
     if len(y) > max_rows:
@@ -242,8 +248,9 @@ def find_proxies(
                 f"multivariate check skipped: the smallest level of `{attribute}` has "
                 f"{int(counts.min())} rows, fewer than cv={cv}")
         else:
-            m_auc, imp = _multivariate(frame, enc, y, n_levels, cv, n_repeats,
-                                       confidence_level, fold_seed, model_seed)
+            with limited():
+                m_auc, imp = _multivariate(frame, enc, y, n_levels, cv, n_repeats,
+                                           confidence_level, fold_seed, model_seed, progress)
 
     order = sorted(single, key=lambda r: (-_nan_low(r[4]), -_nan_low(r[3]), r[0]))
     rows = tuple(
@@ -324,7 +331,7 @@ def _design(frame, enc):
 
 
 def _multivariate(frame, enc, y, n_levels, cv, n_repeats, confidence_level, fold_seed,
-                  model_seed):
+                  model_seed, progress):
     from sklearn.ensemble import HistGradientBoostingClassifier
     from sklearn.inspection import permutation_importance
     from sklearn.metrics import roc_auc_score
@@ -335,18 +342,23 @@ def _multivariate(frame, enc, y, n_levels, cv, n_repeats, confidence_level, fold
     splitter = StratifiedKFold(n_splits=cv, shuffle=True, random_state=fold_seed)
     fold_aucs, drops = [], []
     for i, (train, test) in enumerate(splitter.split(Z, y)):
+        if progress:
+            progress(i, cv)
         est = HistGradientBoostingClassifier(
             categorical_features=is_cat if is_cat.any() else None, random_state=model_seed + i)
-        est.fit(Z[train], y[train])
-        proba = est.predict_proba(Z[test])
+        Z_train, Z_test = _fold_design(Z, train, test)
+        est.fit(Z_train, y[train])
+        proba = est.predict_proba(Z_test)
         if n_levels == 2:
             fold_aucs.append(roc_auc_score(y[test], proba[:, 1]))
         else:
             fold_aucs.append(roc_auc_score(y[test], proba, multi_class="ovr", average="macro",
                                            labels=np.arange(n_levels)))
-        pi = permutation_importance(est, Z[test], y[test], scoring=scoring, n_repeats=n_repeats,
-                                    random_state=model_seed + 1000 + i)
+        pi = permutation_importance(est, Z_test, y[test], scoring=scoring, n_repeats=n_repeats,
+                                    random_state=model_seed + 1000 + i, n_jobs=N_JOBS)
         drops.append(pi.importances)  # (n_features, n_repeats)
+    if progress:
+        progress(cv, cv)
     a = np.asarray(fold_aucs)
     mean = float(a.mean())
     half = float(_sps.t.ppf(0.5 + confidence_level / 2, cv - 1) * a.std(ddof=1) / math.sqrt(cv))
@@ -357,14 +369,18 @@ def _multivariate(frame, enc, y, n_levels, cv, n_repeats, confidence_level, fold
     return m_auc, imp
 
 
+def _fold_design(Z, train, test):
+    """A fold's training and test rows; a column with no value in the training rows (all missing
+    there) becomes a constant 0 in both, which is what it tells the model (the gradient boosting
+    cannot bin a column with no value)."""
+    Z_train, Z_test = Z[train], Z[test]
+    empty = np.isnan(Z_train).all(axis=0)
+    if empty.any():
+        Z_train[:, empty] = 0.0
+        Z_test[:, empty] = 0.0
+    return Z_train, Z_test
+
+
 def _nan_low(x):
     return -math.inf if x is None or (isinstance(x, float) and math.isnan(x)) else x
 
-
-def _json(x):
-    x = float(x)
-    return None if math.isnan(x) or math.isinf(x) else x
-
-
-def _plain(v):
-    return v.item() if isinstance(v, np.generic) else v

@@ -38,6 +38,7 @@ from scipy import special
 from scipy import stats as _sps
 
 from .errors import DegenerateWarning
+from .values import json_number
 
 __all__ = [
     "Estimate",
@@ -79,20 +80,15 @@ class Estimate:
     def to_dict(self) -> dict:
         """The report's estimate object; NaN becomes ``None`` (JSON null)."""
         return {
-            "value": _json_float(self.value),
-            "low": _json_float(self.low),
-            "high": _json_float(self.high),
+            "value": json_number(self.value),
+            "low": json_number(self.low),
+            "high": json_number(self.high),
             "method": self.method,
         }
 
     def excludes(self, bound: float) -> bool:
         """True when the whole interval lies strictly on one side of ``bound``."""
         return bool(self.low > bound or self.high < bound)
-
-
-def _json_float(x: float) -> float | None:
-    x = float(x)
-    return None if math.isnan(x) or math.isinf(x) else x
 
 
 def z_value(confidence_level: float = 0.95) -> float:

@@ -115,7 +115,7 @@ def _label(predicates: list[dict]) -> str:
             parts.append(f"{p['column']} is missing")
         else:
             parts.append(f"{p['column']} = {p['value']}")
-    return " & ".join(parts)
+    return " and ".join(parts)
 
 
 def _slices() -> dict:

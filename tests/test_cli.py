@@ -191,3 +191,42 @@ def test_a_model_reading_the_whole_frame_never_sees_the_label(tmp_path):
     assert main(["run", str(plan)], console=_console()) == EXIT_OK
     report = json.loads((tmp_path / "out" / "report.json").read_text())
     assert report["provenance"]["model"]["kind"] == "python" and report["flips"]
+
+
+def _rename_label(path, new):
+    frame = pd.read_csv(path).rename(columns={"y": new})
+    frame.to_csv(path, index=False)
+    return path
+
+
+def test_an_adverse_label_is_refused_until_the_favourable_decision_is_stated(tmp_path, capsys):
+    data = _rename_label(_holdout(tmp_path, 0.5, n=300), "denied")
+    base = ["groups", "--data", str(data), "--label", "denied", "--model", "column:score",
+            "--protected", "group", "--quiet"]
+    assert main(base, console=_console()) == EXIT_BAD_INPUT
+    err = capsys.readouterr().err.strip().splitlines()
+    assert err == ["error: label `denied` (positive value 1) reads as an adverse outcome, so the "
+                   "favourable decision is probably the negative one; say which: --favorable "
+                   "negative (or --favorable positive to keep the default reading; plan: "
+                   "`favorable` in [model])"]
+    for stated in ("negative", "positive"):
+        out = tmp_path / f"{stated}.json"
+        assert main([*base, "--favorable", stated, "--json", str(out)], console=_console()) == EXIT_OK
+        prov = json.loads(out.read_text())["provenance"]
+        assert (prov["favorable"], prov["favorable_stated"]) == (stated, True)
+    plain = _holdout(tmp_path, 0.5, n=300, name="plain.csv")
+    out = tmp_path / "default.json"
+    assert main(["groups", "--data", str(plain), "--label", "y", "--model", "column:score",
+                 "--protected", "group", "--quiet", "--json", str(out)], console=_console()) == 0
+    prov = json.loads(out.read_text())["provenance"]
+    assert (prov["favorable"], prov["favorable_stated"]) == ("positive", False)
+
+
+def test_flips_of_fixed_scores_and_proxies_without_a_label_are_refused(tmp_path, capsys):
+    data = _holdout(tmp_path, 0.5, n=300)
+    assert main(["flips", "--data", str(data), "--label", "y", "--model", "column:score",
+                 "--protected", "group", "--quiet"], console=_console()) == EXIT_BAD_INPUT
+    assert "reads fixed scores" in capsys.readouterr().err
+    assert main(["proxies", "--data", str(data), "--protected", "group", "--quiet"],
+                console=_console()) == EXIT_BAD_INPUT
+    assert "--label COL" in capsys.readouterr().err

@@ -147,3 +147,16 @@ def test_worse_slices_are_only_slices_where_the_candidate_is_worse():
     # brute force: in every ranked slice the candidate's error is not above the baseline's
     for s in ranked:
         assert s.rate.value <= 0
+
+
+def test_a_nan_p_value_is_json_null():
+    import json
+    import math
+
+    from probe.compare import MetricComparison
+    from probe.stats import Estimate
+
+    e = Estimate(0.1, 0.05, 0.2, "wilson")
+    m = MetricComparison("error", e, e, Estimate(0.0, -0.1, 0.1, "tango"), math.nan, (0, 0), 10)
+    out = json.loads(json.dumps(m.to_dict(), allow_nan=False))
+    assert out["p_value"] is None and out["candidate"]["value"] == 0.1

@@ -86,3 +86,40 @@ def test_empty_frame_and_input_not_modified(frame):
     h = prepare_holdout(frame, label="repaid", protected=["sex"], intersections=[["sex", "age"]])
     pd.testing.assert_frame_equal(frame, before)
     assert not h.y_true.flags.writeable
+
+
+def test_na_is_a_level_in_text_and_missing_among_numbers(tmp_path):
+    # a continent column holding North America's code `NA`, a numeric column holding `NA`
+    path = tmp_path / "h.csv"
+    path.write_text("continent,debt,initial,note\nNA,1.5,N/A,x\nEU,NA,B,\nNA,2.5,null,y\n"
+                    "AS,,None,z\n")
+    frame = read_table(path)
+    # the truth, written by hand: text columns keep every word, numbers lose the words to NaN
+    assert frame["continent"].tolist() == ["NA", "EU", "NA", "AS"]
+    assert frame["initial"].tolist() == ["N/A", "B", "null", "None"]
+    np.testing.assert_array_equal(frame["debt"].to_numpy(dtype=float), [1.5, np.nan, 2.5, np.nan])
+    assert frame["note"].isna().tolist() == [False, True, False, False]  # empty: missing anywhere
+    holdout = prepare_holdout(frame.assign(y=[1, 0, 1, 0]), label="y", protected=["continent"])
+    assert holdout.unknown == {"continent": 0}
+    assert set(frame["continent"].dropna()) == {"NA", "EU", "AS"}  # both groups appear
+
+
+@pytest.mark.parametrize("suffix", [".csv", ".tsv", ".parquet", ".feather"])
+def test_duplicate_column_names_are_refused_naming_file_and_names(tmp_path, suffix):
+    import pyarrow as pa
+    import pyarrow.feather as feather
+    import pyarrow.parquet as pq
+
+    path = tmp_path / f"h{suffix}"
+    if suffix in (".csv", ".tsv"):
+        sep = "," if suffix == ".csv" else "\t"
+        path.write_text(sep.join(["y", "a", "y", "a", "b"]) + "\n" + sep.join("10101") + "\n")
+    else:
+        table = pa.table([pa.array([1, 0])] * 3, names=["y", "a", "y"])
+        (pq.write_table if suffix == ".parquet" else feather.write_feather)(table, path)
+    with pytest.raises(DataError) as err:
+        read_table(path)
+    msg = str(err.value)
+    assert str(path) in msg and "`y`" in msg and "\n" not in msg and ".1" not in msg
+    if suffix in (".csv", ".tsv"):
+        assert "`a`" in msg and "`b`" not in msg

@@ -27,16 +27,15 @@ def _holds(pred, value):
     return (low is None or value >= low) and (high is None or value < high)
 
 
-def _label_bounds(label):
-    """The numbers a bin label states, read back from the text."""
+def _label_texts(label):
+    """The numbers a bin label states, as written (None for an open end)."""
     num = r"(-?[\d,]+(?:\.\d+)?(?:e-?\d+)?)"
-    to_f = lambda s: float(s.replace(",", ""))  # noqa: E731
     if m := re.fullmatch(rf"\w+ in \[{num}, {num}\)", label):
-        return to_f(m[1]), to_f(m[2])
+        return m[1], m[2]
     if m := re.fullmatch(rf"\w+ < {num}", label):
-        return None, to_f(m[1])
+        return None, m[1]
     if m := re.fullmatch(rf"\w+ >= {num}", label):
-        return to_f(m[1]), None
+        return m[1], None
     raise AssertionError(f"unexpected bin label {label!r}")
 
 
@@ -83,8 +82,19 @@ def test_bin_labels_state_the_same_edges_as_the_predicates(seed):
             if pred["op"] == "missing":
                 assert label == f"{col.name} is missing"
                 continue
-            low, high = _label_bounds(label)
-            assert low == pred["value"][0] and high == pred["value"][1], label
+            # a label states each edge to three significant figures (more where two would read
+            # alike), so it is within half a unit of its last digit of the predicate's exact edge
+            for text, edge in zip(_label_texts(label), pred["value"]):
+                if edge is None:
+                    assert text is None, label
+                    continue
+                value = float(text.replace(",", ""))
+                if "e" in text:  # a tiny edge, written with three significant figures
+                    assert abs(value - edge) <= 5e-3 * abs(edge), label
+                else:
+                    digits = len(text.partition(".")[2])
+                    assert abs(value - edge) <= 0.5 * 10.0 ** -digits + 1e-12, label
+        assert len(set(col.labels)) == col.n_levels
         raw = frame[col.name].to_numpy(dtype=float)
         # edges are rounded but still cut where the data's quantiles put them: about 1/5 each
         # (except where ties collapse bins)

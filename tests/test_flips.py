@@ -12,7 +12,7 @@ from scipy import stats
 from scipy.special import expit
 from statsmodels.stats.proportion import proportion_confint
 
-from probe.errors import DataError, ModelError, PlanError
+from probe.errors import DataError, ModelError, PlanError, ProbeWarning
 from probe.proxies import find_proxies
 from probe.flips import (
     DIRECT_FLIP_CAUTION,
@@ -183,8 +183,9 @@ def test_favorable_negative_swaps_the_directions():
 def test_direct_does_not_apply_when_attribute_is_not_an_input():
     X = _credit()
     model = Wrapped(lambda f: expit((f["income"] - 50) / 5), ["income", "debt"])
-    res = flip_test(model, X, "sex")
-    assert res.rows == ()
+    with pytest.warns(ProbeWarning, match="not a model input"):
+        res = flip_test(model, X, "sex")
+    assert res.rows == () and not res.applies
     assert any("not a model input" in n for n in res.notes)
     # the report gets one row saying why, with no estimate (never a made-up zero)
     (row,) = res.to_dict()
@@ -308,7 +309,8 @@ def test_transport_recovers_the_closed_form_indirect_effect():
     assert np.median(moved) == pytest.approx(10, abs=0.3)
     assert "not a model input" in row.sentence
     # the direct mode has nothing to flip: no rows, a note
-    direct = flip_test(model, X, "group", mode="direct")
+    with pytest.warns(ProbeWarning, match="not a model input"):
+        direct = flip_test(model, X, "group", mode="direct")
     assert direct.rows == () and any("not a model input" in n for n in direct.notes)
 
 
@@ -583,7 +585,8 @@ def test_ucb_transport_gender_through_dept_matches_closed_form():
     assert row.to_unfavorable.value == 0
     mean_change = float(((p_m - p_f) * rate).sum())
     assert row.mean_score_change.value == pytest.approx(mean_change, abs=2 / 1835)
-    assert flip_test(model, X, "Gender").rows == ()  # Gender is not an input
+    with pytest.warns(ProbeWarning, match="not a model input"):
+        assert flip_test(model, X, "Gender").rows == ()  # Gender is not an input
 
 
 # --- validation ---------------------------------------------------------------------------------
@@ -737,7 +740,7 @@ def test_breakdown_reads_the_shared_encoding_and_its_counts_equal_brute_force():
         assert row.by_slice and row.by_slice[0].predicates[0]["column"] == "income"
         for s in row.by_slice:
             # every predicate and label is the encoder's own
-            assert s.label == " & ".join(labels[repr(p)] for p in s.predicates)
+            assert s.label == " and ".join(labels[repr(p)] for p in s.predicates)
             inside = source.copy()
             for p in s.predicates:
                 inside &= _satisfies(X, p)
@@ -869,3 +872,63 @@ def test_judged_at_twins_is_the_shown_excess_and_none_without_a_control():
     impossible = replace(row, impossible=True)
     assert impossible.judged_at(0.95) is None
     assert replace(row, excess=None).judged_at(0.95) is None
+
+
+# ---------------------------------------------------------------------------------------------
+# hardening: fixed scores, a direct flip that does not apply, extreme values, dates, seeds
+
+
+class _LinearModel:
+    feature_names = ("income", "big")
+
+    def scores(self, frame):
+        return np.clip(frame["income"].to_numpy(dtype=float) / 100.0, 0.0, 1.0)
+
+
+def _hardening_frame(n=400, seed=0):
+    r = np.random.default_rng(seed)
+    return pd.DataFrame({"group": r.choice(["a", "b"], n), "income": r.uniform(0, 100, n),
+                         "big": np.where(r.random(n) < 0.5, 1e308, -1e308)})
+
+
+def test_a_column_model_is_refused_for_flips():
+    from probe.adapters import load_model
+
+    frame = _hardening_frame().assign(score=0.5)
+    model = load_model("column:score")
+    with pytest.raises(PlanError, match="fixed scores"):
+        flip_test(model, frame, "group", mode="direct")
+
+
+def test_a_direct_flip_of_a_non_input_warns_and_says_it_does_not_apply():
+    with pytest.warns(ProbeWarning, match="not a model input"):
+        res = flip_test(_LinearModel(), _hardening_frame(), "group", mode="direct")
+    assert not res.applies and "not a model input" in res.not_applicable and res.rows == ()
+    (row,) = res.to_dict()
+    assert row["applicable"] is False and row["sentence"] == res.not_applicable
+
+
+def test_twins_standardise_values_at_the_float_limit():
+    frame = _hardening_frame()
+    res = flip_test(_LinearModel(), frame, "group", mode="twins")
+    # `big` takes two values: scaled, it is +-1 standard deviation, so twins match on its sign first;
+    # the same test with `big` as +-1 (the same standardised values) is the independent reference
+    ref = flip_test(_LinearModel(), frame.assign(big=np.sign(frame["big"])), "group", mode="twins")
+    assert [r.flip_rate.value for r in res.rows] == [r.flip_rate.value for r in ref.rows]
+
+
+def test_a_date_attribute_reports_its_levels_as_text():
+    import json
+
+    frame = _hardening_frame()
+    frame["day"] = pd.to_datetime(np.where(frame["group"] == "a", "2024-01-01", "2024-06-30"))
+    res = flip_test(_LinearModel(), frame, "day", mode="twins")
+    levels = {(r["from"], r["to"]) for r in json.loads(json.dumps(res.to_dict()))}
+    assert levels == {("2024-01-01T00:00:00", "2024-06-30T00:00:00"),
+                      ("2024-06-30T00:00:00", "2024-01-01T00:00:00")}
+
+
+@pytest.mark.parametrize("seed", [-1, 1.5, "x"])
+def test_a_bad_seed_is_one_plan_error(seed):
+    with pytest.raises(PlanError, match="`rng`"):
+        flip_test(_LinearModel(), _hardening_frame(), "group", mode="twins", rng=seed)

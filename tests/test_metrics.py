@@ -46,3 +46,26 @@ def test_bad_input_gets_one_clear_line():
         metric_outcome([1, 0], [0.3, 0.9], "error")
     with pytest.raises(DataError, match="`y_true` is required"):
         metric_outcome(None, [1, 0], "fpr")
+
+
+@pytest.mark.parametrize("label, positive", [
+    ("denied", 1), ("loan_denied", 1), ("isDefault", True), ("charge-off", 1), ("FRAUD_flag", 1),
+    ("outcome", "Rejected"), ("status", "bad"),
+])
+def test_an_adverse_label_needs_the_favourable_decision_stated(label, positive):
+    from probe.metrics import resolve_favorable
+
+    with pytest.raises(PlanError) as err:
+        resolve_favorable(None, label, positive)
+    assert f"label `{label}` (positive value {positive!r}) reads as an adverse outcome" in str(err.value)
+    assert "--favorable negative" in str(err.value)
+    assert resolve_favorable("positive", label, positive) == ("positive", True)
+    assert resolve_favorable("negative", label, positive) == ("negative", True)
+
+
+@pytest.mark.parametrize("label, positive", [("repaid", 1), ("hired", "yes"), ("y", 1),
+                                             ("approved", True)])
+def test_an_ordinary_label_defaults_to_the_positive_decision(label, positive):
+    from probe.metrics import resolve_favorable
+
+    assert resolve_favorable(None, label, positive) == ("positive", False)

@@ -221,3 +221,38 @@ def test_fast_auc_equals_scikit_learn_with_ties():
         target = rng.random(500) < rng.uniform(0.05, 0.6)
         score = rng.integers(0, rng.integers(2, 12), 500) / 7.0  # heavy ties, as level rates give
         assert auc(target.astype(float), score) == pytest.approx(roc_auc_score(target, score), abs=1e-12)
+
+
+def test_a_feature_with_no_value_in_a_training_fold_does_not_stop_the_check():
+    # one value and NaN elsewhere: every training fold but one holds no value of it
+    r = np.random.default_rng(0)
+    n = 300
+    group = r.integers(0, 2, n)
+    X = pd.DataFrame({"group": group, "proxy": group + r.normal(0, 0.3, n),
+                      "lonely": np.r_[1.0, [np.nan] * (n - 1)]})
+    res = find_proxies(X, "group")
+    # the single-feature AUC of the planted proxy, by sklearn on the raw values, bounds it from above
+    assert res.top(1) == ("proxy",)
+    assert res.multivariate_auc.value <= roc_auc_score(group, X["proxy"]) + 0.05
+    assert res.rows[-1].feature == "lonely"
+
+
+def test_a_date_attribute_and_a_bad_seed():
+    r = np.random.default_rng(1)
+    n = 300
+    day = pd.to_datetime(np.where(r.random(n) < 0.5, "2024-01-01", "2025-01-01"))
+    X = pd.DataFrame({"day": day, "f": r.normal(size=n)})
+    res = json.loads(json.dumps(find_proxies(X, "day", multivariate=False).to_dict()))
+    assert res["attribute_levels"] == ["2024-01-01T00:00:00", "2025-01-01T00:00:00"]
+    with pytest.raises(PlanError, match="at least 0"):
+        find_proxies(X, "day", rng=-1)
+
+
+def test_the_gradient_boosting_runs_on_one_thread():
+    from threadpoolctl import threadpool_info
+
+    from probe.threads import limited
+
+    with limited():
+        native = [p["num_threads"] for p in threadpool_info()]
+    assert native and set(native) == {1}

@@ -425,7 +425,7 @@ def test_markdown_renders_labels_verbatim_and_escapes_html():
     assert "<script" not in html
     assert "&lt;script&gt;alert(&quot;x&quot;)&lt;/script&gt;" in html
     # brackets and the pipe survive, the pipe inside one table cell
-    assert f"<td>{fixture.BRACKET_LABEL} &amp; employment = self-employed</td>" in html
+    assert f"<td>{fixture.BRACKET_LABEL} and employment = self-employed</td>" in html
     assert f"<td>employment = {fixture.PIPE_LEVEL}</td>" in html
     assert "<a " not in html
 

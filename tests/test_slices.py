@@ -511,3 +511,34 @@ def test_a_shared_encoding_and_options_give_the_same_findings_as_keywords():
     assert only_a.settings["columns"] == ["a"]
     with pytest.raises(DataError, match="`encoding` has 3000 rows but `X` has 100"):
         find_slices(frame.head(100), y[:100], pred[:100], encoding=enc)
+
+
+def test_a_column_holding_the_label_is_never_sliced():
+    r = np.random.default_rng(0)
+    n = 4000
+    y = r.random(n) < 0.5
+    X = pd.DataFrame({"a": r.choice(list("xyz"), n), "outcome": np.where(y, "yes", "no")})
+    wrong = r.random(n) < np.where(y, 0.4, 0.1)  # errors planted on the label: its slice would win
+    res = find_slices(X, y, y ^ wrong, depth=1)
+    assert all("outcome" not in s.label for s in res.found)
+    assert "`outcome` left out: it holds the label" in res.notes
+    # the same search without the copy is the reference
+    ref = find_slices(X[["a"]], y, y ^ wrong, depth=1)
+    assert [s.label for s in res.found] == [s.label for s in ref.found]
+
+
+def test_an_object_column_holding_inf_and_a_negative_seed():
+    r = np.random.default_rng(0)
+    n = 600
+    values = [1.0, np.inf, "x"]
+    X = pd.DataFrame({"o": pd.Series([values[i] for i in r.integers(0, 3, n)], dtype=object),
+                      "b": r.choice(list("uv"), n)})
+    col = encode_columns(X)["o"]
+    # each level's rows, counted by pandas
+    counts = X["o"].map(str).value_counts()
+    got = dict(zip(col.labels, np.bincount(col.codes, minlength=col.n_levels)))
+    assert got == {"o = 1": counts["1.0"], "o = inf": counts["inf"], "o = x": counts["x"]}
+    y = r.random(n) < 0.5
+    find_slices(X, y, ~y, depth=1, split=False)  # runs to the end
+    with pytest.raises(PlanError, match="at least 0"):
+        find_slices(X, y, ~y, rng=-3)

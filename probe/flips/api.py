@@ -9,6 +9,7 @@ import pandas as pd
 
 from ..errors import PlanError
 from ..options import FlipOptions, check_option
+from ..values import as_rng
 from .context import flip_context
 from .direct import direct_flips
 from .findings import FlipFindings
@@ -101,6 +102,7 @@ def flip_test(model, X: pd.DataFrame, attribute: str, *, options: FlipOptions | 
     Changing sex from F to M, all else equal, changes 10.0 % of decisions
     (95 % interval 4.3–21.4 %): 10.0 % become favourable, 0.0 % unfavourable.
     """
+    gen = as_rng(rng)
     opts = _options(options, kwargs)
     if mode is None:
         mode = opts.modes[0]
@@ -111,7 +113,6 @@ def flip_test(model, X: pd.DataFrame, attribute: str, *, options: FlipOptions | 
     ctx = flip_context(model, X, attribute, reference=opts.reference, threshold=threshold,
                        favorable=favorable, confidence_level=confidence_level, scores=scores,
                        encoding=encoding)
-    gen = np.random.default_rng(rng)
     pair_seeds = [int(s) for s in gen.integers(0, 2**31 - 1, size=len(ctx.pairs))]
     if mode == "direct":
         return direct_flips(ctx)

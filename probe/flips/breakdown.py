@@ -13,6 +13,7 @@ from itertools import combinations
 
 import numpy as np
 
+from ..bins import conjunction
 from ..stats import Estimate, wilson_interval
 from .findings import FlipSlice
 
@@ -61,7 +62,7 @@ def slice_breakdown(columns, idx, flip, confidence_level) -> tuple:
                 rem //= m
             parts.reverse()
             cols = [columns[j] for j in combo]
-            label = " & ".join(c.labels[p] for c, p in zip(cols, parts))
+            label = conjunction(c.labels[p] for c, p in zip(cols, parts))
             preds = tuple(dict(c.predicates[p]) for c, p in zip(cols, parts))
             cands.append((x[cell] / n[cell], int(n[cell]), label, preds, float(x[cell])))
     cands.sort(key=lambda t: (-t[0], -t[1], t[2]))

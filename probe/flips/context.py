@@ -20,7 +20,7 @@ from ..stats import Estimate, mean_interval, wilson_interval
 from .breakdown import slice_breakdown
 from .findings import FlipRow, impossible_sentence, pair_sentence
 
-__all__ = ["FlipContext", "flip_context", "score", "set_column"]
+__all__ = ["FlipContext", "flip_context", "refuse_fixed_scores", "score", "set_column"]
 
 _THRESHOLD = next(f for f in fields(ModelOptions) if f.name == "threshold")
 
@@ -83,6 +83,7 @@ def flip_context(model, X, attribute, *, reference, threshold, favorable, confid
     """Check every input of a flip test once and build its :class:`FlipContext`."""
     if not callable(getattr(model, "scores", None)):
         raise ModelError(f"the model ({type(model).__name__}) has no `scores(frame)` method")
+    refuse_fixed_scores(model)
     if not isinstance(X, pd.DataFrame):
         raise DataError(f"`X` must be a pandas DataFrame, got {type(X).__name__}")
     if attribute not in X.columns:
@@ -137,6 +138,15 @@ def flip_context(model, X, attribute, *, reference, threshold, favorable, confid
     return FlipContext(model, X, attribute, inputs, attribute in inputs, known, levels, pairs,
                        group_rows, float(threshold), favorable, confidence_level, notes, scores,
                        encoding)
+
+
+def refuse_fixed_scores(model) -> None:
+    """A ``column:`` model reads fixed scores from the data: no flip mode can re-score a changed
+    row, so a flip test of it would report no flips whatever the real model does."""
+    if getattr(model, "kind", None) == "column":
+        raise PlanError(f"flips need a model that scores changed rows; `{model.spec}` reads fixed "
+                        "scores from the data, so no flip mode applies (name the model file or "
+                        "py:/cmd:/http: model, or leave flips out)")
 
 
 def score(model, frame, what) -> np.ndarray:

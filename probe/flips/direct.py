@@ -4,6 +4,10 @@ measures *direct* dependence, not disparate impact (:data:`~probe.flips.DIRECT_F
 
 from __future__ import annotations
 
+import warnings
+from dataclasses import replace
+
+from ..errors import ProbeWarning
 from .context import FlipContext, impossible_row, pair_row, score, set_column
 from .findings import DIRECT_FLIP_CAUTION, SCREEN_CAUTION, FlipFindings
 
@@ -15,9 +19,11 @@ def direct_flips(ctx: FlipContext) -> FlipFindings:
     attribute, X = ctx.attribute, ctx.X
     caution = DIRECT_FLIP_CAUTION + " " + SCREEN_CAUTION
     if not ctx.is_input:
-        ctx.notes.append(f"`{attribute}` is not a model input, so a direct flip does not apply "
-                         "(use the transport or twins mode)")
-        return _findings(ctx, (), caution)
+        reason = (f"`{attribute}` is not a model input, so a direct flip does not apply "
+                  "(use the transport or twins mode)")
+        warnings.warn(reason, ProbeWarning, stacklevel=3)
+        ctx.notes.append(reason)
+        return replace(_findings(ctx, (), caution), not_applicable=reason)
     base = ctx.base_scores
     rows = []
     for src, dst in ctx.pairs:

@@ -6,11 +6,11 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, field
 
-import numpy as np
 import pandas as pd
 from scipy import stats as _sps
 
 from ..stats import Estimate, wilson
+from ..values import json_number, report_level
 
 __all__ = ["FlipFindings", "FlipRow", "FlipSlice", "DIRECT_FLIP_CAUTION", "SCREEN_CAUTION"]
 
@@ -42,7 +42,7 @@ class FlipSlice:
         writes them: op ``"=="`` (a level), ``"in"`` (a numeric bin ``[low, high)``, None for an
         open end), ``"not in"`` (the ``other`` level: value the named levels) or ``"missing"``.
     label : str
-        The encoder's labels of the predicates joined by ``" & "``.
+        The encoder's labels of the predicates joined by ``" and "`` (:func:`probe.bins.conjunction`).
     rows : int
     flip_rate : Estimate
     """
@@ -170,14 +170,14 @@ class FlipRow:
         out = {
             "attribute": self.attribute,
             "mode": self.mode,
-            "from": _plain(self.from_),
-            "to": _plain(self.to),
+            "from": report_level(self.from_),
+            "to": report_level(self.to),
             "rows": self.rows,
             "flip_rate": self.flip_rate.to_dict(),
             "to_favorable": self.to_favorable.to_dict(),
             "to_unfavorable": self.to_unfavorable.to_dict(),
             "mean_score_change": self.mean_score_change.to_dict(),
-            "max_score_change": _json(self.max_score_change),
+            "max_score_change": json_number(self.max_score_change),
             "impossible": self.impossible,
             "moved": list(self.moved),
             "by_slice": [s.to_dict() for s in self.by_slice],
@@ -213,6 +213,9 @@ class FlipFindings:
     favorable : bool
     extras : dict
         Mode-specific settings (the proxies moved; the twins' ``k``, features and control).
+    not_applicable : str
+        Why the mode does not apply (a direct flip of an attribute that is not a model input);
+        empty when it applies. A test that does not apply has no rows and is never a pass.
     """
 
     attribute: str
@@ -223,6 +226,12 @@ class FlipFindings:
     threshold: float = 0.5
     favorable: bool = True
     extras: dict = field(default_factory=dict, compare=False)
+    not_applicable: str = ""
+
+    @property
+    def applies(self) -> bool:
+        """False when the mode does not apply to this attribute (see :attr:`not_applicable`)."""
+        return not self.not_applicable
 
     def to_dict(self) -> list:
         """The report's ``flips`` entries: one dict per row, each with this test's ``notes``.
@@ -234,7 +243,7 @@ class FlipFindings:
             return [{"attribute": self.attribute, "mode": self.mode, "from": None, "to": None,
                      "rows": 0, "flip_rate": None, "to_favorable": None, "to_unfavorable": None,
                      "mean_score_change": None, "applicable": False,
-                     "sentence": "; ".join(self.notes)
+                     "sentence": self.not_applicable or "; ".join(self.notes)
                      or f"{self.mode} flips do not apply to `{self.attribute}`",
                      "notes": list(self.notes)}]
         return [{**r.to_dict(), "notes": list(self.notes)} for r in self.rows]
@@ -345,11 +354,3 @@ def twin_sentence(row: FlipRow, k, subsampled, confidence_level) -> str:
             f"{sample}: an excess of {_points(ex.value)} points ({cl} {_points(ex.low)}{sep}"
             f"{_points(ex.high)}). {tail}")
 
-
-def _json(x):
-    x = float(x)
-    return None if math.isnan(x) or math.isinf(x) else x
-
-
-def _plain(v):
-    return v.item() if isinstance(v, np.generic) else v

@@ -64,6 +64,7 @@ from ..data import is_numeric
 from ..encode import encode_columns
 from ..errors import DataError
 from ..stats import Estimate, wilson_interval
+from ..threads import N_JOBS, limited
 from .context import FlipContext, outcome_row
 from .findings import SCREEN_CAUTION, FlipFindings, spread_interval, twin_sentence
 
@@ -226,9 +227,12 @@ class _TwinDesign:
         for c in self.features:
             if c in self.numeric:
                 v = self.numeric[c]
-                pooled = v[both]
-                mu = np.nanmean(pooled) if (~np.isnan(pooled)).any() else 0.0
-                sd = np.nanstd(pooled)
+                mu, sd = _centre_scale(v[both])
+                if not (np.isfinite(mu) and np.isfinite(sd)):
+                    # values near the float limit (1e308) overflow the mean or the variance:
+                    # divided by the largest magnitude first, they standardise to the same values
+                    v = v / np.nanmax(np.abs(v[both]))
+                    mu, sd = _centre_scale(v[both])
                 sd = sd if sd > 0 and np.isfinite(sd) else 1.0
                 blocks_s.append(np.where(np.isnan(v[idx]), 0.0, (v[idx] - mu) / sd)[:, None])
                 blocks_t.append(np.where(np.isnan(v[tgt]), 0.0, (v[tgt] - mu) / sd)[:, None])
@@ -240,6 +244,14 @@ class _TwinDesign:
         return np.hstack(blocks_s), np.hstack(blocks_t)
 
 
+def _centre_scale(pooled):
+    """The mean and standard deviation of the present values (both 0 when there are none)."""
+    if np.isnan(pooled).all():
+        return 0.0, 0.0
+    with np.errstate(over="ignore", invalid="ignore"):
+        return np.nanmean(pooled), np.nanstd(pooled)
+
+
 def _kneighbors(pool, queries, n_neighbors) -> np.ndarray:
     """Positions in ``pool`` of each query row's ``n_neighbors`` nearest, nearest first; queried in
     chunks so memory stays bounded (never a queries x pool matrix)."""
@@ -248,11 +260,13 @@ def _kneighbors(pool, queries, n_neighbors) -> np.ndarray:
     # a k-d tree wins in few dimensions; beyond that sklearn's brute search (computed in chunks
     # under its working-memory bound, never an n x n matrix) is several times faster
     algorithm = "kd_tree" if pool.shape[1] <= _KD_TREE_MAX_DIM else "brute"
-    nn = NearestNeighbors(n_neighbors=n_neighbors, algorithm=algorithm).fit(pool)
     out = np.empty((len(queries), n_neighbors), dtype=np.int64)
-    for start in range(0, len(queries), _TWIN_CHUNK):
-        stop = min(start + _TWIN_CHUNK, len(queries))
-        out[start:stop] = nn.kneighbors(queries[start:stop], return_distance=False)
+    with limited():
+        nn = NearestNeighbors(n_neighbors=n_neighbors, algorithm=algorithm,
+                              n_jobs=N_JOBS).fit(pool)
+        for start in range(0, len(queries), _TWIN_CHUNK):
+            stop = min(start + _TWIN_CHUNK, len(queries))
+            out[start:stop] = nn.kneighbors(queries[start:stop], return_distance=False)
     return out
 
 

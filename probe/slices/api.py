@@ -12,6 +12,7 @@ from ..encode import Encoding, encode_columns
 from ..errors import DataError, PlanError
 from ..metrics import as_binary, get_metric
 from ..options import SliceOptions, check_option, coerce_option, option_fields
+from ..values import as_rng
 from .findings import SliceFindings
 from .search import Inputs, run
 
@@ -29,9 +30,10 @@ def find_slices(X: pd.DataFrame, y_true, y_pred, *, options: SliceOptions | None
     ----------
     X : pandas.DataFrame
         The candidate slice columns (protected attributes may be among them; they need not be model
-        inputs). Not modified.
+        inputs). Not modified. The label is never sliced on: a column of ``X`` that holds it (two
+        values matching ``y_true`` on every row, whatever they are called) is left out with a note.
     y_true : array_like of bool or 0/1, or str, or None
-        The labels (1 = positive), or the name of the label column in ``X`` (it is then not sliced).
+        The labels (1 = positive), or the name of the label column in ``X``.
         Not needed for ``metric="selection"``.
     y_pred : array_like of bool or 0/1, or str
         The model's decisions, or the name of their column in ``X`` (not sliced either).
@@ -156,7 +158,25 @@ def _search(X, outcome, base, label, direction, opts, confidence_level, rng, enc
             strata) -> SliceFindings:
     inputs = _search_iv(X, outcome, base, direction, opts, confidence_level, similarity, strata,
                         rng)
-    return run(_encoding(X, opts, encoding), label, inputs)
+    enc = _encoding(X, opts, encoding)
+    if strata is not None:
+        enc = _without_label(enc, np.asarray(strata) == 1)
+    return run(enc, label, inputs)
+
+
+def _without_label(enc: Encoding, y: np.ndarray) -> Encoding:
+    """``enc`` without the columns that hold the label: two levels that match ``y`` (or its
+    opposite) on every row, whatever the label's values are called. A slice on the label would
+    only restate the metric's definition (every error of a 0/1 label among its positives)."""
+    copies = [c.name for c in enc.columns if c.n_levels == 2
+              and ((c.codes == 1) == y).all() | ((c.codes == 1) == ~y).all()]
+    if not copies:
+        return enc
+    keep = tuple(c for c in enc.columns if c.name not in copies)
+    notes = tuple(f"`{name}` left out: it holds the label" for name in copies)
+    if not keep:
+        raise DataError("no column is left to slice on (" + "; ".join(notes) + ")")
+    return Encoding(keep, enc.n_rows, enc.notes + notes)
 
 
 def _slice_options(options, kwargs) -> SliceOptions:
@@ -254,7 +274,7 @@ def _search_iv(X, outcome, base, direction, opts, confidence_level, similarity, 
     if strata is not None:
         st = _group_codes(strata if base_idx is None else strata[base_idx])
     return Inputs(yb, base_idx, binary, direction, st, similarity, float(confidence_level), opts,
-                  np.random.default_rng(rng))
+                  as_rng(rng))
 
 
 def _group_codes(values):

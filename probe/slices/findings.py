@@ -3,15 +3,16 @@ report's JSON objects, a table and one plain sentence per slice."""
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
 import pandas as pd
 
+from ..bins import conjunction
 from ..encode import Encoding
 from ..stats import Estimate
+from ..values import json_number
 from .estimate import at_level
 
 __all__ = ["CANDIDATES_NOTE", "Slice", "SliceFindings", "make_slice"]
@@ -102,14 +103,14 @@ class Slice:
             "predicates": [dict(p) for p in self.predicates],
             "label": self.label,
             "rows": self.rows,
-            "share": _jf(self.share),
-            "events": _jf(self.events),
+            "share": json_number(self.share),
+            "events": json_number(self.events),
             "rate": self.rate.to_dict(),
             "gap": self.gap.to_dict(),
             "effect_ratio": self.effect_ratio.to_dict(),
-            "p_value": _jf(self.p_value),
-            "q_value": _jf(self.q_value),
-            "score": _jf(self.score),
+            "p_value": json_number(self.p_value),
+            "q_value": json_number(self.q_value),
+            "score": json_number(self.score),
             "search_rows": self.search_rows,
             "sentence": self.sentence,
         }
@@ -197,11 +198,6 @@ class SliceFindings:
         return [s.sentence for s in self.found]
 
 
-def _jf(x):
-    x = float(x)
-    return None if math.isnan(x) or math.isinf(x) else x
-
-
 _WORDING = {
     "error": ("Rows with {s}", "misclassified"),
     "fpr": ("Among true negatives, rows with {s}", "wrongly flagged positive"),
@@ -216,7 +212,7 @@ def make_slice(rank, cand, est, enc: Encoding, metric, confidence_level, binary)
     score, cols, levels, search_rows = cand
     columns = [enc.columns[c] for c in cols]
     preds = tuple(dict(col.predicates[lv]) for col, lv in zip(columns, levels))
-    label = " and ".join(col.labels[lv] for col, lv in zip(columns, levels))
+    label = conjunction(col.labels[lv] for col, lv in zip(columns, levels))
     return Slice(
         rank=rank, predicates=preds, label=label, rows=est["rows"], share=float(est["share"]),
         events=est["events"], rate=est["rate"], gap=est["gap"], effect_ratio=est["ratio"],
