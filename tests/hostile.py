@@ -8,7 +8,6 @@ process (``python -m probe``), and the contract every failing run must keep (exi
 
 from __future__ import annotations
 
-import contextlib
 import hashlib
 import io
 import json
@@ -18,7 +17,7 @@ import subprocess
 import sys
 import time
 import warnings
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Callable
 
@@ -134,23 +133,33 @@ class Workspace:
 
 # -- running --------------------------------------------------------------------------------
 
-def run_in_process(argv: list, capfd) -> Outcome:
-    """``probe.cli.main(argv)`` with stdout and stderr captured at the file-descriptor level."""
+def run_in_process(argv: list, capfd=None) -> Outcome:
+    """``probe.cli.main(argv)``; stdout and stderr captured at the file-descriptor level with
+    pytest's ``capfd`` (native libraries write there), else stderr at the Python level."""
     from rich.console import Console
+    from threadpoolctl import threadpool_limits
 
     from probe.cli import main
 
     console = Console(file=io.StringIO(), width=100, color_system=None, force_terminal=False)
     escaped, code = None, None
+    err, old_err = io.StringIO(), sys.stderr
+    if capfd is None:
+        sys.stderr = err
     start = time.perf_counter()
-    with warnings.catch_warnings():
-        # a user's run does not turn warnings into errors (the test suite's setting does)
-        warnings.simplefilter("ignore")
-        try:
+    try:
+        # a user's run does not turn warnings into errors (the test suite's setting does);
+        # tiny data: one thread per library pool (the machine has 2 cores)
+        with warnings.catch_warnings(), threadpool_limits(1):
+            warnings.simplefilter("ignore")
             code = main([str(a) for a in argv], console=console)
-        except BaseException as exc:  # noqa: BLE001 - anything that gets out of main is recorded
-            escaped = exc
+    except BaseException as exc:  # noqa: BLE001 - anything that gets out of main is recorded
+        escaped = exc
+    finally:
+        sys.stderr = old_err
     seconds = time.perf_counter() - start
+    if capfd is None:
+        return Outcome(code, console.file.getvalue(), err.getvalue(), seconds, escaped)
     captured = capfd.readouterr()
     return Outcome(code, console.file.getvalue() + captured.out, captured.err, seconds, escaped)
 
@@ -188,7 +197,8 @@ def snapshot(root: Path) -> dict:
 
 def leftovers(root: Path) -> list:
     """Temporary files a run left behind (``*.tmp``, including ``.report.json.<hex>.tmp``)."""
-    return sorted(str(p) for p in Path(root).rglob("*") if p.name.endswith(".tmp") or ".tmp." in p.name)
+    return sorted(str(p) for p in Path(root).rglob("*")
+                  if p.name.endswith(".tmp") or ".tmp." in p.name)
 
 
 def error_lines(err: str) -> list:
@@ -215,16 +225,6 @@ def check_outcome(outcome: Outcome, case: Case) -> None:
     elif outcome.code in (0, 1):
         assert not any(ln.startswith("error:") for ln in lines), outcome.err
     assert outcome.seconds < case.seconds, f"took {outcome.seconds:.1f} s"
-
-
-@contextlib.contextmanager
-def chdir(path: Path):
-    old = os.getcwd()
-    os.chdir(path)
-    try:
-        yield
-    finally:
-        os.chdir(old)
 
 
 SIGNALS = {"TERM": signal.SIGTERM, "INT": signal.SIGINT}
