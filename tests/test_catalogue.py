@@ -585,3 +585,18 @@ def test_hostile_input_keeps_the_contract(name, workspace, tmp_path, capfd):
     assert not hostile.leftovers(tmp_path)
     if case.check is not None:
         case.check(workspace, outcome)
+
+
+def test_an_internal_error_is_exit_3_with_one_line_asking_for_a_report(workspace, capfd,
+                                                                       monkeypatch):
+    # a bug in probe (an exception that is not a ProbeError) stands in for any internal error
+    from probe import pipeline
+
+    def broken(*args, **kwargs):
+        raise ZeroDivisionError("planted\nsecond line")
+
+    monkeypatch.setattr(pipeline, "run_plan", broken)
+    outcome = hostile.run_in_process(workspace.argv("groups"), capfd)
+    hostile.check_outcome(outcome, Case([], codes=(3,)))
+    assert hostile.error_lines(outcome.err) == [
+        "error: internal error (ZeroDivisionError: planted); re-run with --debug and report it"]
