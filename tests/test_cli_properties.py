@@ -3,16 +3,16 @@
 The only allowed outcomes (docs/contracts.md): exit 0 or 1 with a report written, or exit 2 with
 exactly one ``error:`` line on stderr. Never exit 3 (an internal error), never an exception out of
 ``main``, never a traceback. Tables are random and small (5-60 rows; ints, floats with NaN / inf /
-1e308, strings with unicode, control characters and empty values, booleans, categories of 1-6
-levels, constant columns); the command line is random too (sub-command, model, options in and out
+1e308, all-missing columns, dates, strings with unicode, control characters and empty values,
+booleans, categories of 1-6 levels, constant columns); the command line is random too (sub-command, model, options in and out
 of range).
 
 Two generators share the strategies, to keep the default run short:
 
 - ``test_cheap_commands_end_in_a_documented_way``: 2,000 examples of groups / slices / compare,
   which run in milliseconds on a tiny table and reach every data, plan and option check;
-- ``test_every_command_ends_in_a_documented_way``: 200 examples over all five sub-commands,
-  including flips and proxies (which fit models, so cost tens of milliseconds to a second each).
+- ``test_flips_and_proxies_end_in_a_documented_way``: 200 examples of flips and proxies, which
+  fit models (nearest neighbours, gradient boosting), so cost tens of milliseconds to a second.
 """
 
 from __future__ import annotations
@@ -52,8 +52,8 @@ def score(frame):
 _TEXT = ["a", "b", "NA", "", "é", "日本", "\x1b[1m", "\u202e", " ", "x,y", '"q"', "None", "nan",
          "inf", "1", "0", "\t", "<b>"]
 _NAMES = ["c0", "c1", "é", "a b", "[x]", "c5"]
-_KINDS = ["int", "float", "wild-float", "text", "bool", "cat", "const"]
-_TAME_KINDS = [k for k in _KINDS if k != "wild-float"]
+_KINDS = ["int", "float", "text", "bool", "cat", "const", "date", "wild-float", "huge", "missing"]
+_TAME_KINDS = _KINDS[:7]  # the last three only in wild tables
 
 
 def _column(kind: str, n: int, rng: np.random.Generator, levels: int):
@@ -67,6 +67,12 @@ def _column(kind: str, n: int, rng: np.random.Generator, levels: int):
         hit = rng.uniform(size=n) < 0.3
         values[hit] = rng.choice(special, size=hit.sum())
         return values
+    if kind == "huge":  # finite, at the edge of float64
+        return rng.choice([1e308, -1e308, 0.0], size=n)
+    if kind == "missing":
+        return np.full(n, np.nan)
+    if kind == "date":
+        return rng.choice(pd.date_range("2024-01-01", periods=levels + 1).astype(str), size=n)
     if kind == "text":
         return rng.choice(_TEXT, size=n)
     if kind == "bool":
@@ -113,13 +119,18 @@ def frames(draw):
 
 def _flags(rng: np.random.Generator, rough: bool):
     """``flag(name, good, bad)``: ``[name, value]`` with probability ``p``, the value drawn from
-    ``good`` (and from ``bad`` too when the example is a rough one), as text. The coins come
-    from a seeded generator: hypothesis' own draws lean towards their first choice."""
+    ``good``. In a rough example one flag (at most) takes a value from ``bad`` instead, so that
+    the bad value is the only one and reaches as deep as it can. The coins come from a seeded
+    generator: hypothesis' own draws lean towards their first choice."""
+    left = [1 if rough else 0]
+
     def flag(name, good, bad=(), p=0.35):
         if rng.uniform() >= p:
             return []
-        values = list(good) + (list(bad) if rough else [])
-        value = values[rng.integers(len(values))]
+        pool = good
+        if bad and left[0] and rng.uniform() < 0.35:
+            pool, left[0] = bad, 0
+        value = pool[rng.integers(len(pool))]
         return [name] if value is None else [name, str(value)]
     return flag
 
@@ -245,10 +256,10 @@ _SETTINGS = dict(deadline=None, derandomize=True, database=None,
                                         HealthCheck.filter_too_much])
 
 CHEAP = ("groups", "slices", "compare")
-EVERY = ("groups", "slices", "compare", "flips", "proxies")
+MODELLING = ("flips", "proxies")
 
 test_cheap_commands_end_in_a_documented_way = settings(max_examples=2000, **_SETTINGS)(
     _property(CHEAP, json_report=False))
-test_every_command_ends_in_a_documented_way = settings(max_examples=200, **_SETTINGS)(
-    _property(EVERY, json_report=True))
+test_flips_and_proxies_end_in_a_documented_way = settings(max_examples=200, **_SETTINGS)(
+    _property(MODELLING, json_report=True))
 
