@@ -12,7 +12,7 @@ import math
 import numpy as np
 import pandas as pd
 
-from .data import is_numeric
+from .data import MAX_LEVELS, is_numeric
 from .errors import DataError, PlanError
 
 __all__ = ["quantile_edges", "fmt_number", "edge_texts", "bin_labels", "conjunction",
@@ -200,7 +200,8 @@ def group_view(frame: pd.DataFrame, columns, bins: dict | None) -> pd.DataFrame:
     categorical of :func:`bin_labels`, missing kept missing), wherever that column is a group:
     groups, intersections, the flips' source groups, the proxies' target. ``frame`` itself is not
     modified. A numeric column of ``columns`` with more than :data:`MAX_NUMERIC_GROUPS` distinct
-    values and no bins is a :class:`~probe.errors.DataError` with the fix."""
+    values and no bins, or any other column with more than :data:`~probe.data.MAX_LEVELS`, is a
+    :class:`~probe.errors.DataError` with the fix."""
     bins = bins or {}
     columns = list(dict.fromkeys(columns))
     stray = [b for b in bins if b not in columns]
@@ -218,6 +219,10 @@ def group_view(frame: pd.DataFrame, columns, bins: dict | None) -> pd.DataFrame:
             raise DataError(f"protected attribute `{name}` is numeric with {col.nunique()} "
                             f"distinct values (more than {MAX_NUMERIC_GROUPS} groups); "
                             + _BINS_FIX.format(a=name))
+        elif not is_numeric(col) and col.nunique() > MAX_LEVELS:
+            raise DataError(f"protected attribute `{name}` has {col.nunique()} distinct values "
+                            f"(at most {MAX_LEVELS} groups; that many look like an identifier "
+                            "rather than a group): merge its levels first, or name another column")
     return frame.assign(**banded) if banded else frame
 
 

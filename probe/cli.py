@@ -183,6 +183,10 @@ def _check_flags(args) -> None:
 
     for cls in SECTIONS.values():
         check_flags(args, cls)
+    if getattr(args, "data__bins", None) is not None:
+        from .bins import parse_bins
+
+        parse_bins(args.data__bins, where="--bins")  # blamed on the flag, not the plan key
     for key in ("seed", "confidence_level"):
         if getattr(args, key, None) is not None:
             check_top_level(key, getattr(args, key), "--" + key.replace("_", "-"))
@@ -255,6 +259,20 @@ def _plan(args, console):
     return plan.with_overrides(**overrides) if overrides else plan
 
 
+def _inputs(args, plan) -> dict[str, Path]:
+    """The files this run reads, by role: an output must never be one of them."""
+    found = {"the data": plan.resolve(plan.data.path)}
+    if args.command == "run":
+        found["the plan"] = Path(args.plan)
+    if getattr(args, "policy", None):
+        found["the policy"] = Path(args.policy)
+    specs = {"the model": plan.model.spec if plan.model else None,
+             "the baseline": plan.compare.baseline if plan.compare else None}
+    # a spec that is not a file (py:, cmd:, column:, http:) names no existing path, so never matches
+    found.update({role: Path(plan.resolve_spec(spec)) for role, spec in specs.items() if spec})
+    return found
+
+
 def _execute(args, console) -> int:
     from . import pipeline
     from .cli_paths import report_outputs
@@ -273,7 +291,7 @@ def _execute(args, console) -> int:
         return EXIT_OK
     plan = _plan(args, console)
     outputs = report_outputs(args, plan)
-    outputs.check()  # before any data is read or model loaded
+    outputs.check(inputs=_inputs(args, plan))  # before any data is read or model loaded
 
     argv = sys.argv[1:] if args.argv is None else args.argv
     command = "probe " + " ".join(shlex.quote(a) for a in argv)
@@ -320,8 +338,16 @@ def _render(args, console) -> int:
     return EXIT_OK
 
 
+def _one_line(exc: BaseException) -> str:
+    """An error message as one line: a newline or an escape from the data is shown escaped."""
+    from .report.fmt import visible
+
+    return visible(str(exc).strip())
+
+
 def _internal_error(exc: BaseException) -> str:
     first = str(exc).strip().splitlines()[0] if str(exc).strip() else ""
+    first = _one_line(first) if first else ""
     what = f"{type(exc).__name__}: {first}" if first else type(exc).__name__
     return f"error: internal error ({what}); re-run with --debug and report it"
 
@@ -349,7 +375,7 @@ def main(argv: Sequence[str] | None = None, *, console=None) -> int:
     except ProbeError as exc:
         if debug:
             traceback.print_exc()
-        err.print(f"error: {exc}", markup=False)
+        err.print(f"error: {_one_line(exc)}", markup=False)
         return EXIT_BAD_INPUT
     except Terminated as exc:
         err.print("interrupted" if exc.exit_code == EXIT_INTERRUPTED else f"terminated ({exc})",

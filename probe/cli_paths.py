@@ -14,6 +14,8 @@ A report folder is replaced as a whole and ``--json`` is written atomically on i
 
 from __future__ import annotations
 
+import os
+from collections.abc import Mapping
 from dataclasses import dataclass
 from datetime import datetime
 from pathlib import Path
@@ -39,12 +41,28 @@ class Outputs:
     folder: Path | None
     json_file: Path | None
 
-    def check(self) -> None:
-        """Refuse outputs that could not be written, before the analysis runs."""
+    def check(self, inputs: Mapping[str, Path] | None = None) -> None:
+        """Refuse outputs that could not be written, or that would overwrite one of ``inputs``
+        (role → path: the data, the plan, the model …), before the analysis runs."""
+        targets = {}
         if self.folder is not None:
             check_report_folder(self.folder, flag="--out")
+            targets.update({self.folder / name: "--out" for name in FILE_NAMES.values()})
         if self.json_file is not None:
             check_file_target(self.json_file, flag="--json")
+            targets[self.json_file] = "--json"
+        for role, source in (inputs or {}).items():
+            for target, flag in targets.items():
+                if _same_file(source, target):
+                    raise PlanError(f"{flag} `{target}` is {role} of this run; writing there would "
+                                    "overwrite it: choose another path")
+
+
+def _same_file(a: Path, b: Path) -> bool:
+    try:
+        return a.exists() and b.exists() and os.path.samefile(a, b)
+    except OSError:
+        return False
 
 
 def report_outputs(args, plan) -> Outputs:

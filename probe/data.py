@@ -291,6 +291,12 @@ def _label(frame: pd.DataFrame, label: str, positive: Any, where: str):
             f"({rows_text(missing)}); drop or fill those rows"
         )
     levels = list(pd.unique(y))
+    if len(levels) == 1:
+        raise DataError(
+            f"label column `{label}` in {where} holds one value only ({_plain(levels[0])!r}, all "
+            f"{len(y)} rows): error, false-positive and false-negative rates need both classes; "
+            "check the column and the file"
+        )
     if len(levels) > 2:
         shown = ", ".join(repr(_plain(v)) for v in levels[:6])
         raise DataError(

@@ -25,6 +25,10 @@ __all__ = ["DataOptions", "ModelOptions", "SliceOptions", "FlipOptions", "ProxyO
            "CompareOptions", "PolicyOptions", "ReportOptions", "MODES", "FORMATS", "INTERVALS",
            "check_option", "coerce_option", "add_flags", "check_flags", "flag_values", "option_fields"]
 
+#: The annotation of an option holding one value of a column (text, number or bool); checked by
+#: :func:`coerce_option`.
+Value = Any
+
 MODES = ("direct", "transport", "twins")
 FORMATS = ("json", "html", "md", "junit")
 INTERVALS = ("wilson", "bootstrap")
@@ -92,6 +96,10 @@ def coerce_option(f, value: Any, name: str) -> Any:
     if value is None and optional:
         return None
     if base == "Any":
+        return value
+    if base == "Value":  # one value of a column: a label value, a model class, a level
+        if isinstance(value, (list, tuple, dict, set)):
+            raise PlanError(f"`{name}` must be one value (text, number or true/false), got {value!r}")
         return value
     if base == "bool":
         if not isinstance(value, bool):
@@ -162,7 +170,7 @@ class DataOptions(_Checked):
     SECTION = "data"
     path: str = opt(help="holdout table (CSV, TSV, Parquet, Feather)", required=True, cli=False)
     label: str = opt("", help="the binary label column", cli=False)
-    positive: Any = opt(None, help="label value of the positive class", cli=False)
+    positive: Value | None = opt(None, help="label value of the positive class", cli=False)
     protected: tuple[str, ...] = opt((), help="protected attribute columns", cli=False)
     intersections: tuple[tuple[str, ...], ...] = opt((), help="joint groups to report", cli=False)
     features: tuple[str, ...] | None = opt(None, help="the model's input columns, in order",
@@ -203,7 +211,7 @@ class ModelOptions(_Checked):
     favorable: str | None = opt(None, choices=("positive", "negative"),
                                 help="which decision is the favourable outcome (default: "
                                      "positive, unless the label reads as adverse: then say)")
-    positive_class: Any = opt(None, metavar="VALUE",
+    positive_class: Value | None = opt(None, metavar="VALUE",
                               help="the model's class that means the label's positive value (when "
                                    "the model's classes and the label's values differ)")
     trust_pickle: bool = opt(False, help="trust the pickle/joblib model file named here (loading "
@@ -254,7 +262,7 @@ class FlipOptions(_Checked):
     attributes: tuple[str, ...] = opt((), cli=False, help="attributes to flip")
     modes: tuple[str, ...] = opt(MODES, choices=MODES, flag="--mode", metavar="M[,M]",
                                  help="direct, transport, twins")
-    reference: Any = opt(None, help="flip only into this value")
+    reference: Value | None = opt(None, help="flip only into this value")
     proxies: tuple[str, ...] | None = opt(None, metavar="A,B,...",
                                           help="proxies to move in transport mode")
     n_proxies: int = opt(3, lo=1, hi=50, help="proxies probe chooses when none are given")

@@ -93,6 +93,7 @@ def prepare(plan: Plan, *, clock: _Clock | None = None, progress: Progress | Non
                                   protected=d.protected, intersections=d.intersections,
                                   source=str(path), sha256=sha256_file(path))
     frame = holdout.frame
+    _check_named_columns(plan, frame, str(path))
     groups = group_view(frame, _group_columns(holdout.protected, holdout.intersections), d.bins)
     favorable, _ = resolve_favorable(plan.model.favorable, holdout.label, holdout.positive)
     with clock.step("load model"):
@@ -117,6 +118,20 @@ def prepare(plan: Plan, *, clock: _Clock | None = None, progress: Progress | Non
                                   exclude=_never_sliced(plan, holdout.label, model), bins=s.bins)
     return Evidence(holdout, inputs, runs, encoding, threshold=threshold,
                     favorable=favorable, groups=groups)
+
+
+def _check_named_columns(plan: Plan, frame, source: str) -> None:
+    """Every column a plan or flag names is in the data, checked before a model is loaded."""
+    named = {"data.features (--features)": plan.data.features or (),
+             "slices.columns (--columns)": plan.search.columns or (),
+             "slices.exclude (--exclude)": plan.search.exclude,
+             "flips.proxies (--proxies)": (plan.flips.proxies or ()) if plan.flips else (),
+             "proxies.features (--features)": (plan.proxies.features or ()) if plan.proxies else ()}
+    for role, names in named.items():
+        for name in names:
+            if name not in frame.columns:
+                raise DataError(f"`{role}` names column `{name}`, which is not in `{source}`"
+                                f"{close_names(name, list(map(str, frame.columns)))}")
 
 
 def _group_columns(protected, intersections) -> list:

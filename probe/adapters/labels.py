@@ -62,7 +62,8 @@ def class_index(classes: Sequence, positive: Any, spec: str, opts: Any = None) -
     shown = ", ".join(repr(c) for c in classes)
     if opts is None or opts.positive_class_given:
         raise ModelError(
-            f"positive class {positive!r} is not one of the classes of model `{spec}`: {shown}"
+            f"positive class {positive!r} (--positive-class, positive_class under [model]) is "
+            f"not one of the classes of model `{spec}`: {shown}"
         )
     held = "" if not opts.label_values else (
         "; the label holds " + ", ".join(repr(v) for v in opts.label_values[:10])
