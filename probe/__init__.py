@@ -12,20 +12,41 @@ local law and licensed practice.
 
 from ._version import __version__
 
-from .adapters import Model, load_model
-from .compare import Comparison, compare_models
-from .data import Holdout, prepare_holdout, read_table
-from .encode import Encoding, encode_columns
-from .errors import DataError, DegenerateWarning, ModelError, PlanError, ProbeError, TrustError
-from .flips import FlipFindings, flip_test
-from .groups import GroupMetrics, group_metrics
-from .pipeline import run_plan
-from .plan import Plan, load_plan, plan_from_dict
-from .policy import Verdict, judge
-from .proxies import ProxyFindings, find_proxies
-from .metrics import metric_outcome
-from .slices import Slice, SliceFindings, find_slices, search_slices
-from .stats import Estimate
+#: Where each public name lives. They are imported on first use (PEP 562), so that importing one
+#: part (the command line, a model's child process) does not import every analysis and scipy.
+_WHERE = {
+    "Model": "adapters", "load_model": "adapters",
+    "Comparison": "compare", "compare_models": "compare",
+    "Holdout": "data", "prepare_holdout": "data", "read_table": "data",
+    "Encoding": "encode", "encode_columns": "encode",
+    "DataError": "errors", "DegenerateWarning": "errors", "ModelError": "errors",
+    "PlanError": "errors", "ProbeError": "errors", "TrustError": "errors",
+    "FlipFindings": "flips", "flip_test": "flips",
+    "GroupMetrics": "groups", "group_metrics": "groups",
+    "run_plan": "pipeline",
+    "Plan": "plan", "load_plan": "plan", "plan_from_dict": "plan",
+    "Verdict": "policy", "judge": "policy",
+    "ProxyFindings": "proxies", "find_proxies": "proxies",
+    "metric_outcome": "metrics",
+    "Slice": "slices", "SliceFindings": "slices", "find_slices": "slices",
+    "search_slices": "slices",
+    "Estimate": "stats",
+}
+
+
+def __getattr__(name: str):
+    if name not in _WHERE:
+        raise AttributeError(f"module 'probe' has no attribute {name!r}")
+    import importlib
+
+    value = getattr(importlib.import_module(f".{_WHERE[name]}", __name__), name)
+    globals()[name] = value  # once
+    return value
+
+
+def __dir__():
+    return sorted(set(globals()) | set(_WHERE))
+
 
 __all__ = [
     "__version__",

@@ -22,6 +22,7 @@ from .adapters import load_model
 from .assemble import Findings, assemble_report, provenance
 from .bins import group_view
 from .compare import compare_models
+from .adapters.isolated import start_server
 from .data import close_names, prepare_holdout, read_table, sha256_file
 from .encode import encode_columns
 from .errors import DataError, ProbeWarning
@@ -87,6 +88,9 @@ def prepare(plan: Plan, *, clock: _Clock | None = None, progress: Progress | Non
     """Read the data, score every model the plan names once, and encode the slice columns once."""
     clock = clock or _Clock()
     d = plan.data
+    if plan.model.isolate:  # the model server's imports overlap reading the data
+        start_server([plan.resolve_spec(plan.model.spec)]
+                     + ([plan.resolve_spec(plan.compare.baseline)] if plan.compare else []))
     with clock.step("load data"):
         path = plan.resolve(d.path)
         holdout = prepare_holdout(read_table(path), label=d.label or None, positive=d.positive,

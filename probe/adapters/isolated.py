@@ -20,9 +20,11 @@ value already set, else at most 2) and its stderr goes to a temporary file whose
 quoted when the child crashes.
 
 Start-up: children are forked from one server process per probe process (multiprocessing's
-``forkserver``), started on first use with pandas, scikit-learn and LightGBM already imported and
-no thread pool ever run; a child is then ready in tens of milliseconds instead of re-importing
-them (about 0.7 s of CPU each). The server inherits the bounded thread variables.
+``forkserver``), started once (:func:`start_server`, early in a run so that its imports overlap
+reading the data) with pandas and what the model file's kind needs (LightGBM, scikit-learn,
+skops, onnxruntime) imported and no thread pool ever run; a child is then ready in tens of
+milliseconds instead of re-importing them (about 0.7 s of CPU each). The server inherits the
+bounded thread variables.
 """
 
 from __future__ import annotations
@@ -48,15 +50,18 @@ from .model import BatchFailure, Model, ProcessFailure
 from .options import Options
 from .worker import _HEADER, serve
 
-__all__ = ["load_isolated", "Worker"]
+__all__ = ["load_isolated", "start_server", "Worker"]
 
 #: The least time a child gets to start (imports), whatever ``timeout`` says.
 STARTUP_SECONDS = 60.0
 _THREAD_VARS = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS",
                 "VECLIB_MAXIMUM_THREADS", "NUMEXPR_NUM_THREADS")
 #: What the server imports once, so that each child starts with them loaded (a module that is
-#: not installed is skipped).
-_PRELOAD = ("probe.adapters.load", "pandas", "sklearn.base", "lightgbm", "skops.io")
+#: not installed is skipped): what every child needs, and what each kind of model file needs.
+_PRELOAD = ("probe.adapters.load", "pandas")
+_PRELOAD_BY_SUFFIX = {".txt": ("lightgbm",), ".lgb": ("lightgbm",), ".onnx": ("onnxruntime",),
+                      ".skops": ("sklearn.base", "skops.io"), ".joblib": ("sklearn.base",),
+                      ".pkl": ("sklearn.base",), ".pickle": ("sklearn.base",)}
 _SERVER_LOCK = threading.Lock()
 _context: Any = None
 _ERRORS = {"ModelError": errors.ModelError, "TrustError": errors.TrustError,
@@ -65,6 +70,7 @@ _ERRORS = {"ModelError": errors.ModelError, "TrustError": errors.TrustError,
 
 def load_isolated(text: str, opts: Options) -> Model:
     """The Model of ``text``, loaded in a child process that then scores its batches."""
+    start_server([text])
     worker = Worker(opts.timeout)
     try:
         worker.call(None, STARTUP_SECONDS + opts.timeout)  # the child's "ready"
@@ -226,13 +232,24 @@ def _threads() -> int:
         return max(1, min(2, os.cpu_count() or 1))
 
 
-def _server() -> Any:
-    """The forkserver context, its server started once with the heavy imports done."""
+def start_server(specs) -> None:
+    """Start the server children are forked from, if it is not running, preloading what the
+    model ``specs`` need. It imports in the background: call this early (before reading the
+    data) and the imports overlap that work."""
+    modules = list(_PRELOAD)
+    for spec in specs:
+        modules += _PRELOAD_BY_SUFFIX.get(os.path.splitext(str(spec).lower())[1], ())
+    _server(tuple(dict.fromkeys(modules)))
+
+
+def _server(preload: tuple[str, ...] = _PRELOAD) -> Any:
+    """The forkserver context, its server started once with ``preload`` imported (the first
+    caller's list: later models of another kind import theirs in their child)."""
     global _context
     with _SERVER_LOCK:
         if _context is None:
             context = multiprocessing.get_context("forkserver")
-            context.set_forkserver_preload(list(_PRELOAD))
+            context.set_forkserver_preload(list(preload))
             threads = str(_threads())
             saved = {var: os.environ.get(var) for var in _THREAD_VARS}
             os.environ.update({var: os.environ.get(var) or threads for var in _THREAD_VARS})
