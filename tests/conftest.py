@@ -1,6 +1,15 @@
-"""Shared fixtures: the invented scenarios, built once into the cache."""
+"""Shared fixtures: the invented scenarios, built once into the cache.
 
-import pytest
+The suite runs on two workers (pytest-xdist, ``-n 2`` in pyproject); each test process keeps its
+native thread pools (BLAS, OpenMP) at one thread, so the two never oversubscribe two cores.
+"""
+
+import os
+
+for _var in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
+    os.environ.setdefault(_var, "1")  # read by native libraries when they load (and by children)
+
+import pytest  # noqa: E402
 
 
 @pytest.fixture(scope="session")

@@ -27,9 +27,11 @@ def test_a_planted_slice_is_found():
 
 
 def test_the_comparison_localises_a_worse_slice_and_stays_quiet_on_null_data():
-    found, null = sim_slices.SIMS["compare"](runs=8, seed=300)
-    assert found.value * found.runs >= 6, found.row()  # power 0.9: P(5 or fewer in 8) = 0.04
-    assert null.value * null.runs <= 2, null.row()  # level 0.05: P(3 or more in 8) = 0.006
+    found, null = sim_slices.SIMS["compare"](runs=4, seed=300)
+    # binomial tails (scipy.stats.binom): at power 0.9, P(2 or fewer found in 4) = 0.052; at a
+    # level of 0.05, P(2 or more alarms in 4) = 0.014; the default run measures more
+    assert found.value * found.runs >= 3, found.row()
+    assert null.value * null.runs <= 1, null.row()
 
 
 def test_the_exact_paired_test_holds_its_level_on_rare_discordance():
