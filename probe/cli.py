@@ -13,6 +13,7 @@ import argparse
 import shlex
 import sys
 import traceback
+import warnings
 from pathlib import Path
 from typing import Sequence
 
@@ -183,6 +184,14 @@ def _check_flags(args) -> None:
 
     for cls in SECTIONS.values():
         check_flags(args, cls)
+    if getattr(args, "data__reference_groups", None) is not None:
+        from .options import check_references
+
+        check_references(args.data__reference_groups, "--reference-group")
+    for combo in getattr(args, "intersection", None) or ():
+        names = _list(combo)
+        if len(set(names)) != len(names) or len(names) < 2:
+            raise ProbeError(f"--intersection joins two or more different columns, got {combo!r}")
     if getattr(args, "data__bins", None) is not None:
         from .bins import parse_bins
 
@@ -345,6 +354,21 @@ def _one_line(exc: BaseException) -> str:
     return visible(str(exc).strip())
 
 
+def _print_warnings(err, caught) -> None:
+    """Each distinct warning once, one line (``warning: …``), after the run's own output."""
+    from .errors import ProbeWarning
+    from .report.fmt import visible
+
+    seen = []
+    for w in caught:
+        what = "" if issubclass(w.category, ProbeWarning) else f"{w.category.__name__}: "
+        line = f"warning: {what}{visible(str(w.message).strip())}"
+        if line not in seen:
+            seen.append(line)
+    for line in seen:
+        err.print(line, markup=False)
+
+
 def _internal_error(exc: BaseException) -> str:
     first = str(exc).strip().splitlines()[0] if str(exc).strip() else ""
     first = _one_line(first) if first else ""
@@ -364,14 +388,17 @@ def main(argv: Sequence[str] | None = None, *, console=None) -> int:
     err = Console(stderr=True, highlight=False, soft_wrap=True)
     debug = "--debug" in (argv if argv is not None else sys.argv[1:])
     try:
-        with terminating_on_signals():
+        with terminating_on_signals(), warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("default")
             parser = build_parser()
             args = parser.parse_args(argv)
             args.argv = None if argv is None else list(argv)
             if args.command is None:
                 parser.print_help(console.file)
                 return EXIT_BAD_INPUT
-            return _execute(args, console)
+            code = _execute(args, console)
+        _print_warnings(err, caught)  # after a finished run only: a failed one has its one line
+        return code
     except ProbeError as exc:
         if debug:
             traceback.print_exc()

@@ -163,6 +163,14 @@ def _plain(obj) -> Any:
 # the sections
 
 
+def check_references(entries, name: str) -> None:
+    """Each reference-group entry is ``ATTRIBUTE=LEVEL``; ``name`` says where it came from."""
+    for entry in entries:
+        attribute, sep, level = entry.partition("=")
+        if not sep or not attribute.strip() or not level.strip():
+            raise PlanError(f"{name} entries are ATTRIBUTE=LEVEL, got {entry!r}")
+
+
 @dataclass(frozen=True)
 class DataOptions(_Checked):
     """``[data]``: the holdout file and the roles of its columns."""
@@ -188,10 +196,11 @@ class DataOptions(_Checked):
         from .bins import parse_bins
 
         object.__setattr__(self, "bins", parse_bins(self.bins))
-        for entry in self.reference_groups:
-            attribute, sep, level = entry.partition("=")
-            if not sep or not attribute.strip() or not level.strip():
-                raise PlanError(f"`data.reference_groups` entries are ATTRIBUTE=LEVEL, got {entry!r}")
+        check_references(self.reference_groups, "`data.reference_groups`")
+        for combo in self.intersections:
+            if len(set(combo)) != len(combo) or len(combo) < 2:
+                raise PlanError(f"`data.intersections` entries join two or more different columns, "
+                                f"got {list(combo)!r}")
 
     @property
     def references(self) -> dict[str, str]:

@@ -391,3 +391,32 @@ def test_readme_and_contracts_document_the_new_surface():
         assert needle in readme, needle
     for needle in ("| 3 |", "| 143 |", "probe render", "--policy", "**The path rule.**"):
         assert needle in contracts, needle
+
+
+def _warning_model(folder, *, fail: bool):
+    (folder / "warns.py").write_text(
+        "import warnings\nimport numpy as np\n"
+        "def score(frame):\n"
+        "    for _ in range(3):\n"
+        "        warnings.warn('careful\\nnow \\x1b[31m')\n"
+        f"    return np.full(len(frame), {'np.nan' if fail else 0.6})\n")
+    return f"py:{folder / 'warns.py'}:score"
+
+
+def test_warnings_are_one_line_each_after_a_finished_run(tmp_path, capsys):
+    # the same warning three times: one line, escaped, after the run's output
+    data = _holdout(tmp_path, 0.3)
+    code = main(["groups", "--data", str(data), "--label", "y", "--protected", "group", "--quiet",
+                 "--model", _warning_model(tmp_path, fail=False), "--no-isolate"],
+                console=_console())
+    assert code == EXIT_OK
+    assert capsys.readouterr().err.splitlines() == ["warning: UserWarning: careful\\nnow \\x1b[31m"]
+
+
+def test_a_failed_run_prints_its_error_line_alone(tmp_path, capsys):
+    data = _holdout(tmp_path, 0.3)
+    code = main(["groups", "--data", str(data), "--label", "y", "--protected", "group", "--quiet",
+                 "--model", _warning_model(tmp_path, fail=True), "--no-isolate"],
+                console=_console())
+    assert code == EXIT_BAD_INPUT
+    assert "warns.py" in _one_error(capsys)  # the scoring failure, with no warning line beside it
