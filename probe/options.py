@@ -295,6 +295,9 @@ class CompareOptions(_Checked):
     SECTION = "compare"
     baseline: str = opt("", required=True, metavar="SPEC", help="the production model")
     metric: str = opt("error", choices=METRIC_NAMES, help="the rate compared and searched")
+    baseline_sha256: str | None = opt(None, cli=False, help="the SHA-256 the baseline's model file "
+                                                            "must have; a pickle whose hash "
+                                                            "matches is trusted")
 
 
 @dataclass(frozen=True)

@@ -62,15 +62,15 @@ def _bar(progress: Progress | None, step: str):
     return lambda done, total: progress(step, done, total)
 
 
-def _load(plan: Plan, spec: str, holdout, *, pinned: bool):
-    """Load a model with the plan's options; ``pinned``: the plan's ``sha256`` names this file."""
+def _load(plan: Plan, spec: str, holdout, *, pin: str | None):
+    """Load a model with the plan's options; ``pin``: the SHA-256 the plan gives its file."""
     m = plan.model
     values = None
     if holdout.label:
         values = sorted(holdout.frame[holdout.label].dropna().unique().tolist(), key=str)
     return load_model(plan.resolve_spec(spec), base_dir=plan.base_dir, positive=holdout.positive,
                       positive_class=m.positive_class, label_values=values,
-                      trust_pickle=m.trust_pickle, sha256=m.sha256 if pinned else None,
+                      trust_pickle=m.trust_pickle, sha256=pin,
                       trusted_types=m.trusted_types, feature_names=plan.data.features,
                       batch_size=m.batch_size, timeout=m.timeout, isolate=m.isolate,
                       allow_unseen=m.allow_unseen)
@@ -101,7 +101,7 @@ def prepare(plan: Plan, *, clock: _Clock | None = None, progress: Progress | Non
     groups = group_view(frame, _group_columns(holdout.protected, holdout.intersections), d.bins)
     favorable, _ = resolve_favorable(plan.model.favorable, holdout.label, holdout.positive)
     with clock.step("load model"):
-        model = _load(plan, plan.model.spec, holdout, pinned=True)
+        model = _load(plan, plan.model.spec, holdout, pin=plan.model.sha256)
     if plan.flips is not None:
         refuse_fixed_scores(model)  # before the scoring and every other analysis
     # the model never sees the label, even when it reads the whole frame (py:, cmd:, http:)
@@ -112,7 +112,8 @@ def prepare(plan: Plan, *, clock: _Clock | None = None, progress: Progress | Non
             model, model.scores(inputs, progress=_bar(progress, "scoring")), threshold)}
     if plan.compare is not None:
         with clock.step("score baseline"):
-            baseline = _load(plan, plan.compare.baseline, holdout, pinned=False)
+            baseline = _load(plan, plan.compare.baseline, holdout,
+                             pin=plan.compare.baseline_sha256)
             runs["baseline"] = ModelRun.from_scores(
                 baseline, baseline.scores(inputs, progress=_bar(progress, "scoring baseline")),
                 threshold)

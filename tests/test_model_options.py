@@ -115,6 +115,22 @@ def test_a_matching_pin_grants_trust_and_another_file_is_refused(files, capsys):
     assert pin in line and other in line  # a pin refuses any other file, flag or not
 
 
+def test_the_baselines_own_pin_grants_its_trust_and_refuses_another_file(files, capsys):
+    import shutil
+
+    shutil.copy(files / "m.joblib", files / "b.joblib")
+    pin = hashlib.sha256((files / "m.joblib").read_bytes()).hexdigest()  # reference: hashlib
+    for baseline_pin, expected in ((pin, EXIT_OK), ("0" * 64, EXIT_BAD_INPUT)):
+        plan = _plan(files, f'sha256 = "{pin}"')
+        plan.write_text(plan.read_text() + '[compare]\nbaseline = "b.joblib"\n'
+                        f'baseline_sha256 = "{baseline_pin}"\n[slices]\ndepth = 1\n')
+        code, err = _main(["run", str(plan)], capsys)
+        assert code == expected, err
+        if expected == EXIT_BAD_INPUT:
+            line = _one_error(err)
+            assert "b.joblib" in line and pin in line and "0" * 64 in line
+
+
 def test_a_bad_pin_is_a_plan_error(files, capsys):
     code, err = _main(["run", str(_plan(files, 'sha256 = "abc"'))], capsys)
     assert code == EXIT_BAD_INPUT and "`sha256` must be the 64 hexadecimal digits" in \

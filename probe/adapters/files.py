@@ -29,14 +29,15 @@ def read_bytes(path: Path, text: str) -> bytes:
 
 
 def check_pin(sha: str | None, text: str, pinned: str | None) -> None:
-    """Refuse a file whose SHA-256 is not the pinned one (``sha256`` under [model])."""
+    """Refuse a file whose SHA-256 is not the pinned one (``sha256`` under [model],
+    ``baseline_sha256`` under [compare])."""
     if pinned is None or sha == pinned:
         return
     if sha is None:
         raise PlanError(f"`sha256` pins a model file, and model `{text}` has none to check")
     raise TrustError(
         f"model file `{text}` has SHA-256 {sha}, not the pinned {pinned} (sha256 under "
-        "[model]); it is not the file the plan names"
+        "[model], baseline_sha256 under [compare]); it is not the file the plan names"
     )
 
 
