@@ -215,6 +215,12 @@ def group_view(frame: pd.DataFrame, columns, bins: dict | None) -> pd.DataFrame:
             if not is_numeric(col):
                 raise DataError(f"`data.bins` bins `{name}`, which is not numeric")
             banded[name] = _bands(col, name, bins[name])
+            used = pd.unique(banded[name][~pd.isna(banded[name])])
+            if len(used) < 2:
+                raise DataError(f"the bins of `{name}` put every row in one band "
+                                f"({used[0] if len(used) else 'none'}), "
+                                "so there is nothing to compare; choose edges inside the data's "
+                                f"range ({col.min():g} to {col.max():g})")
         elif is_numeric(col) and col.nunique() > MAX_NUMERIC_GROUPS:
             raise DataError(f"protected attribute `{name}` is numeric with {col.nunique()} "
                             f"distinct values (more than {MAX_NUMERIC_GROUPS} groups); "

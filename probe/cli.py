@@ -12,22 +12,18 @@ from __future__ import annotations
 import argparse
 import shlex
 import sys
-import traceback
 import warnings
 from pathlib import Path
 from typing import Sequence
 
+from .cli_outcome import (EXIT_BAD_INPUT, EXIT_INTERNAL, EXIT_INTERRUPTED, EXIT_OK,
+                          EXIT_POLICY_FAILED, print_warnings, report_failure)
 from .cli_signals import Terminated, terminating_on_signals
 from .errors import DataError, ProbeError
 
 __all__ = ["main", "EXIT_OK", "EXIT_POLICY_FAILED", "EXIT_BAD_INPUT", "EXIT_INTERNAL",
            "EXIT_INTERRUPTED"]
 
-EXIT_OK = 0
-EXIT_POLICY_FAILED = 1
-EXIT_BAD_INPUT = 2
-EXIT_INTERNAL = 3
-EXIT_INTERRUPTED = 130
 
 _EXIT_CODES = ("Exit codes: 0 ran and the policy passed (or there is none), 1 the policy failed, "
                "2 bad usage or input, 3 internal error (a bug: re-run with --debug and report it), "
@@ -347,35 +343,6 @@ def _render(args, console) -> int:
     return EXIT_OK
 
 
-def _one_line(exc: BaseException) -> str:
-    """An error message as one line: a newline or an escape from the data is shown escaped."""
-    from .report.fmt import visible
-
-    return visible(str(exc).strip())
-
-
-def _print_warnings(err, caught) -> None:
-    """Each distinct warning once, one line (``warning: …``), after the run's own output."""
-    from .errors import ProbeWarning
-    from .report.fmt import visible
-
-    seen = []
-    for w in caught:
-        what = "" if issubclass(w.category, ProbeWarning) else f"{w.category.__name__}: "
-        line = f"warning: {what}{visible(str(w.message).strip())}"
-        if line not in seen:
-            seen.append(line)
-    for line in seen:
-        err.print(line, markup=False)
-
-
-def _internal_error(exc: BaseException) -> str:
-    first = str(exc).strip().splitlines()[0] if str(exc).strip() else ""
-    first = _one_line(first) if first else ""
-    what = f"{type(exc).__name__}: {first}" if first else type(exc).__name__
-    return f"error: internal error ({what}); re-run with --debug and report it"
-
-
 def main(argv: Sequence[str] | None = None, *, console=None) -> int:
     """Run the command line; return the exit code.
 
@@ -387,8 +354,10 @@ def main(argv: Sequence[str] | None = None, *, console=None) -> int:
     console = console or Console(highlight=False)
     err = Console(stderr=True, highlight=False, soft_wrap=True)
     debug = "--debug" in (argv if argv is not None else sys.argv[1:])
+    received: list[int] = []
     try:
-        with terminating_on_signals(), warnings.catch_warnings(record=True) as caught:
+        with terminating_on_signals() as received, \
+                warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("default")
             parser = build_parser()
             args = parser.parse_args(argv)
@@ -397,22 +366,11 @@ def main(argv: Sequence[str] | None = None, *, console=None) -> int:
                 parser.print_help(console.file)
                 return EXIT_BAD_INPUT
             code = _execute(args, console)
-        _print_warnings(err, caught)  # after a finished run only: a failed one has its one line
+        if received:  # a signal whose exception a library swallowed
+            raise Terminated(received[0])
+        print_warnings(err, caught)  # after a finished run only: a failed one has its one line
         return code
-    except ProbeError as exc:
-        if debug:
-            traceback.print_exc()
-        err.print(f"error: {_one_line(exc)}", markup=False)
-        return EXIT_BAD_INPUT
-    except Terminated as exc:
-        err.print("interrupted" if exc.exit_code == EXIT_INTERRUPTED else f"terminated ({exc})",
-                  markup=False)
-        return exc.exit_code
-    except KeyboardInterrupt:
-        err.print("interrupted", markup=False)
-        return EXIT_INTERRUPTED
-    except Exception as exc:  # a bug in probe: one line, the traceback only when asked
-        if debug:
-            traceback.print_exc()
-        err.print(_internal_error(exc), markup=False)
-        return EXIT_INTERNAL
+    except (Exception, KeyboardInterrupt, Terminated) as exc:  # SystemExit (--help) passes
+        if received and not isinstance(exc, Terminated):  # a library turned it into another error
+            exc = Terminated(received[0])
+        return report_failure(exc, err, debug)

@@ -50,12 +50,20 @@ class Outputs:
             targets.update({self.folder / name: "--out" for name in FILE_NAMES.values()})
         if self.json_file is not None:
             check_file_target(self.json_file, flag="--json")
+            if self.folder is not None and _inside(self.json_file, self.folder):
+                raise PlanError(f"--json `{self.json_file}` is inside the report folder "
+                                f"`{self.folder}`, which already holds report.json (and is "
+                                "replaced as a whole by the next run); write it elsewhere")
             targets[self.json_file] = "--json"
         for role, source in (inputs or {}).items():
             for target, flag in targets.items():
                 if _same_file(source, target):
                     raise PlanError(f"{flag} `{target}` is {role} of this run; writing there would "
                                     "overwrite it: choose another path")
+
+
+def _inside(path: Path, folder: Path) -> bool:
+    return Path(os.path.abspath(folder)) in Path(os.path.abspath(path)).parents
 
 
 def _same_file(a: Path, b: Path) -> bool:

@@ -39,11 +39,15 @@ class Terminated(BaseException):
 
 @contextmanager
 def terminating_on_signals():
-    """Within the block, SIGINT/SIGTERM/SIGHUP raise :class:`Terminated` (main thread only)."""
-    if threading.current_thread() is not threading.main_thread():
-        yield
-        return
+    """Within the block, SIGINT/SIGTERM/SIGHUP raise :class:`Terminated` (main thread only).
+
+    Yields the list of signals received: a library may turn the exception raised in the middle of
+    its own code into another one, so the caller reads the exit code from this list too.
+    """
     received: list[int] = []
+    if threading.current_thread() is not threading.main_thread():
+        yield received
+        return
 
     def handler(signum, frame):
         if received:
@@ -55,7 +59,7 @@ def terminating_on_signals():
     # a signal the caller ignores (nohup's SIGHUP) stays ignored
     before = {s: signal.signal(s, handler) for s in signums if signal.getsignal(s) is not signal.SIG_IGN}
     try:
-        yield
+        yield received
     finally:
         for s, h in before.items():
             signal.signal(s, h)

@@ -29,6 +29,9 @@ __all__ = ["DataOptions", "ModelOptions", "SliceOptions", "FlipOptions", "ProxyO
 #: :func:`coerce_option`.
 Value = Any
 
+#: The longest ``timeout`` (seconds, 30 days): a bound a clock can hold, far past any real batch.
+MAX_TIMEOUT = 2_592_000.0
+
 MODES = ("direct", "transport", "twins")
 FORMATS = ("json", "html", "md", "junit")
 INTERVALS = ("wilson", "bootstrap")
@@ -231,12 +234,13 @@ class ModelOptions(_Checked):
     trusted_types: tuple[str, ...] = opt((), flag="--trust-type", metavar="TYPE",
                                          help="types to trust when loading a .skops file")
     batch_size: int = opt(50_000, lo=1, help="rows per call to the model")
-    timeout: float = opt(600.0, lo=0.001, help="seconds loading the model, then each batch, may "
-                                               "take (every kind but a model in this process)")
+    timeout: float = opt(600.0, lo=0.001, hi=MAX_TIMEOUT,
+                         help="seconds loading the model, then each batch, may take (every kind "
+                              "but a model in this process)")
     isolate: bool = opt(True, flag="--no-isolate",
-                        help="load and score model files and py: models in a child process, so a "
-                             "crash, hang or exit becomes an error (--no-isolate: in this "
-                             "process, with no time limit)")
+                        help="load and score model files and py: models in this process, with no "
+                             "time limit and no protection from a crash or exit (by default they "
+                             "run in a child process)")
     allow_unseen: bool = opt(False, help="score rows whose categorical value the model never saw "
                                          "(as the model treats unknown values) instead of "
                                          "refusing them")

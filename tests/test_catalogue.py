@@ -427,6 +427,11 @@ CASES = {
     "flag-bins-edges-numeric-age": lambda w: w.case(
         "groups", "--bins", "age=25:40:60", "--json", "r.json", protected="age", codes=(0,),
         check=_at_most_groups("age", 4), data=w.variant(**_NUMERIC_AGE)),
+    "flag-bins-one-band-for-every-row": lambda w: w.case(
+        "groups", "--bins", "age=90:100", protected="age", needle="one band",
+        data=w.variant(**_NUMERIC_AGE)),
+    "flag-timeout-past-any-clock": lambda w: w.case("groups", "--timeout", "1e12",
+                                                    needle="--timeout"),
     "flag-policy-missing-file": lambda w: w.case("groups", "--policy", "nope.toml",
                                                  needle="nope.toml"),
     "flag-policy-bad-toml": lambda w: w.case("groups", "--policy", w.file("p.toml", "[policy\n"),
@@ -536,6 +541,11 @@ CASES = {
     "json-parent-is-a-file": lambda w: w.case("groups", "--json", w.file("taken", "x") + "/r.json"),
     "json-onto-the-data-file": lambda w: w.case("groups", "--json", w.data),
     "out-into-the-data-folder": lambda w: w.case("groups", "--out", str(w.root), codes=(0, 2)),
+    "out-a-symbolic-link": lambda w: (w.root.joinpath("real").mkdir(),
+                                      w.root.joinpath("link").symlink_to(w.root / "real"),
+                                      w.case("groups", "--out", "link", needle="symbolic"))[-1],
+    "json-inside-the-out-folder": lambda w: w.case("groups", "--out", "o", "--json", "o/x.json",
+                                                   needle="inside the report folder"),
     "out-checked-before-the-model-runs": lambda w: w.case(
         "groups", "--out", w.file("taken", "x") + "/sub",
         model=_py(w, "open('CALLED', 'w').close()\nreturn np.full(len(frame), 0.5)"),

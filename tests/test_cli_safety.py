@@ -97,6 +97,21 @@ def test_keyboard_interrupt_is_130_and_signal_handlers_are_restored(tmp_path, mo
     assert {s: signal.getsignal(s) for s in before} == before
 
 
+def test_a_signal_a_library_turned_into_another_error_still_ends_the_run_as_the_signal(
+        tmp_path, monkeypatch, capsys):
+    # numpy, for one, can turn an exception raised inside its C code into a ValueError
+    def converting(*args, **kwargs):
+        try:
+            os.kill(os.getpid(), signal.SIGTERM)
+            time.sleep(5)
+        except BaseException:
+            raise ValueError("not a valid PEP 3118 buffer format string") from None
+
+    monkeypatch.setattr(pipeline, "run_plan", converting)
+    assert main(_groups(_holdout(tmp_path, 0.3, n=50)), console=_console()) == 143
+    assert capsys.readouterr().err.strip() == "terminated (SIGTERM)"
+
+
 # -- 2 and 3. signals mid-write: no temporary file, the old folder or the new one whole ----------
 
 

@@ -136,7 +136,7 @@ class Worker:
                 f"gave no answer within {timeout:g} s",
                 "; raise --timeout / [model] timeout if it is just slow")
             raise self._failure from None
-        except (BrokenPipeError, EOFError):
+        except (BrokenPipeError, ConnectionResetError, EOFError):
             self._failure = self._ended()
             raise self._failure from None
         except BaseException:  # interrupted: the child must not outlive the wait
@@ -225,11 +225,12 @@ def _last_line(file: Any) -> str:
 
 
 def _threads() -> int:
-    """The child's thread bound: ``OMP_NUM_THREADS`` when set, else at most 2."""
+    """The child's thread bound: at most 2, and at most ``OMP_NUM_THREADS`` when that is set."""
+    bound = max(1, min(2, os.cpu_count() or 1))
     try:
-        return max(1, int(os.environ.get("OMP_NUM_THREADS", "")))
+        return max(1, min(bound, int(os.environ.get("OMP_NUM_THREADS", ""))))
     except ValueError:
-        return max(1, min(2, os.cpu_count() or 1))
+        return bound
 
 
 def start_server(specs) -> None:

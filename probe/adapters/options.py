@@ -11,6 +11,7 @@ from typing import Any
 import numpy as np
 
 from probe.errors import PlanError
+from probe.options import MAX_TIMEOUT
 
 from .messages import ticks
 
@@ -68,8 +69,9 @@ def load_model_iv(*, base_dir, positive, positive_class=None, label_values=None,
             or batch_size < 1):
         raise PlanError(f"`batch_size` must be a whole number of at least 1, got {batch_size!r}")
     if (isinstance(timeout, bool) or not isinstance(timeout, (int, float))
-            or not math.isfinite(timeout) or timeout <= 0):
-        raise PlanError(f"`timeout` must be a positive number of seconds, got {timeout!r}")
+            or not math.isfinite(timeout) or not 0 < timeout <= MAX_TIMEOUT):
+        raise PlanError(f"`timeout` must be a positive number of seconds up to {MAX_TIMEOUT:g}, "
+                        f"got {timeout!r}")
     if sha256 is not None:
         if not isinstance(sha256, str) or not _HEX64.fullmatch(sha256.strip().lower()):
             raise PlanError(

@@ -122,7 +122,10 @@ def _loop(proto_in: int, proto_out: int) -> None:
 def serve(conn: Any, log: str, threads: int) -> None:
     """The forked child's entry: the protocol on ``conn``; prints and errors go to ``log``."""
     signal.signal(signal.SIGINT, signal.SIG_IGN)
-    out = os.open(log, os.O_WRONLY | os.O_APPEND)
+    try:
+        out = os.open(log, os.O_WRONLY | os.O_APPEND)
+    except OSError:  # the parent gave up on this child (interrupted) before it started
+        os._exit(1)
     null = os.open(os.devnull, os.O_RDONLY)
     os.dup2(null, 0)
     os.dup2(out, 1)

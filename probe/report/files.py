@@ -128,10 +128,13 @@ def check_report_folder(folder: str | os.PathLike, *, flag: str = "--out") -> No
     Raises
     ------
     PlanError
-        The path is a file, holds files other than a report's, or its parent (or nearest existing
+        The path is a file or a symbolic link, holds files other than a report's, or its parent (or nearest existing
         ancestor) cannot be written.
     """
     folder = Path(folder)
+    if folder.is_symlink():  # the swap would replace the link itself, not the folder it names
+        raise PlanError(f"report folder `{folder}` is a symbolic link; give the folder it points "
+                        f"to ({os.path.realpath(folder)}) as {flag}")
     if folder.exists():
         if not folder.is_dir():
             raise PlanError(f"report folder `{folder}` exists and is not a folder; choose another {flag}")
