@@ -357,8 +357,7 @@ def main(argv: Sequence[str] | None = None, *, console=None) -> int:
     received: list[int] = []
     try:
         with terminating_on_signals() as received, \
-                warnings.catch_warnings(record=True) as caught:
-            warnings.simplefilter("default")
+                warnings.catch_warnings(record=True) as caught:  # the caller's filters hold
             parser = build_parser()
             args = parser.parse_args(argv)
             args.argv = None if argv is None else list(argv)
