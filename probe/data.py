@@ -21,7 +21,7 @@ import pandas as pd
 from .errors import DataError
 
 __all__ = ["read_table", "sha256_file", "prepare_holdout", "Holdout", "close_names", "rows_text",
-           "require_finite", "is_numeric", "attribute_levels", "MAX_LEVELS", "MISSING_TOKENS"]
+           "require_finite", "check_columns", "is_numeric", "attribute_levels", "MAX_LEVELS", "MISSING_TOKENS"]
 
 _READERS = {
     ".csv": "csv",
@@ -257,7 +257,7 @@ def _plain(value):
     return value.item() if isinstance(value, np.generic) else value
 
 
-def _check_columns(frame: pd.DataFrame, names: Sequence[str], role: str, where: str) -> None:
+def check_columns(frame: pd.DataFrame, names: Sequence[str], role: str, where: str) -> None:
     for name in names:
         if name not in frame.columns:
             raise DataError(
@@ -368,12 +368,12 @@ def prepare_holdout(
         raise DataError("`label` must name the label column")
     protected = tuple(dict.fromkeys(protected))
     intersections = tuple(tuple(c) for c in intersections)
-    _check_columns(frame, [label] if label else [], "label", where)
-    _check_columns(frame, protected, "protected", where)
+    check_columns(frame, [label] if label else [], "label", where)
+    check_columns(frame, protected, "protected", where)
     for combo in intersections:
         if len(combo) < 2:
             raise DataError(f"an intersection needs at least two columns, got {list(combo)}")
-        _check_columns(frame, combo, "intersection", where)
+        check_columns(frame, combo, "intersection", where)
     if label in protected:
         raise DataError(f"column `{label}` cannot be both the label and a protected attribute")
     chosen, y_true = (None, None) if label is None else _label(frame, label, positive, where)

@@ -23,7 +23,7 @@ from .assemble import Findings, assemble_report, provenance
 from .bins import group_view
 from .compare import compare_models
 from .adapters.isolated import start_server
-from .data import close_names, prepare_holdout, read_table, sha256_file
+from .data import check_columns, close_names, prepare_holdout, read_table, sha256_file
 from .encode import encode_columns
 from .errors import DataError, ProbeWarning
 from .evidence import Evidence, ModelRun
@@ -127,16 +127,13 @@ def prepare(plan: Plan, *, clock: _Clock | None = None, progress: Progress | Non
 
 def _check_named_columns(plan: Plan, frame, source: str) -> None:
     """Every column a plan or flag names is in the data, checked before a model is loaded."""
-    named = {"data.features (--features)": plan.data.features or (),
-             "slices.columns (--columns)": plan.search.columns or (),
-             "slices.exclude (--exclude)": plan.search.exclude,
-             "flips.proxies (--proxies)": (plan.flips.proxies or ()) if plan.flips else (),
-             "proxies.features (--features)": (plan.proxies.features or ()) if plan.proxies else ()}
+    named = {"`data.features` (--features)": plan.data.features or (),
+             "`slices.columns` (--columns)": plan.search.columns or (),
+             "`slices.exclude` (--exclude)": plan.search.exclude,
+             "`flips.proxies` (--proxies)": (plan.flips.proxies or ()) if plan.flips else (),
+             "`proxies.features` (--features)": (plan.proxies.features or ()) if plan.proxies else ()}
     for role, names in named.items():
-        for name in names:
-            if name not in frame.columns:
-                raise DataError(f"`{role}` names column `{name}`, which is not in `{source}`"
-                                f"{close_names(name, list(map(str, frame.columns)))}")
+        check_columns(frame, names, role, f"`{source}`")
 
 
 def _group_columns(protected, intersections) -> list:
