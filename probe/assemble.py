@@ -64,7 +64,7 @@ def assemble_report(findings: Findings, verdict, provenance: dict) -> dict:
         comparison = {"baseline": f.baseline, **f.comparison.to_dict()}
     report = {
         "schema": SCHEMA,
-        "caution": CAUTION,
+        "caution": caution(provenance.get("design")),
         "provenance": provenance,
         "verdict": verdict.to_dict(),
         "groups": None if f.groups is None else f.groups.to_dict(),
@@ -75,6 +75,17 @@ def assemble_report(findings: Findings, verdict, provenance: dict) -> dict:
         "comparison": comparison,
     }
     return {key: report.get(key) for key in _ORDER}
+
+
+def caution(design: dict | None) -> str:
+    """The report's caution: :data:`CAUTION`, and the membership caution when groups were
+    estimated from probabilities."""
+    if not design or not design.get("membership"):
+        return CAUTION
+    from .design import MEMBERSHIP_CAUTION
+
+    names = ", ".join(f"`{a}`" for a in design["membership"])
+    return CAUTION + " " + MEMBERSHIP_CAUTION.format(attributes=names)
 
 
 def versions() -> dict:
@@ -89,10 +100,12 @@ def versions() -> dict:
 
 
 def provenance(plan, *, command: str | None, timings: dict, model: dict | None,
-               data: dict, favorable: tuple[str, bool] | None = None) -> dict:
+               data: dict, favorable: tuple[str, bool] | None = None, design=None) -> dict:
     """What an auditor needs to reproduce the run: inputs, their hashes, the plan, seed, versions.
 
-    ``favorable`` is the reading used and whether the plan stated it (None without a model)."""
+    ``favorable`` is the reading used and whether the plan stated it (None without a model);
+    ``design`` the :class:`~probe.design.Design` when weights, clusters or membership
+    probabilities were given (``design`` is null otherwise)."""
     return {
         "probe_version": __version__,
         "created": datetime.now(timezone.utc).isoformat(timespec="seconds"),
@@ -104,6 +117,7 @@ def provenance(plan, *, command: str | None, timings: dict, model: dict | None,
         "favorable_stated": favorable[1] if favorable else None,
         "model": model,
         "data": data,
+        "design": None if design is None or design.given is False else design.describe(),
         "plan": plan.to_dict(),
         "plan_sha256": plan.sha256,
         "versions": versions(),

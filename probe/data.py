@@ -334,6 +334,7 @@ def prepare_holdout(
     intersections: Sequence[Sequence[str]] = (),
     source: str = "<DataFrame>",
     sha256: str | None = None,
+    membership: Sequence[str] = (),
 ) -> Holdout:
     """Check the column roles of a holdout table and return a :class:`Holdout`.
 
@@ -354,6 +355,8 @@ def prepare_holdout(
         Combinations (of protected attributes or any other columns) reported as joint groups.
     source, sha256 : str, optional
         Where the frame came from, for messages and provenance.
+    membership : sequence of str, default=()
+        Protected attributes known as membership probabilities (:mod:`probe.design`), not columns.
 
     Raises
     ------
@@ -369,17 +372,18 @@ def prepare_holdout(
     protected = tuple(dict.fromkeys(protected))
     intersections = tuple(tuple(c) for c in intersections)
     check_columns(frame, [label] if label else [], "label", where)
-    check_columns(frame, protected, "protected", where)
+    recorded = [c for c in protected if c not in membership]
+    check_columns(frame, recorded, "protected", where)
     for combo in intersections:
         if len(combo) < 2:
             raise DataError(f"an intersection needs at least two columns, got {list(combo)}")
-        check_columns(frame, combo, "intersection", where)
+        check_columns(frame, [c for c in combo if c not in membership], "intersection", where)
     if label in protected:
         raise DataError(f"column `{label}` cannot be both the label and a protected attribute")
     chosen, y_true = (None, None) if label is None else _label(frame, label, positive, where)
 
     unknown = {}
-    for name in protected:
+    for name in recorded:
         col = frame[name]
         observed = col.dropna().unique()
         if len(observed) < 2:

@@ -10,8 +10,8 @@ scores and decisions, the favourable decision, and the slice columns encoded onc
 - :meth:`Evidence.outcome` gives a metric's per-row outcome and base population (from
   :mod:`probe.metrics`), derived on first use and kept.
 
-Row weights are a column of the evidence (all ones unless given) so that weighting reaches every
-analysis from here.
+The sampling design (:class:`probe.design.Design`: row weights, clusters, attributes known as
+membership probabilities) is part of the evidence, so that it reaches every analysis from here.
 """
 
 from __future__ import annotations
@@ -23,6 +23,7 @@ import numpy as np
 import pandas as pd
 
 from .data import Holdout
+from .design import Design
 from .encode import Encoding
 from .metrics import as_favorable, get_metric
 
@@ -76,8 +77,9 @@ class Evidence:
     threshold : float
     favorable : bool
         True when the positive decision is the favourable one.
-    weights : ndarray of float64
-        Row weights (all ones unless given), read-only.
+    design : Design
+        Row weights, clusters and membership probabilities (:mod:`probe.design`); plain unless
+        given.
     groups : pandas.DataFrame
         The frame as the groups see it: a binned protected attribute as its bands
         (:func:`probe.bins.group_view`); default the frame itself.
@@ -89,7 +91,7 @@ class Evidence:
     encoding: Encoding
     threshold: float = 0.5
     favorable: bool = True
-    weights: np.ndarray = None
+    design: Design = None
     groups: pd.DataFrame = None
     _cache: dict = field(default_factory=dict, repr=False, compare=False)
 
@@ -97,8 +99,13 @@ class Evidence:
         object.__setattr__(self, "favorable", as_favorable(self.favorable))
         if self.groups is None:
             object.__setattr__(self, "groups", self.holdout.frame)
-        if self.weights is None:
-            object.__setattr__(self, "weights", _read_only(np.ones(len(self.holdout.frame))))
+        if self.design is None:
+            object.__setattr__(self, "design", Design())
+
+    @property
+    def weights(self) -> np.ndarray:
+        """Row weights (all ones unless given), read-only."""
+        return _read_only(self.design.row_weights(self.n_rows))
 
     @property
     def frame(self) -> pd.DataFrame:

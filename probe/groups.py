@@ -23,17 +23,17 @@ from __future__ import annotations
 
 import math
 import warnings
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Mapping, Sequence
 
 import numpy as np
 import pandas as pd
 
-from .counting import CellCounts, count_cells
 from .data import close_names
-from .encode import attribute_codes
+from .design import Design
 from .errors import DataError, DegenerateWarning
-from .metrics import FOUR_FIFTHS, as_favorable, favorable_decision
+from .group_cells import group_cells, level_text
+from .metrics import FOUR_FIFTHS, as_favorable
 from .stats import Estimate, newcombe_interval, ratio_interval, wilson_interval
 from .values import json_number
 
@@ -94,6 +94,8 @@ class GroupRow:
     spd: Estimate
     eod: Estimate
     reference_fixed: bool = False
+    weight: float | None = None
+    clusters: int | None = None
     _basis: tuple = field(default=(), repr=False, compare=False)
     _gap_counts: dict = field(default_factory=dict, repr=False, compare=False)
 
@@ -134,6 +136,10 @@ class GroupRow:
         out.update(impact_ratio=self.impact_ratio.to_dict(), reference_group=self.reference_group,
                    reference_fixed=self.reference_fixed, four_fifths_flag=self.four_fifths_flag, spd=self.spd.to_dict(),
                    eod=self.eod.to_dict())
+        if self.weight is not None:
+            out["weight"] = json_number(self.weight)
+        if self.clusters is not None:
+            out["clusters"] = self.clusters
         return out
 
 
@@ -182,31 +188,6 @@ class GroupMetrics:
         return tuple(r for r in self.rows if r.four_fifths_flag)
 
 
-def _level_text(value) -> str:
-    if isinstance(value, (float, np.floating)) and float(value).is_integer():
-        return str(int(value))
-    return str(value)
-
-
-_SUMS = ("sel", "err", "pos", "neg", "tp", "fp", "pp", "tn")
-
-
-def _per_row(y_true, y_pred, favorable) -> dict:
-    """The per-row 0/1 values whose sums per group make every rate."""
-    pos, neg = y_true, ~y_true
-    return {"sel": favorable_decision(y_pred, favorable), "err": y_pred != y_true, "pos": pos,
-            "neg": neg, "tp": pos & y_pred, "fp": neg & y_pred, "pp": y_pred, "tn": neg & ~y_pred}
-
-
-def _rates(counts: CellCounts, favorable: bool) -> dict:
-    c = {"n": counts.n, **{k: counts.sums[k] for k in _SUMS}}
-    c["fn"] = c["pos"] - c["tp"]
-    # the favourable decision among rows whose label merits it (TPR, or TNR when favourable = negative)
-    c["opp_x"] = c["tp"] if favorable else c["tn"]
-    c["opp_n"] = c["pos"] if favorable else c["neg"]
-    return c
-
-
 def four_fifths_flag(x, n, x_ref, n_ref) -> bool:
     """Impact ratio strictly below :data:`~probe.metrics.FOUR_FIFTHS`, decided on the counts:
     ``5 x n_ref < 4 x_ref n``.
@@ -228,6 +209,7 @@ def group_metrics(
     confidence_level: float = 0.95,
     min_share: float = 0.02,
     reference: Mapping[str, object] | None = None,
+    design: Design | None = None,
 ) -> GroupMetrics:
     """Rates, impact ratios and differences for every group of every attribute and intersection.
 
@@ -251,6 +233,10 @@ def group_metrics(
         The reference group per attribute (``{"sex": "F"}``; an intersection by its joined name and
         level, ``{"race & sex": "b & F"}``). Attributes left out take the most-favoured group, and their
         impact-ratio intervals allow for that choice.
+    design : Design, optional
+        Row weights, clusters and attributes known as membership probabilities
+        (:mod:`probe.design`): rates are then weighted, every interval is computed on the
+        effective counts, and each estimate records its ``n_effective``.
 
     Returns
     -------
@@ -273,9 +259,9 @@ def group_metrics(
             f"got shapes {y_true.shape} and {y_pred.shape}"
         )
     favorable = as_favorable(favorable)
-    per_row = _per_row(y_true, y_pred, favorable)
+    design = design or Design()
     specs = [(a, (a,)) for a in attributes] + [(" & ".join(c), tuple(c)) for c in intersections]
-    reference = {str(k): _level_text(v) for k, v in (reference or {}).items()}
+    reference = {str(k): level_text(v) for k, v in (reference or {}).items()}
     for key in reference:
         if key not in {name for name, _ in specs}:
             names = [name for name, _ in specs]
@@ -286,27 +272,21 @@ def group_metrics(
     unknown: dict[str, int] = {}
     notes: list[str] = []
     for name, columns in specs:
-        missing = [c for c in columns if c not in frame.columns]
+        missing = [c for c in columns if c not in frame.columns and c not in design.membership]
         if missing:
             raise DataError(f"attribute column `{missing[0]}` is not in the data")
-        parts = [attribute_codes(frame[col]) for col in columns]
-        codes = [p[0] for p in parts]
-        counts = count_cells(codes, values=per_row, n_levels=[len(p[1]) for p in parts])
-        known = np.ones(len(frame), dtype=bool)
-        for c in codes:
-            known &= c >= 0
-        unknown[name] = int((~known).sum())
-        if len(counts) == 0:
+        cells = group_cells(frame, columns, y_true, y_pred, favorable, design)
+        if cells is None:
+            unknown[name] = len(frame)
             notes.append(f"`{name}` has no rows with a known value")
             continue
-        labels = [" & ".join(_level_text(parts[j][1][code]) for j, code in enumerate(cell))
-                  for cell in counts.cells]
-        c = _rates(counts, favorable)
+        unknown[name] = cells.unknown
+        labels = cells.labels
         fixed = reference.get(name)
         if fixed is not None and fixed not in labels:
             raise DataError(f"reference group `{fixed}` of `{name}` is not an observed level "
                             f"(levels: {', '.join(labels)})" + close_names(fixed, labels))
-        rows.extend(_attribute_rows(name, labels, c, min_share, confidence_level, notes, fixed))
+        rows.extend(_attribute_rows(name, cells, min_share, confidence_level, notes, fixed))
     return GroupMetrics(tuple(rows), unknown, favorable, confidence_level, tuple(notes))
 
 
@@ -336,37 +316,31 @@ def _impact_estimate(x, n, i, ref, candidates, fixed, confidence_level) -> Estim
     return Estimate(float(value), low, high, "mover-wilson-min-bonferroni")
 
 
-def _attribute_rows(name, labels, c, min_share, confidence_level, notes, fixed=None):
-    n = c["n"]
-    share = n / n.sum()
+def _attribute_rows(name, cells, min_share, confidence_level, notes, fixed=None):
+    labels, pairs = cells.labels, cells.pairs
+    weight = cells.weight
+    share = weight / weight.sum()
     small = share < min_share
     cl = confidence_level
-    pairs = {
-        "selection_rate": (c["sel"], n),
-        "error_rate": (c["err"], n),
-        "tpr": (c["tp"], c["pos"]),
-        "fpr": (c["fp"], c["neg"]),
-        "fnr": (c["fn"], c["pos"]),
-        "ppv": (c["tp"], c["pp"]),
-    }
     est = {}
-    for key, (x, m) in pairs.items():
+    for key in _RATES:
+        x, m = pairs[key]
         low, high = wilson_interval(x, m, confidence_level=cl)
         with np.errstate(invalid="ignore", divide="ignore"):
             value = np.where(m > 0, x / np.where(m > 0, m, 1), np.nan)
         est[key] = (value, low, high)
         for i in np.flatnonzero(m == 0):
             notes.append(f"`{name}` = {labels[i]}: {key} undefined (no rows in its base)")
+    sel_x, n = pairs["selection_rate"]
     sel_rate = est["selection_rate"][0]
     eligible = np.flatnonzero(~small) if (~small).any() else np.arange(len(labels))
     if fixed is not None:
         ref = labels.index(fixed)
     else:
         ref = int(eligible[np.argmax(sel_rate[eligible])])  # first of equal rates: level order
-    xr, nr = c["sel"][ref], n[ref]
-    sp_low, sp_high = newcombe_interval(c["sel"], n, np.full_like(n, xr, dtype=float),
-                                        np.full_like(n, nr, dtype=float), confidence_level=cl)
-    ox, on = c["opp_x"], c["opp_n"]
+    sp_low, sp_high = newcombe_interval(sel_x, n, np.full_like(n, sel_x[ref], dtype=float),
+                                        np.full_like(n, n[ref], dtype=float), confidence_level=cl)
+    ox, on = pairs["opportunity"]
     eo_low, eo_high = newcombe_interval(ox, on, np.full_like(on, ox[ref], dtype=float),
                                         np.full_like(on, on[ref], dtype=float), confidence_level=cl)
     ref_rate = sel_rate[ref]
@@ -376,34 +350,45 @@ def _attribute_rows(name, labels, c, min_share, confidence_level, notes, fixed=N
                       DegenerateWarning, stacklevel=3)
     with np.errstate(invalid="ignore", divide="ignore"):
         opp = np.where(on > 0, ox / np.where(on > 0, on, 1), np.nan)
-    counts = (tuple(float(v) for v in c["sel"]), tuple(float(v) for v in n))
+    counts = (tuple(float(v) for v in sel_x), tuple(float(v) for v in n))
     candidates = tuple(int(h) for h in eligible)
+    eff = cells.effective
+
+    def n_eff(m, i, j=None):  # two samples: the smaller effective size
+        if not eff:
+            return None
+        return float(m[i]) if j is None else float(min(m[i], m[j]))
+
     out = []
     for i, label in enumerate(labels):
-        rates = {k: Estimate(float(v[i]), float(lo[i]), float(hi[i]), "wilson")
-                 for k, (v, lo, hi) in est.items()}
+        rates = {k: Estimate(float(v[i]), float(lo[i]), float(hi[i]), "wilson",
+                             n_eff(pairs[k][1], i)) for k, (v, lo, hi) in est.items()}
         if i == ref:  # compared with itself: exactly 0, not an interval of two samples
             sp_low[i], sp_high[i] = 0.0, 0.0
             eo_low[i] = eo_high[i] = 0.0 if np.isfinite(opp[i]) else np.nan
         basis = (*counts, i, ref, candidates, fixed is not None)
         gap_counts = {k: (float(pairs[k][0][i]), float(pairs[k][1][i]), float(pairs[k][0][ref]),
                           float(pairs[k][1][ref])) for k in GAP_RATES}
+        impact = _impact_estimate(*basis, cl)
         out.append(GroupRow(
             attribute=name,
             group=label,
-            rows=int(n[i]),
+            rows=int(round(float(cells.rows[i]))),
             share=float(share[i]),
             small=bool(small[i]),
-            impact_ratio=_impact_estimate(*basis, cl),
+            impact_ratio=replace(impact, n_effective=n_eff(n, i, ref)),
             reference_group=labels[ref],
             reference_fixed=fixed is not None,
             _basis=basis,
             _gap_counts=gap_counts,
-            four_fifths_flag=four_fifths_flag(c["sel"][i], n[i], xr, nr),
+            four_fifths_flag=four_fifths_flag(cells.selected[i], weight[i], cells.selected[ref],
+                                              weight[ref]),
             spd=Estimate(float(sel_rate[i] - ref_rate), float(sp_low[i]), float(sp_high[i]),
-                         "reference" if i == ref else "newcombe"),
+                         "reference" if i == ref else "newcombe", n_eff(n, i, ref)),
             eod=Estimate(float(opp[i] - opp[ref]), float(eo_low[i]), float(eo_high[i]),
-                         "reference" if i == ref else "newcombe"),
+                         "reference" if i == ref else "newcombe", n_eff(on, i, ref)),
+            weight=float(weight[i]) if eff else None,
+            clusters=None if cells.clusters is None else int(cells.clusters[i]),
             **rates,
         ))
     return out

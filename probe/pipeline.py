@@ -24,6 +24,7 @@ from .bins import group_view
 from .compare import compare_models
 from .adapters.isolated import start_server
 from .data import check_columns, close_names, prepare_holdout, read_table, sha256_file
+from .design_data import read_design
 from .encode import encode_columns
 from .errors import DataError, ProbeWarning
 from .evidence import Evidence, ModelRun
@@ -93,12 +94,17 @@ def prepare(plan: Plan, *, clock: _Clock | None = None, progress: Progress | Non
                      + ([plan.resolve_spec(plan.compare.baseline)] if plan.compare else []))
     with clock.step("load data"):
         path = plan.resolve(d.path)
-        holdout = prepare_holdout(read_table(path), label=d.label or None, positive=d.positive,
-                                  protected=d.protected, intersections=d.intersections,
-                                  source=str(path), sha256=sha256_file(path))
+        table = read_table(path)
+        holdout = prepare_holdout(table, label=d.label or None, positive=d.positive,
+                                  protected=_protected(d), intersections=d.intersections,
+                                  source=str(path), sha256=sha256_file(path),
+                                  membership=tuple(d.membership))
+        design = read_design(table, weights=d.weights, cluster=d.cluster,
+                             membership=d.membership, where=f"`{path}`")
     frame = holdout.frame
     _check_named_columns(plan, frame, str(path))
-    groups = group_view(frame, _group_columns(holdout.protected, holdout.intersections), d.bins)
+    groups = group_view(frame, [c for c in _group_columns(holdout.protected, holdout.intersections)
+                                if c not in design.membership], d.bins)
     favorable, _ = resolve_favorable(plan.model.favorable, holdout.label, holdout.positive)
     with clock.step("load model"):
         model = _load(plan, plan.model.spec, holdout, pin=plan.model.sha256)
@@ -122,7 +128,12 @@ def prepare(plan: Plan, *, clock: _Clock | None = None, progress: Progress | Non
         encoding = encode_columns(frame, columns=s.columns,
                                   exclude=_never_sliced(plan, holdout.label, model), bins=s.bins)
     return Evidence(holdout, inputs, runs, encoding, threshold=threshold,
-                    favorable=favorable, groups=groups)
+                    favorable=favorable, groups=groups, design=design)
+
+
+def _protected(d) -> tuple:
+    """The protected attributes: those named, then any known only as membership probabilities."""
+    return tuple(dict.fromkeys([*d.protected, *d.membership]))
 
 
 def _check_named_columns(plan: Plan, frame, source: str) -> None:
@@ -175,7 +186,7 @@ def _run(plan: Plan, command, clock: _Clock, progress) -> dict:
             found.groups = group_metrics(ev.groups, ev.y_true, ev.decision(),
                                          attributes=h.protected, intersections=h.intersections,
                                          favorable=ev.favorable, confidence_level=cl,
-                                         reference=plan.data.references)
+                                         reference=plan.data.references, design=ev.design)
     if plan.slices is not None:
         with clock.step("slices"):
             found.slices = find_slices(ev.frame, ev.y_true, ev.decision(), options=plan.slices,
@@ -205,7 +216,7 @@ def _run(plan: Plan, command, clock: _Clock, progress) -> dict:
                            comparison=found.comparison, confidence_level=cl)
         verdict = judge(measured, plan.policy, confidence_level=cl)
     prov = provenance(plan, command=command, timings=clock.timings,
-                      model=ev.model().describe(), data=h.describe(),
+                      model=ev.model().describe(), data=h.describe(), design=ev.design,
                       favorable=resolve_favorable(plan.model.favorable, h.label, h.positive))
     return assemble_report(found, verdict, prov)
 

@@ -70,12 +70,16 @@ class Estimate:
     method : str
         How the interval was computed, e.g. ``"wilson"``, ``"newcombe"``, ``"mover-wilson"``,
         ``"bootstrap-percentile"``, ``"bootstrap-bca"``.
+    n_effective : float or None
+        The effective sample size the interval was computed on, under row weights, clusters or
+        membership probabilities (:mod:`probe.design`); None for a plain sample.
     """
 
     value: float
     low: float
     high: float
     method: str
+    n_effective: float | None = None
 
     def to_dict(self) -> dict:
         """The report's estimate object; NaN becomes ``None`` (JSON null)."""
@@ -84,6 +88,7 @@ class Estimate:
             "low": json_number(self.low),
             "high": json_number(self.high),
             "method": self.method,
+            **({} if self.n_effective is None else {"n_effective": json_number(self.n_effective)}),
         }
 
     def excludes(self, bound: float) -> bool:

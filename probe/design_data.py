@@ -1,0 +1,95 @@
+"""Reading a holdout's design columns (weights, clusters, membership probabilities), checked.
+
+Every refusal is one line naming the column and the rows (:mod:`probe.design` says how the design
+is used).
+"""
+
+from __future__ import annotations
+
+from typing import Mapping
+
+import numpy as np
+import pandas as pd
+
+from .data import check_columns, is_numeric, rows_text
+from .design import Design, Membership
+from .errors import DataError
+
+__all__ = ["MEMBERSHIP_TOLERANCE", "read_design"]
+
+#: How far a row's membership probabilities may sum from 1 (probabilities printed to three
+#: decimals); within it they are rescaled to sum to 1 exactly, beyond it the row is refused.
+MEMBERSHIP_TOLERANCE = 1e-3
+
+
+def _numbers(frame: pd.DataFrame, column: str, role: str, where: str) -> np.ndarray:
+    col = frame[column]
+    if not is_numeric(col) or col.dtype == bool:
+        raise DataError(f"{role} column `{column}` in {where} is not numeric "
+                        f"(dtype {col.dtype}); it must hold numbers")
+    values = col.to_numpy(dtype=np.float64, na_value=np.nan)
+    bad = np.flatnonzero(~np.isfinite(values))
+    if len(bad):
+        raise DataError(f"{role} column `{column}` in {where} has {len(bad)} missing or infinite "
+                        f"values ({rows_text(bad)}); every row needs one")
+    return values
+
+
+def read_design(frame: pd.DataFrame, *, weights: str | None = None, cluster: str | None = None,
+                membership: Mapping[str, Mapping[str, str]] | None = None,
+                where: str = "the data") -> Design:
+    """The :class:`~probe.design.Design` of ``frame`` from its column roles.
+
+    Raises
+    ------
+    DataError
+        A missing column; weights that are not numbers, missing, negative or all zero; a missing
+        cluster; membership probabilities outside [0, 1] or not summing to 1; a membership
+        attribute that is also a column of the data.
+    """
+    w = None
+    if weights:
+        check_columns(frame, [weights], "weights", where)
+        w = _numbers(frame, weights, "weights", where)
+        neg = np.flatnonzero(w < 0)
+        if len(neg):
+            raise DataError(f"weights column `{weights}` in {where} has {len(neg)} negative "
+                            f"values ({rows_text(neg)}); weights must be 0 or more")
+        if not (w > 0).any():
+            raise DataError(f"weights column `{weights}` in {where} is zero on every row")
+    codes = None
+    if cluster:
+        check_columns(frame, [cluster], "cluster", where)
+        col = frame[cluster]
+        missing = np.flatnonzero(col.isna().to_numpy())
+        if len(missing):
+            raise DataError(f"cluster column `{cluster}` in {where} has {len(missing)} missing "
+                            f"values ({rows_text(missing)}); give every row its cluster")
+        codes = pd.factorize(col, sort=True)[0].astype(np.int64)
+    members = {}
+    for attribute, groups in (membership or {}).items():
+        members[attribute] = _membership(frame, attribute, groups, where)
+    return Design(w, codes, members, weights_column=weights or None,
+                  cluster_column=cluster or None)
+
+
+def _membership(frame, attribute, groups, where) -> Membership:
+    if attribute in frame.columns:
+        raise DataError(f"membership attribute `{attribute}` is also a column of {where}; "
+                        "name the attribute known as probabilities differently")
+    columns = list(groups.values())
+    check_columns(frame, columns, f"membership (`{attribute}`)", where)
+    probs = np.column_stack([_numbers(frame, c, f"membership (`{attribute}`)", where)
+                             for c in columns])
+    for j, c in enumerate(columns):
+        out = np.flatnonzero((probs[:, j] < 0) | (probs[:, j] > 1))
+        if len(out):
+            raise DataError(f"membership column `{c}` of `{attribute}` in {where} has "
+                            f"{len(out)} values outside [0, 1] ({rows_text(out)})")
+    total = probs.sum(axis=1)
+    off = np.flatnonzero(np.abs(total - 1.0) > MEMBERSHIP_TOLERANCE)
+    if len(off):
+        raise DataError(f"membership probabilities of `{attribute}` ({', '.join(columns)}) in "
+                        f"{where} do not sum to 1 on {len(off)} rows ({rows_text(off)}; the first "
+                        f"sums to {total[off[0]]:.6g})")
+    return Membership(attribute, tuple(groups), tuple(columns), probs / total[:, None])
