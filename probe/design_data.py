@@ -15,7 +15,7 @@ from .data import check_columns, is_numeric, rows_text
 from .design import Design, Membership
 from .errors import DataError
 
-__all__ = ["MEMBERSHIP_TOLERANCE", "read_design"]
+__all__ = ["MEMBERSHIP_TOLERANCE", "read_design", "resolve_design"]
 
 #: How far a row's membership probabilities may sum from 1 (probabilities printed to three
 #: decimals); within it they are rescaled to sum to 1 exactly, beyond it the row is refused.
@@ -93,3 +93,26 @@ def _membership(frame, attribute, groups, where) -> Membership:
                         f"{where} do not sum to 1 on {len(off)} rows ({rows_text(off)}; the first "
                         f"sums to {total[off[0]]:.6g})")
     return Membership(attribute, tuple(groups), tuple(columns), probs / total[:, None])
+
+
+def resolve_design(sample_weight, design: Design | None, n_rows: int) -> Design:
+    """The design of an API call: ``design`` as given, or ``Design(weights=sample_weight)``
+    checked like a weights column; plain when neither is given. Refuses both at once and a design
+    whose arrays do not have one value per row."""
+    if sample_weight is not None and design is not None:
+        raise DataError("give `sample_weight` or `design`, not both (a Design holds the weights)")
+    if sample_weight is not None:
+        w = np.asarray(sample_weight, dtype=np.float64).reshape(-1)
+        frame = pd.DataFrame({"sample_weight": w}) if len(w) == n_rows else None
+        if frame is None:
+            raise DataError(f"`sample_weight` has {len(w)} values for {n_rows} rows")
+        return read_design(frame, weights="sample_weight", where="`sample_weight`")
+    design = design or Design()
+    for name, a in (("weights", design.weights), ("cluster", design.cluster)):
+        if a is not None and len(a) != n_rows:
+            raise DataError(f"the design's {name} have {len(a)} values for {n_rows} rows")
+    for m in design.membership.values():
+        if len(m.probs) != n_rows:
+            raise DataError(f"the membership probabilities of `{m.attribute}` have "
+                            f"{len(m.probs)} rows for {n_rows}")
+    return design

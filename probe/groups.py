@@ -31,6 +31,7 @@ import pandas as pd
 
 from .data import close_names
 from .design import Design
+from .design_data import resolve_design
 from .errors import DataError, DegenerateWarning
 from .group_cells import group_cells, level_text
 from .metrics import FOUR_FIFTHS, as_favorable
@@ -209,6 +210,7 @@ def group_metrics(
     confidence_level: float = 0.95,
     min_share: float = 0.02,
     reference: Mapping[str, object] | None = None,
+    sample_weight=None,
     design: Design | None = None,
 ) -> GroupMetrics:
     """Rates, impact ratios and differences for every group of every attribute and intersection.
@@ -233,6 +235,9 @@ def group_metrics(
         The reference group per attribute (``{"sex": "F"}``; an intersection by its joined name and
         level, ``{"race & sex": "b & F"}``). Attributes left out take the most-favoured group, and their
         impact-ratio intervals allow for that choice.
+    sample_weight : array_like, optional
+        Row weights (non-negative, not all zero), one per row of ``frame``; short for
+        ``design=Design(weights=...)``.
     design : Design, optional
         Row weights, clusters and attributes known as membership probabilities
         (:mod:`probe.design`): rates are then weighted, every interval is computed on the
@@ -259,7 +264,7 @@ def group_metrics(
             f"got shapes {y_true.shape} and {y_pred.shape}"
         )
     favorable = as_favorable(favorable)
-    design = design or Design()
+    design = resolve_design(sample_weight, design, len(frame))
     specs = [(a, (a,)) for a in attributes] + [(" & ".join(c), tuple(c)) for c in intersections]
     reference = {str(k): level_text(v) for k, v in (reference or {}).items()}
     for key in reference:

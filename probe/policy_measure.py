@@ -17,6 +17,9 @@ What each rule is measured on (its family):
 - ``max_slice_gap``: the slices carried to the estimate part (the family the q-values are over); the
   listed ones are judged, each slice's gap to the rest oriented so that larger is worse (for selection,
   the shortfall). Without a split the gaps carry the selection effect and are not judged.
+- Under clusters (``[data] cluster``), a subject whose estimate rests on fewer than
+  :data:`~probe.design.MIN_CLUSTERS` clusters (the fewer of its two samples) is inconclusive: a
+  cluster-robust variance from so few clusters is itself unreliable.
 - ``max_regression``: the comparison's overall shortfall in its metric (candidate minus baseline,
   oriented by the metric so that larger is worse) and each worse slice's mean paired shortfall (family:
   one plus the worse-slice search's carried slices).
@@ -31,6 +34,7 @@ import math
 from dataclasses import dataclass
 from typing import Callable
 
+from .design import MIN_CLUSTERS
 from .stats import Estimate
 
 __all__ = ["Family", "Measure", "measure", "undefined"]
@@ -125,8 +129,9 @@ def measure(*, groups=None, slices=None, flips=None, comparison=None,
         out["min_impact_ratio"] = None
     else:
         judged = [r for r in groups.rows if r.group != r.reference_group and not r.small]
+        few = _cluster_check(groups)
         ms = tuple(Measure(f"{r.attribute} = {r.group} (vs {r.reference_group})", r.impact_ratio,
-                           r.impact_ratio_at, r.rows) for r in judged)
+                           r.impact_ratio_at, r.rows, few(r)) for r in judged)
         # an attribute whose reference was chosen from the data has intervals that already hold
         # together (Bonferroni over its pairs, see probe.groups): one hypothesis for all its groups
         chosen = {r.attribute for r in judged if not r.reference_fixed}
@@ -183,13 +188,29 @@ def _absolute(est: Estimate) -> Estimate:
 def _gap_family(groups, rate: str) -> Family:
     """Every group's absolute gap in ``rate`` to its reference group (the reference left out)."""
     compared = [r for r in groups.rows if r.group != r.reference_group]
+    few = _cluster_check(groups)
     ms = tuple(
         Measure(f"{r.attribute} = {r.group} (vs {r.reference_group}): {_GAP_WORDS[rate]} gap",
                 _absolute(r.gap_at(rate, groups.confidence_level)),
-                lambda level, r=r: _absolute(r.gap_at(rate, level)), r.gap_rows(rate))
+                lambda level, r=r: _absolute(r.gap_at(rate, level)), r.gap_rows(rate), few(r))
         for r in compared)
     attributes = len({r.attribute for r in compared})
     return Family(ms, len(ms), f"{len(ms)} groups of {attributes} attributes")
+
+
+def few_clusters(*counts) -> str | None:
+    """Why an estimate on these samples' cluster counts cannot be judged (None: it can)."""
+    known = [int(c) for c in counts if c is not None]
+    if not known or min(known) >= MIN_CLUSTERS:
+        return None
+    return (f"rests on {min(known)} clusters, fewer than {MIN_CLUSTERS}: a cluster-robust "
+            "interval from so few is unreliable")
+
+
+def _cluster_check(groups):
+    """``row -> reason or None``: a group and its reference judged on too few clusters."""
+    clusters = {(r.attribute, r.group): r.clusters for r in groups.rows}
+    return lambda r: few_clusters(r.clusters, clusters.get((r.attribute, r.reference_group)))
 
 
 def _flip_measure(row, confidence_level) -> Measure | None:

@@ -20,7 +20,8 @@ __all__ = ["Figure", "proportion", "table"]
 @dataclass(frozen=True)
 class Figure:
     """One measured figure: a proportion (or mean) over ``runs`` seeded runs, with its Monte Carlo
-    standard error and the target it is held to (``"<= 0.05"``, ``">= 0.93"``)."""
+    standard error and the target it is held to (``"<= 0.05"``, ``">= 0.93"``, or a range
+    ``"in 0.93 0.97"``)."""
 
     what: str
     value: float
@@ -31,7 +32,10 @@ class Figure:
 
     @property
     def met(self) -> bool:
-        op, bound = self.target.split()
+        op, *bounds = self.target.split()
+        if op == "in":
+            return float(bounds[0]) <= self.value <= float(bounds[1])
+        bound = bounds[0]
         return self.value <= float(bound) if op == "<=" else self.value >= float(bound)
 
     def row(self) -> str:
