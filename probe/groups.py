@@ -114,7 +114,8 @@ class GroupRow:
         if m == 0 or m_ref == 0:
             return Estimate(math.nan, math.nan, math.nan, "newcombe")
         low, high = newcombe_interval(x, m, x_ref, m_ref, confidence_level=confidence_level)
-        return Estimate(x / m - x_ref / m_ref, float(low), float(high), "newcombe")
+        return Estimate(x / m - x_ref / m_ref, float(low), float(high), "newcombe",
+                        None if self.weight is None else float(min(m, m_ref)))
 
     def gap_rows(self, rate: str) -> int:
         """The fewer rows of the two bases the gap in ``rate`` compares (its group's and the
@@ -127,7 +128,8 @@ class GroupRow:
 
         At the report's own level it is exactly :attr:`impact_ratio`.
         """
-        return _impact_estimate(*self._basis, confidence_level)
+        return replace(_impact_estimate(*self._basis, confidence_level),
+                       n_effective=self.impact_ratio.n_effective)
 
     def to_dict(self) -> dict:
         out = {"attribute": self.attribute, "group": self.group, "rows": self.rows,

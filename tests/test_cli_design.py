@@ -117,3 +117,40 @@ def test_membership_that_does_not_sum_to_one_is_refused(tmp_path, capsys):
     assert main(["run", str(plan)], console=_console()) == EXIT_BAD_INPUT
     text = capsys.readouterr().err
     assert "do not sum to 1" in text and len(text.strip().splitlines()) == 1
+
+
+_SCORER = """
+import numpy as np
+
+def score(frame):
+    z = 0.04 * (frame["income"] - 30) + np.where(frame["group"] == "B", -0.6, 0.0)
+    return 1 / (1 + np.exp(-z))
+
+def older(frame):
+    z = 0.03 * (frame["income"] - 30) + np.where(frame["group"] == "B", -0.2, 0.0)
+    return 1 / (1 + np.exp(-z))
+"""
+
+
+def test_unit_weights_and_no_clusters_equal_the_plain_run_in_every_section(tmp_path):
+    rng = np.random.default_rng(3)
+    n = 1200
+    frame = pd.DataFrame({"group": rng.choice(["A", "B"], n), "income": rng.gamma(3, 10, n).round(1),
+                          "region": rng.choice(["n", "s", "e"], n),
+                          "y": (rng.random(n) < 0.5).astype(int), "ones": 1.0})
+    frame.to_csv(tmp_path / "h.csv", index=False)
+    (tmp_path / "scorer.py").write_text(_SCORER)
+    for name, extra in (("plain", ""), ("ones", 'weights = "ones"\n')):
+        (tmp_path / f"{name}.toml").write_text(
+            f'[data]\npath = "h.csv"\nlabel = "y"\nprotected = ["group"]\n'
+            f'features = ["group", "income", "region"]\n{extra}'
+            '[model]\nspec = "py:scorer.py:score"\nisolate = false\n'
+            '[slices]\ndepth = 2\n[flips]\nmodes = ["direct", "transport", "twins"]\n'
+            '[compare]\nbaseline = "py:scorer.py:older"\n'
+            f'[report]\nout = "{name}"\nformats = ["json"]\n')
+        assert main(["run", str(tmp_path / f"{name}.toml")], console=_console()) in (0, 1)
+    plain, ones = (json.loads((tmp_path / k / "report.json").read_text()) for k in ("plain", "ones"))
+    for key in plain:
+        if key not in ("provenance",):
+            assert ones[key] == plain[key], key
+    assert plain["slices"] and plain["flips"] and plain["comparison"]
