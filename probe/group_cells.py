@@ -67,6 +67,12 @@ class Cells:
     unknown: int
     clusters: np.ndarray | None
     effective: bool
+    _cells: dict = None  # rate -> CellEffective
+
+    def correlation(self, rate: str, ref: int) -> np.ndarray:
+        """Per group, the correlation of its ``rate`` estimate with group ``ref``'s: 0 for
+        independent groups (a plain design, or groups sharing no unit)."""
+        return self._cells[rate].correlation(ref)
 
 
 def _indicators(y_true, y_pred, favorable) -> dict:
@@ -115,10 +121,11 @@ def group_cells(frame: pd.DataFrame, columns, y_true, y_pred, favorable: bool,
         return eff
 
     every = counts("sel", "all")
-    pairs = {}
+    pairs, effs = {}, {}
     for rate, (num, base) in RATE_BASES.items():
         eff = every if (num, base) == ("sel", "all") else counts(num, base)
         pairs[rate] = (eff.x_eff, eff.n_eff)
+        effs[rate] = eff
     labels = [" & ".join(level_text(names[j][code]) for j, code in enumerate(cell))
               for cell in cells]
     if prob is not None:
@@ -126,4 +133,4 @@ def group_cells(frame: pd.DataFrame, columns, y_true, y_pred, favorable: bool,
     else:
         rows = every.rows
     return Cells(labels, pairs, every.weight, rows, every.events, unknown, every.clusters,
-                 not plain)
+                 not plain, effs)

@@ -107,20 +107,21 @@ class GroupRow:
         The reference against itself is exactly 0 (``"reference"``); NaN when either base is empty.
         A reference chosen from the data is taken as given here (it is chosen on selection rates).
         """
-        x, m, x_ref, m_ref = self._gap_counts[rate]
+        x, m, x_ref, m_ref, rho = self._gap_counts[rate]
         if self.group == self.reference_group:
             return Estimate(0.0, 0.0, 0.0, "reference") if m > 0 else Estimate(
                 math.nan, math.nan, math.nan, "reference")
         if m == 0 or m_ref == 0:
             return Estimate(math.nan, math.nan, math.nan, "newcombe")
-        low, high = newcombe_interval(x, m, x_ref, m_ref, confidence_level=confidence_level)
+        low, high = newcombe_interval(x, m, x_ref, m_ref, confidence_level=confidence_level,
+                                      rho=rho)
         return Estimate(x / m - x_ref / m_ref, float(low), float(high), "newcombe",
                         None if self.weight is None else float(min(m, m_ref)))
 
     def gap_rows(self, rate: str) -> int:
         """The fewer rows of the two bases the gap in ``rate`` compares (its group's and the
         reference group's: label-negatives for FPR, label-positives for FNR, all rows for errors)."""
-        _, m, _, m_ref = self._gap_counts[rate]
+        _, m, _, m_ref, _ = self._gap_counts[rate]
         return int(min(m, m_ref))
 
     def impact_ratio_at(self, confidence_level: float) -> Estimate:
@@ -346,10 +347,12 @@ def _attribute_rows(name, cells, min_share, confidence_level, notes, fixed=None)
     else:
         ref = int(eligible[np.argmax(sel_rate[eligible])])  # first of equal rates: level order
     sp_low, sp_high = newcombe_interval(sel_x, n, np.full_like(n, sel_x[ref], dtype=float),
-                                        np.full_like(n, n[ref], dtype=float), confidence_level=cl)
+                                        np.full_like(n, n[ref], dtype=float), confidence_level=cl,
+                                        rho=cells.correlation("selection_rate", ref))
     ox, on = pairs["opportunity"]
     eo_low, eo_high = newcombe_interval(ox, on, np.full_like(on, ox[ref], dtype=float),
-                                        np.full_like(on, on[ref], dtype=float), confidence_level=cl)
+                                        np.full_like(on, on[ref], dtype=float), confidence_level=cl,
+                                        rho=cells.correlation("opportunity", ref))
     ref_rate = sel_rate[ref]
     if ref_rate == 0:
         notes.append(f"`{name}`: no group receives the favourable decision; impact ratios undefined")
@@ -360,6 +363,7 @@ def _attribute_rows(name, cells, min_share, confidence_level, notes, fixed=None)
     counts = (tuple(float(v) for v in sel_x), tuple(float(v) for v in n))
     candidates = tuple(int(h) for h in eligible)
     eff = cells.effective
+    rho = {k: cells.correlation(k, ref) for k in GAP_RATES}
 
     def n_eff(m, i, j=None):  # two samples: the smaller effective size
         if not eff:
@@ -375,7 +379,7 @@ def _attribute_rows(name, cells, min_share, confidence_level, notes, fixed=None)
             eo_low[i] = eo_high[i] = 0.0 if np.isfinite(opp[i]) else np.nan
         basis = (*counts, i, ref, candidates, fixed is not None)
         gap_counts = {k: (float(pairs[k][0][i]), float(pairs[k][1][i]), float(pairs[k][0][ref]),
-                          float(pairs[k][1][ref])) for k in GAP_RATES}
+                          float(pairs[k][1][ref]), float(rho[k][i])) for k in GAP_RATES}
         impact = _impact_estimate(*basis, cl)
         out.append(GroupRow(
             attribute=name,

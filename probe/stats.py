@@ -166,22 +166,27 @@ def _two_wilson(x1, n1, x2, n2, confidence_level):
     return out
 
 
-def newcombe_interval(x1, n1, x2, n2, *, confidence_level: float = 0.95):
+def newcombe_interval(x1, n1, x2, n2, *, confidence_level: float = 0.95, rho=0.0):
     """Newcombe's hybrid score interval for ``x1/n1 - x2/n2``, vectorised.
 
-    Returns ``(low, high)``; NaN where either group is empty.
+    Returns ``(low, high)``; NaN where either group is empty. ``rho`` is the correlation of the
+    two estimates: 0 for independent samples; under a sampling design whose groups share units
+    (a cluster in both, a row counted in two groups by its membership probabilities) it comes
+    from the design (:meth:`probe.design.CellEffective.correlation`).
 
     Notes
     -----
     With Wilson limits ``(l1, u1)`` and ``(l2, u2)``:
-    ``low = d - sqrt((p1 - l1)² + (u2 - p2)²)``, ``high = d + sqrt((u1 - p1)² + (p2 - l2)²)``
-    (Newcombe 1998b, method 10).
+    ``low = d - sqrt((p1 - l1)² - 2 rho (p1 - l1)(u2 - p2) + (u2 - p2)²)``,
+    ``high = d + sqrt((u1 - p1)² - 2 rho (u1 - p1)(p2 - l2) + (p2 - l2)²)``
+    (Newcombe 1998b, method 10, for ``rho = 0``; the correlated form is the MOVER of Zou & Donner
+    2008, as Newcombe 1998c uses it for paired data; recalled from memory).
     """
     (x1, n1, p1, l1, u1), (x2, n2, p2, l2, u2) = _two_wilson(x1, n1, x2, n2, confidence_level)
     with np.errstate(invalid="ignore", divide="ignore"):
         d = p1 - p2
-        low = d - np.sqrt((p1 - l1) ** 2 + (u2 - p2) ** 2)
-        high = d + np.sqrt((u1 - p1) ** 2 + (p2 - l2) ** 2)
+        low = d - np.sqrt((p1 - l1) ** 2 - 2 * rho * (p1 - l1) * (u2 - p2) + (u2 - p2) ** 2)
+        high = d + np.sqrt((u1 - p1) ** 2 - 2 * rho * (u1 - p1) * (p2 - l2) + (p2 - l2) ** 2)
     return low, high
 
 

@@ -86,13 +86,17 @@ def membership(runs=2000, seed=0, n=4000):
     given the area, so the probability-weighted rate targets the true group rate."""
     hits = {g: 0 for g in "abc"}
     naive = {g: 0 for g in "abc"}
+    gap_hits = {g: 0 for g in "bc"}
     for r in range(runs):
         rng = np.random.default_rng(seed + r)
         frame, sel, truth, _ = membership_sample(rng, n)
         probs = frame[["p_a", "p_b", "p_c"]].to_numpy()
         design = Design(membership={"race": Membership("race", ("a", "b", "c"),
                                                        ("p_a", "p_b", "p_c"), probs)})
-        rows = _rows(group_metrics(frame, sel, sel, attributes=["race"], design=design), "race")
+        rows = _rows(group_metrics(frame, sel, sel, attributes=["race"], design=design,
+                                   reference={"race": "a"}), "race")
+        for g in "bc":
+            gap_hits[g] += _covers(rows[g].spd, truth[g] - truth["a"])
         for j, g in enumerate("abc"):
             hits[g] += _covers(rows[g].selection_rate, truth[g])
             # naive: the probabilities summed as if they were rows
@@ -100,6 +104,8 @@ def membership(runs=2000, seed=0, n=4000):
             naive[g] += bool(low <= truth[g] <= high)
     out = [proportion(f"membership: coverage of group {g}'s rate", hits[g], runs, NOMINAL,
                       _seeds(seed, runs)) for g in "abc"]
+    out += [proportion(f"membership: coverage of group {g}'s gap to a (groups share rows)",
+                       gap_hits[g], runs, NOMINAL, _seeds(seed, runs)) for g in "bc"]
     out += [proportion(f"membership: coverage of group {g}'s rate, probabilities as rows (naive)",
                        naive[g], runs, ">= 0", _seeds(seed, runs)) for g in "abc"]
     return out

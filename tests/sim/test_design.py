@@ -65,6 +65,28 @@ def test_cluster_effective_size_matches_statsmodels_cluster_robust_variance():
     assert eff.clusters[0] == 150
 
 
+def test_correlation_of_groups_sharing_rows_matches_statsmodels_cluster_covariance():
+    # rows counted in two groups by their membership probabilities: the two group means are one
+    # WLS fit on group dummies over the expanded rows, clustered by the original row; statsmodels'
+    # cluster-robust covariance without its small-sample correction is the linearisation one
+    rng = np.random.default_rng(9)
+    frame, sel, _, _ = membership_sample(rng, 500)
+    probs = frame[["p_a", "p_b", "p_c"]].to_numpy()
+    m = Membership("r", tuple("abc"), ("p_a", "p_b", "p_c"), probs)
+    (codes,), source, w, _ = expand_rows([None], [m], None)
+    y = sel[source].astype(float)
+    eff = effective_counts(codes, 3, y, w, source)
+    rho = eff.correlation(0)
+    dummies = np.column_stack([(codes == j).astype(float) for j in range(3)])
+    fit = sm.WLS(y, dummies, weights=w).fit(cov_type="cluster",
+                                             cov_kwds={"groups": source, "use_correction": False})
+    cov = fit.cov_params()
+    assert rho[0] == pytest.approx(1.0)
+    for j in (1, 2):
+        assert rho[j] == pytest.approx(cov[0, j] / np.sqrt(cov[0, 0] * cov[j, j]), rel=1e-9)
+        assert rho[j] > 0  # shared rows: the estimates move together
+
+
 def test_a_rate_of_zero_falls_back_to_kish():
     w = np.array([1.0, 2.0, 3.0, 4.0])
     eff = effective_counts(np.zeros(4, dtype=np.int64), 1, np.zeros(4), w)
