@@ -94,7 +94,7 @@ def _worse_up(est: Estimate, sign: int) -> Estimate:
     """``est`` turned so that larger is worse (``sign`` -1: a shortfall where lower is worse)."""
     if sign > 0:
         return est
-    return Estimate(-est.value, -est.high, -est.low, est.method)
+    return Estimate(-est.value, -est.high, -est.low, est.method, est.n_effective)
 
 
 def _turned(at, sign):
@@ -179,10 +179,10 @@ def _absolute(est: Estimate) -> Estimate:
         return Estimate(math.nan, math.nan, math.nan, est.method)
     low, high = est.low, est.high
     if low >= 0:
-        return Estimate(abs(est.value), low, high, est.method)
+        return Estimate(abs(est.value), low, high, est.method, est.n_effective)
     if high <= 0:
-        return Estimate(abs(est.value), -high, -low, est.method)
-    return Estimate(abs(est.value), 0.0, max(-low, high), est.method)
+        return Estimate(abs(est.value), -high, -low, est.method, est.n_effective)
+    return Estimate(abs(est.value), 0.0, max(-low, high), est.method, est.n_effective)
 
 
 def _gap_family(groups, rate: str) -> Family:

@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
+from scipy import stats
 
 __all__ = ["clustered_sample", "kish_deff", "membership_sample", "stratified_sample"]
 
@@ -63,19 +64,32 @@ def stratified_sample(rng, n, *, pop_shares=(0.95, 0.05), sample_shares=(0.5, 0.
 
 
 def clustered_sample(rng, n_clusters, *, sizes=(1, 10), icc=0.3, group_shares=(0.6, 0.3, 0.1),
-                     rates=(0.5, 0.4, 0.3)):
+                     rates=(0.5, 0.4, 0.3), shared=False):
     """People (clusters) of ``sizes[0] .. sizes[1]`` rows each, uniform; each person's selection
     probability is Beta with mean ``rates[group]`` and intra-cluster correlation ``icc``
     (``a + b = 1 / icc - 1``), so the rows' outcomes correlate at ``icc`` within a person.
+    ``shared``: a household rather than a person: the group is drawn per row, so the groups share
+    clusters, and the household's Beta draw (mean 0.5) is shifted by ``rates[group] - 0.5`` per row.
 
     Returns frame (``person``, ``group``), selected, truth (group -> population rate)."""
     size = rng.integers(sizes[0], sizes[1] + 1, n_clusters)
     gs = np.asarray(group_shares)
+    person = np.repeat(np.arange(n_clusters), size)
+    total = 1.0 / icc - 1.0
+    if shared:
+        g = rng.choice(len(gs), size=len(person), p=gs / gs.sum())
+        base = rng.beta(0.5 * total, 0.5 * total, n_clusters)
+        p = np.clip(base[person] + np.asarray(rates)[g] - 0.5, 0, 1)
+        sel = rng.random(len(person)) < p
+        frame = pd.DataFrame({"person": person, "group": np.array(["a", "b", "c"], dtype=object)[g]})
+        # the clip moves a rate: the truth is the mean of clipped Beta draws (by quadrature)
+        q = (np.arange(20000) + 0.5) / 20000
+        draws = stats.beta.ppf(q, 0.5 * total, 0.5 * total)
+        truth = {k: float(np.clip(draws + r - 0.5, 0, 1).mean()) for k, r in zip("abc", rates)}
+        return frame, sel, truth
     g = rng.choice(len(gs), size=n_clusters, p=gs / gs.sum())
     mean = np.asarray(rates)[g]
-    total = 1.0 / icc - 1.0
     p = rng.beta(mean * total, (1 - mean) * total)
-    person = np.repeat(np.arange(n_clusters), size)
     sel = rng.random(len(person)) < p[person]
     frame = pd.DataFrame({"person": person, "group": np.array(["a", "b", "c"], dtype=object)[g][person]})
     return frame, sel, dict(zip("abc", rates))

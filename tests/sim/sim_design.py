@@ -74,8 +74,19 @@ def clusters(runs=2000, seed=0, n_clusters=400):
         for g in "abc":
             hits[g] += _covers(rows[g].selection_rate, truth[g])
             naive[g] += _covers(plain[g].selection_rate, truth[g])
+    shared = {g: 0 for g in "bc"}
+    for r in range(runs):
+        rng = np.random.default_rng(seed + r)
+        frame, sel, truth = clustered_sample(rng, n_clusters, shared=True)
+        design = Design(cluster=pd.factorize(frame["person"])[0])
+        rows = _rows(group_metrics(frame, sel, sel, attributes=["group"], design=design,
+                                   reference={"group": "a"}), "group")
+        for g in "bc":
+            shared[g] += _covers(rows[g].spd, truth[g] - truth["a"])
     out = [proportion(f"clusters: coverage of group {g}'s rate, people as units", hits[g], runs,
                       NOMINAL, _seeds(seed, runs)) for g in "abc"]
+    out += [proportion(f"clusters: coverage of group {g}'s gap to a, groups within households",
+                       shared[g], runs, NOMINAL, _seeds(seed, runs)) for g in "bc"]
     out += [proportion(f"clusters: coverage of group {g}'s rate, rows as units (naive)", naive[g],
                        runs, "<= 0.90", _seeds(seed, runs)) for g in "abc"]
     return out
