@@ -33,9 +33,8 @@ interval. With every weight 0 or 1, no clusters and memberships of 0 or 1, the e
 Two groups whose estimates share units (a cluster with rows in both; a row counted in both by its
 membership probabilities) are not independent samples. The correlation of their estimates comes
 from the same linearisation (:meth:`CellEffective.correlation`) and enters the difference
-intervals (``newcombe_interval(..., rho=...)``); measured in ``tests/sim/sim_design.py``, the
-membership gaps cover 95 % with it and 99 % without. The impact ratio's MOVER-R interval still
-treats the two as independent, which errs wide when they move together.
+and ratio intervals (``newcombe_interval(..., rho=...)``, ``ratio_interval(..., rho=...)``);
+measured in ``tests/sim/sim_design.py``, the membership gaps cover 95 % with it and 99 % without.
 
 Uncertain membership
 --------------------

@@ -298,22 +298,26 @@ def group_metrics(
     return GroupMetrics(tuple(rows), unknown, favorable, confidence_level, tuple(notes))
 
 
-def _impact_estimate(x, n, i, ref, candidates, fixed, confidence_level) -> Estimate:
-    """Group ``i``'s impact ratio and its interval (the module notes give the method)."""
+def _impact_estimate(x, n, i, ref, candidates, fixed, rho, confidence_level) -> Estimate:
+    """Group ``i``'s impact ratio and its interval (the module notes give the method); ``rho``:
+    the correlation of group ``i``'s selection-rate estimate with every group's (None: all 0, as
+    without a design)."""
     x, n = np.asarray(x, dtype=float), np.asarray(n, dtype=float)
+    rho = np.zeros(len(x)) if rho is None else np.asarray(rho, dtype=float)
     with np.errstate(invalid="ignore", divide="ignore"):
         value = (x[i] / n[i]) / (x[ref] / n[ref]) if n[i] > 0 and x[ref] > 0 else np.nan
     if fixed or len(candidates) < 2:  # one eligible group: the reference is not a choice
         if i == ref:  # compared with itself: exactly 1, not an interval of two samples
             return Estimate(float(value), 1.0, 1.0, "reference")
-        low, high = ratio_interval(x[i], n[i], x[ref], n[ref], confidence_level=confidence_level)
+        low, high = ratio_interval(x[i], n[i], x[ref], n[ref], confidence_level=confidence_level,
+                                   rho=rho[ref])
         return Estimate(float(value), float(low), float(high), "mover-wilson")
     others = np.array([h for h in candidates if h != i])
     k, c = len(x), len(candidates)
     pairs = c * (k - 1) - c * (c - 1) // 2  # unordered pairs with at least one eligible group
     level = 1.0 - (1.0 - confidence_level) / pairs
     lows, highs = ratio_interval(np.full(len(others), x[i]), np.full(len(others), n[i]), x[others],
-                                 n[others], confidence_level=level)
+                                 n[others], confidence_level=level, rho=rho[others])
     # a group with no favourable decision cannot be the truly most-favoured one: its ratio is left out
     ok = x[others] > 0
     cap = 1.0 if i in candidates else np.inf
@@ -364,6 +368,9 @@ def _attribute_rows(name, cells, min_share, confidence_level, notes, fixed=None)
     candidates = tuple(int(h) for h in eligible)
     eff = cells.effective
     rho = {k: cells.correlation(k, ref) for k in GAP_RATES}
+    # every pair's selection-rate correlation (the impact ratio against a chosen reference reads all)
+    sel_rho = None if not eff else np.column_stack(
+        [cells.correlation("selection_rate", h) for h in range(len(labels))])
 
     def n_eff(m, i, j=None):  # two samples: the smaller effective size
         if not eff:
@@ -377,7 +384,8 @@ def _attribute_rows(name, cells, min_share, confidence_level, notes, fixed=None)
         if i == ref:  # compared with itself: exactly 0, not an interval of two samples
             sp_low[i], sp_high[i] = 0.0, 0.0
             eo_low[i] = eo_high[i] = 0.0 if np.isfinite(opp[i]) else np.nan
-        basis = (*counts, i, ref, candidates, fixed is not None)
+        basis = (*counts, i, ref, candidates, fixed is not None,
+                 None if sel_rho is None else tuple(sel_rho[i]))
         gap_counts = {k: (float(pairs[k][0][i]), float(pairs[k][1][i]), float(pairs[k][0][ref]),
                           float(pairs[k][1][ref]), float(rho[k][i])) for k in GAP_RATES}
         impact = _impact_estimate(*basis, cl)

@@ -199,11 +199,12 @@ def newcombe(x1, n1, x2, n2, *, confidence_level: float = 0.95) -> Estimate:
     return Estimate(x1 / n1 - x2 / n2, float(low), float(high), "newcombe")
 
 
-def ratio_interval(x1, n1, x2, n2, *, confidence_level: float = 0.95):
+def ratio_interval(x1, n1, x2, n2, *, confidence_level: float = 0.95, rho=0.0):
     """MOVER-R interval for the ratio of proportions ``(x1/n1) / (x2/n2)``, vectorised.
 
     Returns ``(low, high)``; NaN where a group is empty or the denominator rate is zero.
-    ``high`` is ``inf`` when the denominator's lower Wilson limit is zero.
+    ``high`` is ``inf`` when the denominator's lower Wilson limit is zero. ``rho``: the correlation
+    of the two estimates, as in :func:`newcombe_interval`.
 
     Notes
     -----
@@ -211,15 +212,24 @@ def ratio_interval(x1, n1, x2, n2, *, confidence_level: float = 0.95):
 
         low  = (p1 p2 - sqrt((p1 p2)² - l1 u2 (2 p1 - l1)(2 p2 - u2))) / (u2 (2 p2 - u2))
         high = (p1 p2 + sqrt((p1 p2)² - u1 l2 (2 p1 - u1)(2 p2 - l2))) / (l2 (2 p2 - l2))
+
+    With correlated estimates, the same derivation (the limit ``L`` solves ``p1 - L p2 = 0`` at the
+    MOVER limit of the difference ``p1 - L p2``, whose variance carries ``-2 rho L``) replaces the
+    ``p1 p2`` outside the square root and inside it by ``p1 p2 - rho (p1 - l1)(u2 - p2)`` for
+    ``low`` and ``p1 p2 - rho (u1 - p1)(p2 - l2)`` for ``high`` (derived here; equal to the
+    above at ``rho = 0``).
     """
     (x1, n1, p1, l1, u1), (x2, n2, p2, l2, u2) = _two_wilson(x1, n1, x2, n2, confidence_level)
     with np.errstate(invalid="ignore", divide="ignore"):
         pp = p1 * p2
-        low_disc = np.maximum(pp * pp - l1 * u2 * (2 * p1 - l1) * (2 * p2 - u2), 0.0)
-        high_disc = np.maximum(pp * pp - u1 * l2 * (2 * p1 - u1) * (2 * p2 - l2), 0.0)
-        low = (pp - np.sqrt(low_disc)) / (u2 * (2 * p2 - u2))
+        b_low = pp - rho * (p1 - l1) * (u2 - p2)
+        b_high = pp - rho * (u1 - p1) * (p2 - l2)
+        low_disc = np.maximum(b_low * b_low - l1 * u2 * (2 * p1 - l1) * (2 * p2 - u2), 0.0)
+        high_disc = np.maximum(b_high * b_high - u1 * l2 * (2 * p1 - u1) * (2 * p2 - l2), 0.0)
+        low = (b_low - np.sqrt(low_disc)) / (u2 * (2 * p2 - u2))
         high_den = l2 * (2 * p2 - l2)
-        high = np.where(high_den > 0, (pp + np.sqrt(high_disc)) / np.where(high_den > 0, high_den, 1), np.inf)
+        high = np.where(high_den > 0, (b_high + np.sqrt(high_disc))
+                        / np.where(high_den > 0, high_den, 1), np.inf)
         low = np.maximum(low, 0.0)
     bad = (n1 == 0) | (n2 == 0) | (x2 == 0)
     return np.where(bad, np.nan, low), np.where(bad, np.nan, high)

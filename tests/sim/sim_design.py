@@ -98,6 +98,7 @@ def membership(runs=2000, seed=0, n=4000):
     hits = {g: 0 for g in "abc"}
     naive = {g: 0 for g in "abc"}
     gap_hits = {g: 0 for g in "bc"}
+    ratio_hits = {g: 0 for g in "bc"}
     for r in range(runs):
         rng = np.random.default_rng(seed + r)
         frame, sel, truth, _ = membership_sample(rng, n)
@@ -108,6 +109,7 @@ def membership(runs=2000, seed=0, n=4000):
                                    reference={"race": "a"}), "race")
         for g in "bc":
             gap_hits[g] += _covers(rows[g].spd, truth[g] - truth["a"])
+            ratio_hits[g] += _covers(rows[g].impact_ratio, truth[g] / truth["a"])
         for j, g in enumerate("abc"):
             hits[g] += _covers(rows[g].selection_rate, truth[g])
             # naive: the probabilities summed as if they were rows
@@ -117,6 +119,8 @@ def membership(runs=2000, seed=0, n=4000):
                       _seeds(seed, runs)) for g in "abc"]
     out += [proportion(f"membership: coverage of group {g}'s gap to a (groups share rows)",
                        gap_hits[g], runs, NOMINAL, _seeds(seed, runs)) for g in "bc"]
+    out += [proportion(f"membership: coverage of group {g}'s impact ratio to a (groups share rows)",
+                       ratio_hits[g], runs, NOMINAL, _seeds(seed, runs)) for g in "bc"]
     out += [proportion(f"membership: coverage of group {g}'s rate, probabilities as rows (naive)",
                        naive[g], runs, ">= 0", _seeds(seed, runs)) for g in "abc"]
     return out

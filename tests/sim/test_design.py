@@ -87,6 +87,25 @@ def test_correlation_of_groups_sharing_rows_matches_statsmodels_cluster_covarian
         assert rho[j] > 0  # shared rows: the estimates move together
 
 
+@pytest.mark.parametrize("rho", [-0.6, 0.0, 0.4, 0.9])
+def test_correlated_ratio_limits_solve_the_mover_equation(rho):
+    # the defining equation (Donner & Zou 2012's derivation with a covariance term): the lower
+    # limit L makes p1 - L p2 equal its MOVER lower limit, i.e.
+    # (p1 - L p2)^2 = (p1 - l1)^2 + L^2 (u2 - p2)^2 - 2 rho L (p1 - l1)(u2 - p2), with L < p1/p2
+    from probe.stats import ratio_interval, wilson_interval
+
+    x1, n1, x2, n2 = 30.0, 100.0, 55.0, 120.0
+    (l1, u1), (l2, u2) = (wilson_interval(x, n) for x, n in ((x1, n1), (x2, n2)))
+    p1, p2 = x1 / n1, x2 / n2
+    low, high = ratio_interval(x1, n1, x2, n2, rho=rho)
+    lhs = (p1 - low * p2) ** 2
+    rhs = (p1 - l1) ** 2 + low ** 2 * (u2 - p2) ** 2 - 2 * rho * low * (p1 - l1) * (u2 - p2)
+    assert lhs == pytest.approx(rhs, rel=1e-9) and low < p1 / p2 < high
+    lhs = (p1 - high * p2) ** 2
+    rhs = (u1 - p1) ** 2 + high ** 2 * (p2 - l2) ** 2 - 2 * rho * high * (u1 - p1) * (p2 - l2)
+    assert lhs == pytest.approx(rhs, rel=1e-9)
+
+
 def test_a_rate_of_zero_falls_back_to_kish():
     w = np.array([1.0, 2.0, 3.0, 4.0])
     eff = effective_counts(np.zeros(4, dtype=np.int64), 1, np.zeros(4), w)
