@@ -63,7 +63,7 @@ HIDDEN = ("heritage",)
 VISITS, VISITS_P = (1, 2, 3, 4, 5), (0.45, 0.25, 0.15, 0.10, 0.05)
 # The Slate group's incomes are lower within every district (log scale): the outcome, and so the
 # model, differ between the true groups beyond what the district (the probabilities' source) says.
-SLATE_LOG_INCOME = -0.45
+SLATE_LOG_INCOME = -0.6
 
 CATEGORICAL_INPUTS = ("district", "channel", "employment", "pets", "guarantor")
 LEVELS = {
@@ -81,8 +81,8 @@ MODEL_INPUTS = CATEGORICAL_INPUTS + (
 # rent review in Cobble Reach that hit agent-placed tenancies of high rent burden): it is a coin
 # with P(kept_up) = 0.20, so the model declines (almost) the whole region, its keepers included.
 SLICE_KEPT_RATE = 0.20
-# rent as a share of monthly income: 0.55 is about the 80th percentile of the sample's burden.
-BURDEN_EDGE = 0.55
+# rent as a share of monthly income: 0.6 is about the 80th percentile of the sample's burden.
+BURDEN_EDGE = 0.6
 
 TRUTHS = {
     "scenario": "tenancy",
@@ -172,16 +172,16 @@ def generate(n_rows: int = 24_000, *, seed: int = 0) -> pd.DataFrame:
     employment = rng.choice(len(EMPLOYMENT), size=n, p=(0.66, 0.14, 0.14, 0.06))
     lease = rng.choice(LEASES, size=n, p=(0.15, 0.45, 0.25, 0.15))
     arrears = rng.poisson(0.15 + 0.5 * referred)
-    guarantor = rng.random(n) < 0.2
+    guarantor = rng.random(n) < np.where(heritage == 1, 0.08, 0.25)
     deposit = rng.choice((4, 5, 6), size=n, p=(0.3, 0.5, 0.2)).astype(np.int64)
 
     logit = (
-        1.4
-        + 1.6 * (np.log(income) - 7.6)
-        - 4.0 * (burden - 0.35)
-        - 0.8 * arrears
+        1.2
+        + 0.9 * (np.log(income) - 7.6)
+        - 1.8 * (burden - 0.35)
+        - 0.6 * arrears
         + 0.04 * np.minimum(years, 25.0)
-        + 0.5 * guarantor
+        + 0.8 * guarantor
         - 0.4 * (employment == 2)
         + 0.15 * (lease >= 24)
         + effect_p[person]
