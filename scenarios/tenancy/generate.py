@@ -256,8 +256,8 @@ def design_truths(candidate, fresh: pd.DataFrame, threshold: float) -> dict:
     holdout does not carry: the Kish design effect of the weights, the rows per applicant, the
     selection rate of ``age_band = 18-29`` weighted and unweighted, and per heritage group the
     selection rate with the true labels and the probability-weighted one (every row counted in
-    each group with weight ``w * p_group``), the Slate - Amber gaps of both and their ratio
-    (the attenuation).
+    each group with weight ``w * p_group``), the gaps of Slate to the reference (the group of the
+    highest probability-weighted rate) of both and their ratio (the attenuation).
     """
     selected = predict_proba(candidate, fresh) >= threshold
     w = fresh[WEIGHTS].to_numpy()
@@ -268,8 +268,9 @@ def design_truths(candidate, fresh: pd.DataFrame, threshold: float) -> dict:
         true_rate[group] = float(np.sum(w * member * selected) / np.sum(w * member))
         p = fresh[column].to_numpy()
         weighted_rate[group] = float(np.sum(w * p * selected) / np.sum(w * p))
-    true_gap = true_rate["Slate"] - true_rate["Amber"]
-    weighted_gap = weighted_rate["Slate"] - weighted_rate["Amber"]
+    reference = max(weighted_rate, key=weighted_rate.get)  # as probe chooses, on the population
+    true_gap = true_rate["Slate"] - true_rate[reference]
+    weighted_gap = weighted_rate["Slate"] - weighted_rate[reference]
     probs = fresh[list(PROBABILITY_COLUMNS.values())].to_numpy()
     return {
         "model": "candidate",
@@ -290,7 +291,7 @@ def design_truths(candidate, fresh: pd.DataFrame, threshold: float) -> dict:
             "uncertain_share": float(np.mean(probs.max(axis=1) < 0.8)),
             "true_selection_rate": true_rate,
             "probability_weighted_selection_rate": weighted_rate,
-            "group": "Slate", "reference": "Amber",
+            "group": "Slate", "reference": reference,
             "true_gap": true_gap, "probability_weighted_gap": weighted_gap,
             "attenuation": weighted_gap / true_gap,
         },
