@@ -131,6 +131,10 @@ def _items(block: Items) -> list[Text]:
     return out
 
 
+def _plain(p: Paragraph) -> str:
+    return "".join(x.text if isinstance(x, Code) else x for x in p.parts)
+
+
 def _leads_to_detail(following) -> bool:
     nxt = next((b for b in following if not isinstance(b, (Heading, Paragraph))), None)
     return isinstance(nxt, Table) and nxt.detail
@@ -145,8 +149,7 @@ def _section(section: Section) -> Group:
         if isinstance(block, Heading):
             parts.append(Text(block.text, style="bold"))
         elif isinstance(block, Paragraph):
-            text = "".join(x.text if isinstance(x, Code) else x for x in block.parts)
-            parts.append(Text(text))
+            parts.append(Text(_plain(block)))
         elif isinstance(block, Table):
             t = _table(block)
             if t is not None:
@@ -194,6 +197,8 @@ def render(report: dict, console: Console, *, quiet: bool = False, written: dict
         return
     verdict, *rest = model.sections
     console.print(_verdict_panel(verdict, model.verdict, counts))
+    if model.design is not None:
+        console.print(Text(_plain(model.design), style="dim"))
     for section in rest:
         if section.ran and section.key != "provenance":
             console.print(_section(section))
