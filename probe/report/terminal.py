@@ -42,14 +42,15 @@ _LABEL_MIN = 12  # a label column folds, but keeps room to be read
 
 
 def _min_width(table: Table, j: int) -> int:
-    """Numbers never break: a numeric column is as wide as its widest cell. A label column gets
-    its widest cell up to :data:`_LABEL_MIN` (then folds); another text column its longest word.
-    A header breaks between words, never inside one."""
+    """Numbers never break: a numeric column is as wide as its widest cell or its whole header
+    (rich wraps neither). A label column gets its widest cell up to :data:`_LABEL_MIN` (then
+    folds); another text column its longest word. A header breaks between words, never inside
+    one."""
     c = table.columns[j]
     header = max((len(w) for w in c.header.split()), default=1)
     texts = [_cell(row[j], c.compact).plain for row in table.rows]
-    if c.numeric:
-        return max(header, *(len(t) for t in texts))
+    if c.numeric:  # rich never wraps a no-wrap column, its header included
+        return max(len(c.header), *(len(t) for t in texts))
     if c.label:
         return max(header, min(_LABEL_MIN, max(len(t) for t in texts)))
     return max(header, *(len(w) for t in texts for w in t.split() or [""]))
