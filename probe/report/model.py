@@ -208,8 +208,7 @@ class ReportModel:
         Model spec, data path, creation time and probe version, where known.
     sections : tuple of Section
     design : Paragraph or None
-        The sampling design's line (:mod:`probe.report.design`), shown under the header; None for
-        a plain run.
+        The sampling design's line (:mod:`probe.report.design`); None for a plain run.
     """
 
     caution: str
@@ -382,8 +381,7 @@ def build_model(report: Mapping) -> ReportModel:
         order. Every string from the report is shown through :func:`~probe.report.fmt.visible`
         (control characters escaped). The input is not modified.
     """
-    from . import attributes, sections  # the section builders use this module's types
-    from .design import design_paragraph
+    from . import attributes, design, sections  # the section builders use this module's types
 
     report = visible_all(report)
     p = report.get("provenance") or {}
@@ -398,4 +396,4 @@ def build_model(report: Mapping) -> ReportModel:
     parts += [sections.comparison(report), _provenance(report)]
     rules = (report.get("verdict") or {}).get("rules") or []
     return ReportModel(caution_of(report), verdict_word(report.get("verdict")),
-                       status_counts(rules), meta, tuple(parts), design_paragraph(report))
+                       status_counts(rules), meta, tuple(parts), design.design_paragraph(report))
