@@ -124,7 +124,7 @@ def build_parser() -> argparse.ArgumentParser:
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
 
     p = sub.add_parser("demo", help="build an invented scenario (data + model) and probe it")
-    p.add_argument("scenario", nargs="?", default="lending", help="lending (default), hiring, claims")
+    p.add_argument("scenario", nargs="?", default="lending", help="lending (default), hiring, claims, tenancy")
     p.add_argument("--rebuild", action="store_true", help="regenerate the scenario's data and model")
     p.add_argument("--list", action="store_true", help="list the scenarios and exit")
     p.add_argument("--strict", action="store_true",

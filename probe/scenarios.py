@@ -44,7 +44,7 @@ __all__ = [
     "scenarios_root",
 ]
 
-SCENARIOS: tuple[str, ...] = ("lending", "hiring", "claims")
+SCENARIOS: tuple[str, ...] = ("lending", "hiring", "claims", "tenancy")
 DEFAULT_SCENARIO = "lending"
 
 _SHARED = "_build"  # the folder of scenarios/ that every scenario's build uses

@@ -47,3 +47,23 @@ def test_demo_unknown_scenario_is_a_clear_error(capsys):
     assert main(["demo", "mortgages"], console=_console()) == EXIT_BAD_INPUT
     err = capsys.readouterr().err
     assert "lending" in err and len(err.strip().splitlines()) == 1
+
+
+@pytest.mark.slow
+def test_demo_of_the_design_scenario_reports_its_design(tmp_path, built):
+    scenario = built("tenancy")  # build outside the run
+    console = _console()
+    assert main(["demo", "tenancy", "--out", str(tmp_path)], console=console) == EXIT_OK
+    report = json.loads((tmp_path / "report.json").read_text())
+    design = report["provenance"]["design"]
+    truths = scenario.truths["design"]
+    assert design["weights"] == truths["weights"] and design["cluster"] == truths["cluster"]
+    # the share of uncertain rows is the holdout's (the truths' is the fresh draw's)
+    assert abs(design["membership"]["heritage"]["uncertain_share"]
+               - truths["membership"]["uncertain_share"]) < 0.02
+    assert {g["attribute"] for g in report["groups"]} == {"age_band", "heritage",
+                                                          "heritage & age_band"}
+    for key in ("groups", "slices", "flips", "comparison", "verdict"):
+        assert report[key], f"section {key} is empty"
+    text = " ".join(console.file.getvalue().split())  # the terminal wraps lines anywhere
+    assert "Fairness under unawareness" in text and "rows weighted by design_weight" in text

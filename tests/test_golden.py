@@ -1,4 +1,5 @@
-"""Golden files: every renderer's output for one small seeded run of every section.
+"""Golden files: every renderer's output for one small seeded run of every section, and for a run
+under a sampling design.
 
 The run (``tests/golden/plan.toml`` on the committed ``holdout.csv`` with the closed-form models
 in ``golden_model.py``) goes through the command line once; its ``report.json`` is normalised (the
@@ -6,6 +7,11 @@ date, timings, library versions and absolute paths vary by machine) and every re
 driven from that one dict: the terminal on a colourless console at 80 and 120 columns, Markdown,
 HTML, JUnit XML, and the JSON itself. A change to any of them must be deliberate: regenerate with
 ``PROBE_UPDATE_GOLDEN=1 python -m pytest tests/test_golden.py`` and review the diff.
+
+The design run (``tests/golden/design/``: weights, clusters and membership probabilities, groups
+only, the model's scores a column) pins the same renderers in ``tests/golden/design/``: the design
+line under the header, ``n eff`` beside the group rates, the group weights and clusters, the
+membership caution.
 """
 
 from __future__ import annotations
@@ -15,6 +21,7 @@ import json
 import os
 from pathlib import Path
 
+import pandas as pd
 import pytest
 from rich.console import Console
 
@@ -40,13 +47,23 @@ def _normalise(report: dict) -> dict:
     return json.loads(text)
 
 
+def _run(folder: Path, tmp: Path, expected_code: int) -> dict:
+    code = main(["run", str(folder / "plan.toml"), "--out", str(tmp), "--quiet"],
+                console=Console(file=io.StringIO(), width=100, color_system=None))
+    assert code == expected_code
+    return _normalise(json.loads((tmp / "report.json").read_text()))
+
+
 @pytest.fixture(scope="module")
 def report(tmp_path_factory) -> dict:
-    out = tmp_path_factory.mktemp("golden")
-    code = main(["run", str(HERE / "plan.toml"), "--out", str(out), "--quiet"],
-                console=Console(file=io.StringIO(), width=100, color_system=None))
-    assert code == 1  # the plan's policy fails on purpose (planted direct dependence on `sex`)
-    return _normalise(json.loads((out / "report.json").read_text()))
+    # the plan's policy fails on purpose (planted direct dependence on `sex`)
+    return _run(HERE, tmp_path_factory.mktemp("golden"), 1)
+
+
+@pytest.fixture(scope="module")
+def design_report(tmp_path_factory) -> dict:
+    # every impact ratio's interval straddles 0.8 on 600 rows: inconclusive, exit 0
+    return _run(HERE / "design", tmp_path_factory.mktemp("golden-design"), 0)
 
 
 def _terminal(report: dict, width: int) -> str:
@@ -67,15 +84,41 @@ RENDERERS = {
 }
 
 
-@pytest.mark.parametrize("name", sorted(RENDERERS))
-def test_renderer_matches_golden_file(report, name):
-    text = RENDERERS[name](report)
-    path = HERE / name
+def _check(text: str, path: Path) -> None:
     if UPDATE:
         path.write_text(text, encoding="utf-8")
     assert path.exists(), f"no golden file {path}; run with PROBE_UPDATE_GOLDEN=1 once"
     expected = path.read_text(encoding="utf-8")
-    assert text == expected, f"{name} differs from its golden file; review and regenerate"
+    assert text == expected, f"{path.name} differs from its golden file; review and regenerate"
+
+
+@pytest.mark.parametrize("name", sorted(RENDERERS))
+def test_renderer_matches_golden_file(report, name):
+    _check(RENDERERS[name](report), HERE / name)
+
+
+@pytest.mark.parametrize("name", sorted(RENDERERS))
+def test_renderer_under_a_design_matches_golden_file(design_report, name):
+    _check(RENDERERS[name](design_report), HERE / "design" / name)
+
+
+def test_design_report_shows_the_design_in_every_renderer(design_report):
+    design = design_report["provenance"]["design"]
+    frame = pd.read_csv(HERE / "design" / "holdout.csv")
+    w = frame["weight"].to_numpy()
+    # Kish's effective rows (sum w)^2 / sum w^2 and the clusters, from the CSV itself
+    kish = f"{round(w.sum() ** 2 / (w * w).sum()):,}"
+    clusters = f"{frame['person'].nunique():,} clusters"
+    uncertain = f"{100 * (frame[['p_north', 'p_south']].max(axis=1) < 0.8).mean():.1f} %"
+    assert design["clusters"] == frame["person"].nunique()
+    for name, render in RENDERERS.items():
+        if name == "report.json":
+            continue
+        text = " ".join(render(design_report).split())  # a terminal wraps lines anywhere
+        for piece in (kish, clusters, uncertain, "Fairness under unawareness"):
+            assert piece in text, (name, piece)
+        if name != "junit.xml":  # the verdict's XML has no group table
+            assert "n eff" in text, name
 
 
 def test_transport_moves_the_proxies_the_proxies_table_ranks(report):

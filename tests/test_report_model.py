@@ -203,3 +203,37 @@ def test_empty_worse_slices_are_said_in_words_everywhere():
     report["comparison"]["worse_slices"] = fixture.example_report(
         with_comparison=True)["comparison"]["worse_slices"]
     assert "No slice where the candidate is worse" not in _md_text(report)
+
+
+# -- the sampling design ----------------------------------------------------------------------
+
+
+def _design_report() -> dict:
+    import json
+
+    golden = Path(__file__).parent / "golden" / "design" / "report.json"
+    return json.loads(golden.read_text(encoding="utf-8"))
+
+
+def _group_headers(model) -> list[str]:
+    groups = next(s for s in model.sections if s.key == "groups")
+    table = next(b for b in groups.blocks if hasattr(b, "columns"))
+    return [c.header for c in table.columns]
+
+
+def test_a_plain_report_has_no_design_line_and_no_effective_n_column():
+    model = build_model(fixture.example_report())
+    assert model.design is None
+    assert "n eff" not in _group_headers(model) and "weight" not in _group_headers(model)
+
+
+def test_the_design_line_names_only_what_the_design_has():
+    report = _design_report()
+    full = build_model(report)
+    assert "n eff" in _group_headers(full) and "clusters" in _group_headers(full)
+    design = report["provenance"]["design"]
+    design.update(cluster=None, clusters=None, membership={})
+    text = "".join(getattr(p, "text", p) for p in build_model(report).design.parts)
+    kish = round(design["kish_effective_rows"])
+    assert text == (f"Sampling design: rows weighted by {design['weights']} (Kish effective rows "
+                    f"{kish:,} of {report['provenance']['data']['rows']:,}).")

@@ -211,6 +211,73 @@ def test_skops_model_loads_with_default_trusted_types(built):
         assert skops.io.get_untrusted_types(file=path) == []
 
 
+# ------------------------------------------------------------------------------ the design (tenancy)
+
+
+@pytest.fixture(scope="session")
+def tenancy_groups(built):
+    """The groups section of the tenancy plan, run alone (slices, flips and comparison dropped)."""
+    from dataclasses import replace
+
+    from probe.pipeline import run_plan
+    from probe.plan import load_plan
+
+    plan = load_plan(built["tenancy"].plan_path)
+    report = run_plan(replace(plan, slices=None, flips=None, compare=None))
+    return report, {(g["attribute"], g["group"]): g for g in report["groups"]}
+
+
+def test_tenancy_holdout_carries_the_design_but_not_the_true_group(built, holdouts):
+    frame, design = holdouts["tenancy"], built["tenancy"].truths["design"]
+    assert "heritage" not in frame.columns
+    w = frame[design["weights"]].to_numpy()
+    # Kish's design effect n sum(w^2) / (sum w)^2, computed here from the column
+    deff = len(w) * (w * w).sum() / w.sum() ** 2
+    assert 1.8 <= deff <= 2.3 and abs(deff - design["kish_design_effect"]) < 0.1
+    per_person = frame.groupby(design["cluster"]).size()
+    assert per_person.min() == 1 and per_person.max() >= 4
+    probs = frame[list(design["membership"]["columns"].values())].to_numpy()
+    np.testing.assert_allclose(probs.sum(axis=1), 1.0, atol=1e-9)
+    assert 0.5 <= (probs.max(axis=1) < 0.8).mean() <= 0.9
+
+
+@pytest.mark.slow
+def test_tenancy_groups_are_weighted_with_clusters_as_units(built, holdouts, tenancy_groups):
+    report, rows = tenancy_groups
+    frame, design = holdouts["tenancy"], built["tenancy"].truths["design"]
+    assert report["provenance"]["design"]["clusters"] == frame[design["cluster"]].nunique()
+    young = rows[("age_band", "18-29")]
+    mask = (frame["age_band"] == "18-29").to_numpy()
+    assert young["rows"] == mask.sum()
+    assert young["weight"] == pytest.approx(frame.loc[mask, design["weights"]].sum())
+    assert young["clusters"] == frame.loc[mask, design["cluster"]].nunique()
+    rate = young["selection_rate"]
+    assert rate["n_effective"] < young["rows"] / 1.5  # the design costs precision
+    # planted: the weighted rate targets the population (the fresh draw's weighted rate, measured
+    # by the generator); the sample's plain rate is far off, outside the interval
+    truth = design["weighted_vs_unweighted"]
+    assert rate["low"] <= truth["weighted"] <= rate["high"]
+    assert truth["weighted"] - truth["unweighted"] >= 0.08
+    assert truth["unweighted"] < rate["low"]
+
+
+@pytest.mark.slow
+def test_tenancy_probability_weighted_gap_is_attenuated_as_planted(built, tenancy_groups):
+    report, rows = tenancy_groups
+    m = built["tenancy"].truths["design"]["membership"]
+    slate = rows[("heritage", m["group"])]
+    ref = slate["reference_group"]  # the highest weighted selection rate on the holdout
+    true, weighted = m["true_selection_rate"], m["probability_weighted_selection_rate"]
+    spd = slate["spd"]
+    # probe's probability-weighted gap covers the population's probability-weighted gap ...
+    assert spd["low"] <= weighted["Slate"] - weighted[ref] <= spd["high"]
+    # ... and is far short of the true groups' gap (the attenuation the caution warns about)
+    assert true["Slate"] - true[ref] < spd["low"] and m["attenuation"] < 0.5
+    assert slate["impact_ratio"]["low"] > true["Slate"] / true[ref]
+    assert ("heritage & age_band", "Slate & 18-29") in rows
+    assert "`heritage`" in report["caution"] and "Fairness under unawareness" in report["caution"]
+
+
 # ------------------------------------------------------------------------------ build and cache
 
 
@@ -272,7 +339,7 @@ def test_scenario_module_imports_the_scenarios_folder_as_one_package():
 
 
 def test_unknown_scenario_is_a_data_error_listing_the_names(tmp_path):
-    with pytest.raises(DataError, match="unknown scenario `banking`.*lending, hiring, claims"):
+    with pytest.raises(DataError, match="unknown scenario `banking`.*lending, hiring, claims, tenancy"):
         scenario_dir("banking")
     with pytest.raises(DataError, match="unknown scenario"):
         build_scenario("banking", cache_dir=tmp_path)

@@ -124,8 +124,8 @@ def _table(table: Table, legends: set) -> str:
     return out
 
 
-def _paragraph(p: Paragraph) -> str:
-    return "<p>" + "".join(f"<code>{_e(x.text)}</code>" if isinstance(x, Code) else _e(x)
+def _paragraph(p: Paragraph, css: str = "") -> str:
+    return (f'<p class="{css}">' if css else "<p>") + "".join(f"<code>{_e(x.text)}</code>" if isinstance(x, Code) else _e(x)
                            for x in p.parts) + "</p>"
 
 
@@ -187,13 +187,14 @@ def render_html(report: Mapping) -> str:
     )
     nav = "".join(f'<a href="#{s.key}">{_e(s.nav)}</a>' for s in model.sections)
     caution = _e(model.caution)
+    design = "" if model.design is None else _paragraph(model.design, "meta design")
     parts = [
         "<!DOCTYPE html>",
         '<html lang="en"><head><meta charset="utf-8">',
         '<meta name="viewport" content="width=device-width, initial-scale=1">',
         f"<title>probe report: {_e(model.verdict)}</title>",
         f"<style>{_CSS}</style></head><body><main>",
-        f'<header><h1>probe report</h1><p class="meta">{meta}</p><nav>{nav}</nav></header>',
+        f'<header><h1>probe report</h1><p class="meta">{meta}</p>{design}<nav>{nav}</nav></header>',
         f'<aside class="caution" role="note"><strong>Caution.</strong> {caution}</aside>',
         *(_section(s) for s in model.sections),
         f"<footer><p><strong>Caution.</strong> {caution}</p></footer>",

@@ -17,6 +17,7 @@ import xml.etree.ElementTree as ET
 from collections.abc import Mapping
 from typing import Any
 
+from .design import design_text
 from .fmt import caution_of, rule_status, rule_summary, rule_title, visible_all
 
 __all__ = ["render_junit"]
@@ -85,6 +86,7 @@ def render_junit(report: Mapping) -> str:
     data = prov.get("data") or {}
     for name, value in (
         ("caution", caution_of(report)),
+        ("design", design_text(report) or None),
         ("verdict.passed", verdict.get("passed")),
         ("verdict.fail_on_inconclusive", strict),
         ("model.spec", model.get("spec")),

@@ -113,12 +113,16 @@ def render_markdown(report: Mapping) -> str:
     Returns
     -------
     str
-        The Markdown text, ending with a newline: title, caution, verdict, groups, slices, flips,
+        The Markdown text, ending with a newline: title, the sampling design (when there is
+        one), caution, verdict, groups, slices, flips,
         proxies (when run), comparison, provenance. User strings are escaped; every table row has
         the header's number of cells.
     """
     model = build_model(report)
-    lines = ["# probe report", "", f"> **Caution.** {md_escape(model.caution)}", ""]
+    lines = ["# probe report", ""]
+    if model.design is not None:
+        lines += [_paragraph(model.design), ""]
+    lines += [f"> **Caution.** {md_escape(model.caution)}", ""]
     for section in model.sections:
         lines += _section(section)
     return "\n".join(lines).rstrip("\n") + "\n"

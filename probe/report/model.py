@@ -207,6 +207,8 @@ class ReportModel:
     meta : tuple of (str, str)
         Model spec, data path, creation time and probe version, where known.
     sections : tuple of Section
+    design : Paragraph or None
+        The sampling design's line (:mod:`probe.report.design`); None for a plain run.
     """
 
     caution: str
@@ -214,6 +216,7 @@ class ReportModel:
     counts: Mapping[str, int]
     meta: tuple[tuple[str, str], ...]
     sections: tuple[Section, ...]
+    design: Paragraph | None = None
 
 
 # -- cells -------------------------------------------------------------------------------------
@@ -378,7 +381,7 @@ def build_model(report: Mapping) -> ReportModel:
         order. Every string from the report is shown through :func:`~probe.report.fmt.visible`
         (control characters escaped). The input is not modified.
     """
-    from . import attributes, sections  # the section builders use this module's types
+    from . import attributes, design, sections  # the section builders use this module's types
 
     report = visible_all(report)
     p = report.get("provenance") or {}
@@ -393,4 +396,4 @@ def build_model(report: Mapping) -> ReportModel:
     parts += [sections.comparison(report), _provenance(report)]
     rules = (report.get("verdict") or {}).get("rules") or []
     return ReportModel(caution_of(report), verdict_word(report.get("verdict")),
-                       status_counts(rules), meta, tuple(parts))
+                       status_counts(rules), meta, tuple(parts), design.design_paragraph(report))

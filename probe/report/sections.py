@@ -12,10 +12,12 @@ from collections.abc import Mapping, Sequence
 
 from ..metrics import FOUR_FIFTHS
 
+from .design import N_EFF_COLUMN, design_of, n_eff_cell, weighted_note
 from .fmt import (
     confidence_text,
     fmt_count,
     fmt_est,
+    fmt_num,
     fmt_p,
     fmt_share,
     is_number,
@@ -134,10 +136,18 @@ def groups(report: Mapping) -> Section:
         Column("FNR", "false-negative rate", numeric=True, compact="value"),
         Column("PPV", "positive predictive value", numeric=True, compact=""),
     )
+    designed = design_of(report) is not None
+    if designed:  # the effective rows beside the rates; the weight and clusters in the full table
+        share = Column("share", "share of the total weight", numeric=True, compact="")
+        columns = (*columns[:2], share, columns[3], N_EFF_COLUMN, *columns[4:],
+                   Column("weight", "the group's total weight", numeric=True, compact=""),
+                   Column("clusters", "clusters with a row in the group", numeric=True,
+                          compact=""))
     chosen = any(g.get("reference_fixed") is False for g in rows)
     blocks: list = [Paragraph((
         f"Rates with {level} intervals, each group against its attribute's reference group. "
         "(small) marks a group under 2 % of the rows."
+        + weighted_note(report)
         + (" " + _CHOSEN_REFERENCE.format(level=level) if chosen else ""),
     ))]
     by_attribute: dict[str, list[Mapping]] = {}
@@ -149,18 +159,24 @@ def groups(report: Mapping) -> Section:
         if unknown.get(attribute):
             note += f" {fmt_count(unknown[attribute])} rows with this attribute missing are left out."
         blocks += [Heading(attribute), Paragraph((note,)), _group_plot(attribute, members, level)]
-        blocks.append(Table(columns, tuple(
-            (
-                text_cell(g.get("group"), tag="small" if g.get("small") else ""),
-                Cell(fmt_count(g.get("rows"))), Cell(fmt_share(g.get("share"))),
-                est_cell(g.get("selection_rate")), est_cell(g.get("impact_ratio")),
-                Cell("⚑", flag=True) if g.get("four_fifths_flag") else Cell(""),
-                *(est_cell(g.get(k)) for k in ("spd", "eod", "error_rate", "tpr", "fpr", "fnr",
-                                                "ppv")),
-            )
-            for g in members
-        )))
+        blocks.append(Table(columns, tuple(_group_row(g, designed) for g in members)))
     return Section("groups", "Groups", "Groups", tuple(blocks))
+
+
+def _group_row(g: Mapping, designed: bool) -> tuple[Cell, ...]:
+    cells = (
+        text_cell(g.get("group"), tag="small" if g.get("small") else ""),
+        Cell(fmt_count(g.get("rows"))), Cell(fmt_share(g.get("share"))),
+        est_cell(g.get("selection_rate")), est_cell(g.get("impact_ratio")),
+        Cell("⚑", flag=True) if g.get("four_fifths_flag") else Cell(""),
+        *(est_cell(g.get(k)) for k in ("spd", "eod", "error_rate", "tpr", "fpr", "fnr", "ppv")),
+    )
+    if not designed:
+        return cells
+    weight = g.get("weight")
+    return (*cells[:4], n_eff_cell(g.get("selection_rate")), *cells[4:],
+            Cell(fmt_num(weight, 1) if is_number(weight) else "n/a"),
+            Cell(fmt_count(g.get("clusters"))))
 
 
 # -- slices ------------------------------------------------------------------------------------

@@ -42,14 +42,15 @@ _LABEL_MIN = 12  # a label column folds, but keeps room to be read
 
 
 def _min_width(table: Table, j: int) -> int:
-    """Numbers never break: a numeric column is as wide as its widest cell. A label column gets
-    its widest cell up to :data:`_LABEL_MIN` (then folds); another text column its longest word.
-    A header breaks between words, never inside one."""
+    """Numbers never break: a numeric column is as wide as its widest cell or its whole header
+    (rich wraps neither). A label column gets its widest cell up to :data:`_LABEL_MIN` (then
+    folds); another text column its longest word. A header breaks between words, never inside
+    one."""
     c = table.columns[j]
     header = max((len(w) for w in c.header.split()), default=1)
     texts = [_cell(row[j], c.compact).plain for row in table.rows]
-    if c.numeric:
-        return max(header, *(len(t) for t in texts))
+    if c.numeric:  # rich never wraps a no-wrap column, its header included
+        return max(len(c.header), *(len(t) for t in texts))
     if c.label:
         return max(header, min(_LABEL_MIN, max(len(t) for t in texts)))
     return max(header, *(len(w) for t in texts for w in t.split() or [""]))
@@ -131,6 +132,10 @@ def _items(block: Items) -> list[Text]:
     return out
 
 
+def _plain(p: Paragraph) -> str:
+    return "".join(x.text if isinstance(x, Code) else x for x in p.parts)
+
+
 def _leads_to_detail(following) -> bool:
     nxt = next((b for b in following if not isinstance(b, (Heading, Paragraph))), None)
     return isinstance(nxt, Table) and nxt.detail
@@ -145,8 +150,7 @@ def _section(section: Section) -> Group:
         if isinstance(block, Heading):
             parts.append(Text(block.text, style="bold"))
         elif isinstance(block, Paragraph):
-            text = "".join(x.text if isinstance(x, Code) else x for x in block.parts)
-            parts.append(Text(text))
+            parts.append(Text(_plain(block)))
         elif isinstance(block, Table):
             t = _table(block)
             if t is not None:
@@ -194,6 +198,8 @@ def render(report: dict, console: Console, *, quiet: bool = False, written: dict
         return
     verdict, *rest = model.sections
     console.print(_verdict_panel(verdict, model.verdict, counts))
+    if model.design is not None:
+        console.print(Text(_plain(model.design), style="dim"))
     for section in rest:
         if section.ran and section.key != "provenance":
             console.print(_section(section))

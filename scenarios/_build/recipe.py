@@ -30,7 +30,9 @@ def write_build(
     production model and the regression candidate on the training draw, and the truths are
     measured with both models on a fresh draw of :data:`TRUTH_ROWS` rows
     (:func:`truths.measure_truths`). ``plan.toml`` and ``README.md`` are copied from the
-    generator's folder.
+    generator's folder. A generator with ``HIDDEN`` columns (drawn, but not for the holdout: a
+    true group known only as probabilities) has them dropped from ``holdout.parquet``; one with
+    ``design_truths(candidate, fresh, threshold)`` gets its result as ``truths["design"]``.
 
     Parameters
     ----------
@@ -38,7 +40,7 @@ def write_build(
         An empty, writable folder.
     generator : module
         The scenario's ``generate.py`` (``generate``, ``train``, ``predict_proba``, ``TRUTHS``,
-        ``MODEL_FILE``, ``CANDIDATE_FILE``).
+        ``MODEL_FILE``, ``CANDIDATE_FILE``; optionally ``HIDDEN`` and ``design_truths``).
     seed : int
         Seed of the holdout; the training and truth draws use seeds derived from it.
     key : str
@@ -55,7 +57,8 @@ def write_build(
     model, save_model = generator.train(training, seed=seed)
     candidate, save_candidate = generator.train(training, seed=seed, defect=True)
 
-    holdout.to_parquet(folder / "holdout.parquet", index=False)
+    hidden = list(getattr(generator, "HIDDEN", ()))
+    holdout.drop(columns=hidden).to_parquet(folder / "holdout.parquet", index=False)
     save_model(folder / generator.MODEL_FILE)
     save_candidate(folder / generator.CANDIDATE_FILE)
     shutil.copyfile(source / "plan.toml", folder / "plan.toml")
@@ -64,6 +67,8 @@ def write_build(
 
     fresh = generator.generate(TRUTH_ROWS, seed=truth_seed)
     truths = measure_truths(generator, model, candidate, fresh)
+    if hasattr(generator, "design_truths"):
+        truths["design"] = generator.design_truths(candidate, fresh, THRESHOLD)
     truths["build"] = {
         "key": key,
         "seed": seed,
