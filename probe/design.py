@@ -26,7 +26,9 @@ variance of ``y`` in the cell (``p (1 - p)`` for a 0/1 outcome): the number of i
 that would give the same precision (Korn & Graubard 1998). Where the rate is 0 or 1 the variance
 estimate is 0 and says nothing; Kish's effective size ``W^2 / sum(w^2)`` (over cluster totals with
 clusters) is used instead. ``n_eff`` is capped at the cell's rows of positive weight.
-``x_eff = p * n_eff``. Wilson's interval on ``(x_eff, n_eff)`` is then the design-based Wilson
+``x_eff = p * n_eff``. (A group known by membership probabilities may have ``n_eff`` above the
+sum of its probabilities: its probability-weighted rate varies less than a rate over that many
+recorded members.) Wilson's interval on ``(x_eff, n_eff)`` is then the design-based Wilson
 interval. With every weight 0 or 1, no clusters and memberships of 0 or 1, the effective counts
 *are* the counts, exactly, and every estimate equals the unweighted one.
 
