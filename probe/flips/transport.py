@@ -60,7 +60,11 @@ def transport_flips(ctx: FlipContext, *, proxies, n_proxies, proxy_ranking, pair
         proxies = _given_proxies(ctx, proxies)
     else:
         if proxy_ranking is None and ctx.features:
-            proxy_ranking = find_proxies(X, attribute, features=ctx.features, multivariate=False,
+            member = ctx.design.membership
+            ranked = X if member is None else X.assign(**{attribute: np.asarray(
+                member.levels, dtype=object)[member.probs.argmax(axis=1)]})
+            proxy_ranking = find_proxies(ranked, attribute, features=ctx.features,
+                                         multivariate=False,
                                          confidence_level=ctx.confidence_level, rng=rng)
         proxies = _ranked_proxies(ctx, proxy_ranking, n_proxies)
     if not proxies and not ctx.is_input:

@@ -1,0 +1,141 @@
+"""The flip tests under a sampling design: who is in each group, with what weight, in which unit.
+
+:func:`flip_design` reads ``sample_weight=`` / ``design=`` once (:mod:`probe.design`) into a
+:class:`FlipDesign`: per level of the flipped attribute its rows, their weights (the row weight, times
+the membership probability when the attribute is known only as probabilities: each row then counts
+in each group with weight ``w * pi``, :func:`probe.design.expand_rows`'s rule) and the units the
+variance treats as independent (the clusters, else the rows; a row's copies share its unit).
+:func:`weighted_shares` and :func:`weighted_mean` turn per-person outcomes into estimates: weighted
+rates with Wilson intervals on the design's effective counts (:func:`probe.design.
+effective_counts`), and a weighted mean with a t interval on its linearisation variance, each with
+its ``n_effective``. A plain design (:attr:`probe.design.Design.plain`) takes none of this: the
+modes run their unweighted code, on the rows of weight 1.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import stats as _sps
+
+from ..design import Design, Membership, effective_counts
+from ..errors import DataError, PlanError
+from ..stats import Estimate, wilson_interval
+
+__all__ = ["FlipDesign", "design_of", "flip_design", "weighted_mean", "weighted_shares"]
+
+
+@dataclass(frozen=True)
+class FlipDesign:
+    """The design as a flip test uses it.
+
+    Attributes
+    ----------
+    weighted : bool
+        The design is not plain: weights, units and effective counts apply.
+    clustered : bool
+        Clusters are the units.
+    units : ndarray of int64 or None
+        Each row's unit (None for a plain design).
+    membership : Membership or None
+        The flipped attribute's membership probabilities, when it is known only that way.
+    weights : dict
+        Per level, the weights of its rows (``w`` or ``w * pi``); empty for a plain design.
+    """
+
+    weighted: bool
+    clustered: bool
+    units: np.ndarray | None
+    membership: Membership | None
+    weights: dict
+
+    def of(self, level, positions=None):
+        """The weights of ``level``'s rows (those at ``positions`` among them), or None."""
+        if not self.weighted:
+            return None
+        w = self.weights[level]
+        return w if positions is None else w[positions]
+
+    def unit_of(self, rows):
+        return None if self.units is None else self.units[rows]
+
+
+def design_of(n_rows: int, sample_weight=None, design: Design | None = None) -> Design:
+    """The design of ``n_rows`` rows from the API's ``sample_weight=`` or ``design=`` (brief: not
+    both), checked for length and values."""
+    if sample_weight is not None and design is not None:
+        raise PlanError("give `sample_weight` or `design`, not both (put the weights in the Design)")
+    if design is not None and not isinstance(design, Design):
+        raise PlanError(f"`design` must be a probe.design.Design, got {type(design).__name__}")
+    if sample_weight is not None:
+        w = np.asarray(sample_weight, dtype=np.float64)
+        if w.shape != (n_rows,):
+            raise DataError(f"`sample_weight` must hold one weight per row ({n_rows}), got shape "
+                            f"{w.shape}")
+        if not np.all(np.isfinite(w)) or np.any(w < 0) or not np.any(w > 0):
+            raise DataError("`sample_weight` must be finite, 0 or more, and not all zero")
+        design = Design(weights=w)
+    design = design or Design()
+    sizes = [len(a) for a in (design.weights, design.cluster) if a is not None]
+    sizes += [len(m.probs) for m in design.membership.values()]
+    if any(s != n_rows for s in sizes):
+        raise DataError(f"the design must describe the {n_rows} rows of the data, got arrays "
+                        f"of {sorted(set(sizes))} rows")
+    return design
+
+
+def flip_design(design: Design, group_rows: dict, membership: Membership | None) -> FlipDesign:
+    """The :class:`FlipDesign` for the groups ``group_rows`` (every row of a level, for a
+    membership attribute every row of positive probability there)."""
+    n = (len(design.weights) if design.weights is not None else
+         len(design.cluster) if design.cluster is not None else
+         len(membership.probs) if membership is not None else 0)
+    if design.plain:
+        return FlipDesign(False, False, None, membership, {})
+    w = design.row_weights(n) if n else None
+    weights = {}
+    for j, (level, rows) in enumerate(group_rows.items()):
+        wl = np.ones(len(rows)) if w is None else w[rows]
+        if membership is not None and level in membership.levels:
+            wl = wl * membership.probs[rows, membership.levels.index(level)]
+        weights[level] = wl
+    units = design.units(n) if n else None
+    return FlipDesign(True, design.cluster is not None, units, membership, weights)
+
+
+def weighted_shares(indicators, weights, units, clustered, confidence_level) -> list:
+    """Weighted shares of boolean ``indicators`` (each over the same rows) with Wilson intervals on
+    effective counts; each :class:`Estimate` records ``n_effective``."""
+    out = []
+    key = np.zeros(len(weights), dtype=np.int64)
+    for y in indicators:
+        eff = effective_counts(key, 1, y, weights, units, clustered=clustered)
+        W, n_eff = float(eff.weight[0]), float(eff.n_eff[0])
+        if W <= 0 or n_eff <= 0:
+            out.append(Estimate(math.nan, math.nan, math.nan, "wilson", 0.0))
+            continue
+        lo, hi = wilson_interval(eff.x_eff[0], n_eff, confidence_level=confidence_level)
+        out.append(Estimate(float(eff.events[0]) / W, float(lo), float(hi), "wilson", n_eff))
+    return out
+
+
+def weighted_mean(y, weights, units, clustered, confidence_level, *, bound=1.0) -> Estimate:
+    """The weighted mean of ``y`` with ``mean ± t · sqrt(v)``, ``v`` its linearisation variance
+    (units as the independent draws; ``t`` on units - 1 degrees of freedom), within
+    ``[-bound, bound]``; method ``"t-design"``."""
+    y = np.asarray(y, dtype=float)
+    key = np.zeros(len(y), dtype=np.int64)
+    eff = effective_counts(key, 1, y, weights, units, clustered=clustered)
+    W = float(eff.weight[0])
+    if W <= 0:
+        return Estimate(math.nan, math.nan, math.nan, "t-design", 0.0)
+    mean = float(eff.events[0]) / W
+    spread = float(np.sum(weights * (y - mean) ** 2) / W)
+    n_eff = float(eff.n_eff[0])
+    m = float(eff.clusters[0]) if clustered else float(np.count_nonzero(weights > 0))
+    if m < 2 or n_eff <= 0:
+        return Estimate(mean, math.nan, math.nan, "t-design", n_eff)
+    half = float(_sps.t.ppf(0.5 + confidence_level / 2, m - 1)) * math.sqrt(spread / n_eff)
+    return Estimate(mean, max(mean - half, -bound), min(mean + half, bound), "t-design", n_eff)
