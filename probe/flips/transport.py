@@ -39,6 +39,7 @@ from .findings import (SCREEN_CAUTION, FlipFindings, pair_sentence, placebo_sent
                        spread_interval)
 from .transport_boot import transport_variances
 from .transport_maps import level_order, move_proxy, prepare_proxy
+from .weighting import spread_n_effective
 
 __all__ = ["transport_flips", "MIN_PROXY_AUC"]
 
@@ -149,7 +150,8 @@ def _with_placebo(ctx, row, proxies, prepared, orders, idx, tgt, dst, new, gen):
                   excess=spread_interval(rate - pl_rate, se, np.inf, cl, "bootstrap-normal"),
                   excess_se=se, excess_df=np.inf)
     if src_w is not None:
-        row = replace(row, excess=replace(row.excess, n_effective=rates[0].n_effective))
+        n_eff = spread_n_effective(flips.astype(float) - placebo, src_w, se, n)
+        row = replace(row, excess=replace(row.excess, n_effective=n_eff))
     return replace(row, sentence=_sentence(ctx, row) + " " + placebo_sentence(row, cl))
 
 

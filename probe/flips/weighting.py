@@ -24,7 +24,8 @@ from ..design import Design, Membership, effective_counts
 from ..errors import DataError, PlanError
 from ..stats import Estimate, wilson_interval
 
-__all__ = ["FlipDesign", "design_of", "flip_design", "weighted_mean", "weighted_shares"]
+__all__ = ["FlipDesign", "design_of", "flip_design", "spread_n_effective", "weighted_mean",
+           "weighted_shares"]
 
 
 @dataclass(frozen=True)
@@ -139,3 +140,15 @@ def weighted_mean(y, weights, units, clustered, confidence_level, *, bound=1.0) 
         return Estimate(mean, math.nan, math.nan, "t-design", n_eff)
     half = float(_sps.t.ppf(0.5 + confidence_level / 2, m - 1)) * math.sqrt(spread / n_eff)
     return Estimate(mean, max(mean - half, -bound), min(mean + half, bound), "t-design", n_eff)
+
+
+def spread_n_effective(d, weights, se, cap) -> float:
+    """The effective count of a mean of ``d`` whose standard error ``se`` came from a resampling
+    scheme: ``s^2 / se^2`` with ``s^2`` the weighted variance of ``d``, at most ``cap`` (NaN when
+    the standard error is NaN; ``cap`` when it is 0)."""
+    d = np.asarray(d, dtype=float)
+    mean = np.average(d, weights=weights)
+    spread = float(np.average((d - mean) ** 2, weights=weights))
+    if not np.isfinite(se):
+        return math.nan
+    return float(cap) if se <= 0 else float(min(cap, spread / se ** 2))
