@@ -19,7 +19,8 @@ from ..options import ModelOptions, check_option, coerce_option
 from ..stats import Estimate, mean_interval, wilson_interval
 from .breakdown import slice_breakdown
 from .findings import FlipRow, impossible_sentence, pair_sentence
-from .weighting import FlipDesign, design_of, flip_design, weighted_mean, weighted_shares
+from ..design import design_of
+from .weighting import FlipDesign, flip_design, weighted_mean, weighted_shares
 
 __all__ = ["FlipContext", "flip_context", "refuse_fixed_scores", "score", "set_column"]
 

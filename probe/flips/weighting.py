@@ -21,10 +21,9 @@ import numpy as np
 from scipy import stats as _sps
 
 from ..design import Design, Membership, effective_counts
-from ..errors import DataError, PlanError
 from ..stats import Estimate, wilson_interval
 
-__all__ = ["FlipDesign", "design_of", "flip_design", "spread_n_effective", "weighted_mean",
+__all__ = ["FlipDesign", "flip_design", "spread_n_effective", "weighted_mean",
            "weighted_shares"]
 
 
@@ -61,30 +60,6 @@ class FlipDesign:
 
     def unit_of(self, rows):
         return None if self.units is None else self.units[rows]
-
-
-def design_of(n_rows: int, sample_weight=None, design: Design | None = None) -> Design:
-    """The design of ``n_rows`` rows from the API's ``sample_weight=`` or ``design=`` (brief: not
-    both), checked for length and values."""
-    if sample_weight is not None and design is not None:
-        raise PlanError("give `sample_weight` or `design`, not both (put the weights in the Design)")
-    if design is not None and not isinstance(design, Design):
-        raise PlanError(f"`design` must be a probe.design.Design, got {type(design).__name__}")
-    if sample_weight is not None:
-        w = np.asarray(sample_weight, dtype=np.float64)
-        if w.shape != (n_rows,):
-            raise DataError(f"`sample_weight` must hold one weight per row ({n_rows}), got shape "
-                            f"{w.shape}")
-        if not np.all(np.isfinite(w)) or np.any(w < 0) or not np.any(w > 0):
-            raise DataError("`sample_weight` must be finite, 0 or more, and not all zero")
-        design = Design(weights=w)
-    design = design or Design()
-    sizes = [len(a) for a in (design.weights, design.cluster) if a is not None]
-    sizes += [len(m.probs) for m in design.membership.values()]
-    if any(s != n_rows for s in sizes):
-        raise DataError(f"the design must describe the {n_rows} rows of the data, got arrays "
-                        f"of {sorted(set(sizes))} rows")
-    return design
 
 
 def flip_design(design: Design, group_rows: dict, membership: Membership | None) -> FlipDesign:
