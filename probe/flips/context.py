@@ -73,7 +73,8 @@ class FlipContext:
         """The encoded columns the by-slice breakdown reads (all but the attribute)."""
         enc = self.given_encoding
         if enc is None:  # built at most once per flip test, and only when a row has flips
-            enc = encode_columns(self.X, exclude=[self.attribute])
+            enc = encode_columns(self.X, exclude=[self.attribute] if self.attribute in
+                                 self.X.columns else [])
         return tuple(c for c in enc.columns if c.name != self.attribute)
 
     def rows_of(self, level) -> int:
