@@ -27,6 +27,11 @@ level only when the counts push it across its level's cut. Copies of a row drawn
 share its first copy's new level (their indicators are taken as equal), which can only widen the
 interval.
 
+Under a non-plain sampling design (:mod:`probe.flips.weighting`) a replicate draws the pair's
+units (clusters, or rows) with replacement once for both groups, and each row counts as its unit's
+draws times its weight (scaled so the source counts sum to ``n``, the target's to ``nt``): the
+exact part is then the replicate's weighted rate and the rest is unchanged.
+
 References
 ----------
 Efron, B. & Tibshirani, R. (1993). An Introduction to the Bootstrap, ch. 6 (the bootstrap

@@ -102,8 +102,11 @@ def twin_flips(ctx: FlipContext, *, k, pair_seeds) -> FlipFindings:
         m = min(n_dst, n_src - 1)
         pgen = np.random.default_rng(seed)
         if m < k:
-            raw_nb = kneighbors(Zt, Zs, k)
-            raw = twin_outcomes(fav[idx], fav, base, tgt[raw_nb])
+            pd_ = _PairDesign.of(ctx, src, dst)
+            vote = None if pd_ is None else pd_.vote_dst
+            raw_nb = (kneighbors(Zt, Zs, k) if vote is None
+                      else cross_excluding(Zt, Zs, k, idx, tgt))
+            raw = twin_outcomes(fav[idx], fav, base, tgt[raw_nb], vote)
             row = outcome_row(ctx, "twins", src, dst, idx, raw[0], raw[1], raw[2] - base[idx], ())
             notes.append(f"twins {src!r} -> {dst!r}: no own-group control, the {src!r} group has "
                          f"{n_src} rows (k={k} twins need at least {k + 1})")
