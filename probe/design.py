@@ -329,7 +329,8 @@ def design_of(n_rows: int, sample_weight=None, design: Design | None = None) -> 
     """The design of ``n_rows`` rows from an analysis' ``sample_weight=`` or ``design=`` (not
     both; ``sample_weight`` alone is ``Design(weights=...)``), checked for length and values."""
     if sample_weight is not None and design is not None:
-        raise PlanError("give `sample_weight` or `design`, not both (put the weights in the Design)")
+        raise PlanError("give `sample_weight` or `design`, not both (put the weights in the "
+                        "Design)")
     if design is not None and not isinstance(design, Design):
         raise PlanError(f"`design` must be a probe.design.Design, got {type(design).__name__}")
     if sample_weight is not None:

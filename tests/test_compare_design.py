@@ -57,7 +57,8 @@ def test_weighted_difference_against_brute_force_and_statsmodels():
     low, high = tango_interval(n_eff * W_b / w.sum(), n_eff * W_c / w.sum(), n_eff)
     assert (m.difference.low, m.difference.high) == pytest.approx((float(low), float(high)))
     assert m.test == "mcnemar-score-effective" and m.weight == pytest.approx(w.sum())
-    assert m.shortfall_at(0.95) == m.shortfall and m.shortfall.n_effective == m.difference.n_effective
+    assert m.shortfall_at(0.95) == m.shortfall
+    assert m.shortfall.n_effective == m.difference.n_effective
     assert result.agreement == pytest.approx(np.average(cand == base, weights=w))
     out = m.to_dict()
     assert out["difference"]["n_effective"] == pytest.approx(n_eff) and "clusters" not in out

@@ -67,6 +67,16 @@ def test_zero_one_membership_equals_the_recorded_column(mode):
                      **kw).to_dict() == recorded
 
 
+def test_a_recorded_column_ignores_other_attributes_membership():
+    X = _data()
+    other = Design(membership={"race": Membership("race", ("a", "b"), ("p_a", "p_b"),
+                                                  np.full((len(X), 2), 0.5))})
+    model = Linear()
+    for mode in ("direct", "twins"):
+        assert (flip_test(model, X, "group", mode=mode, reference="M", design=other).to_dict()
+                == flip_test(model, X, "group", mode=mode, reference="M").to_dict())
+
+
 def test_weighted_flip_rate_equals_brute_force_and_statsmodels():
     X = _data(600, seed=3)
     w = np.random.default_rng(1).gamma(0.7, 2.0, len(X))

@@ -162,9 +162,10 @@ def flip_context(model, X, attribute, *, reference, threshold, favorable, confid
                                                     & (scores <= 1)):
             raise DataError(f"`scores` must be {len(X)} probabilities in [0, 1], one per row "
                             "of `X`")
+    flips_design = flip_design(design, group_rows, attribute, len(X))
     return FlipContext(model, X, attribute, inputs, attribute in inputs and member is None, known,
                        levels, pairs, group_rows, float(threshold), favorable, confidence_level,
-                       notes, scores, encoding, flip_design(design, group_rows, member))
+                       notes, scores, encoding, flips_design)
 
 
 def _groups(X, attribute, member, design, notes):

@@ -1,15 +1,16 @@
 """The flip tests under a sampling design: who is in each group, with what weight, in which unit.
 
-:func:`flip_design` reads ``sample_weight=`` / ``design=`` once (:mod:`probe.design`) into a
-:class:`FlipDesign`: per level of the flipped attribute its rows, their weights (the row weight, times
-the membership probability when the attribute is known only as probabilities: each row then counts
-in each group with weight ``w * pi``, :func:`probe.design.expand_rows`'s rule) and the units the
-variance treats as independent (the clusters, else the rows; a row's copies share its unit).
-:func:`weighted_shares` and :func:`weighted_mean` turn per-person outcomes into estimates: weighted
-rates with Wilson intervals on the design's effective counts (:func:`probe.design.
-effective_counts`), and a weighted mean with a t interval on its linearisation variance, each with
-its ``n_effective``. A plain design (:attr:`probe.design.Design.plain`) takes none of this: the
-modes run their unweighted code, on the rows of weight 1.
+:func:`flip_design` reads the design once (:mod:`probe.design`; :func:`probe.design.design_of`
+resolves ``sample_weight=`` / ``design=``) into a :class:`FlipDesign`: per level of the flipped
+attribute its rows, their weights (the row weight, times the membership probability when the
+attribute is known only as probabilities: each row then counts in each group with weight
+``w * pi``, :func:`probe.design.expand_rows`'s rule) and the units the variance treats as
+independent (the clusters, else the rows; a row's copies share its unit). :func:`weighted_shares`
+and :func:`weighted_mean` turn per-person outcomes into estimates: weighted rates with Wilson
+intervals on the design's effective counts (:func:`probe.design.effective_counts`), and a weighted
+mean with a t interval on its linearisation variance, each with its ``n_effective``. A plain design
+(:attr:`probe.design.Design.plain`) takes none of this: the modes run their unweighted code, on the
+rows of weight 1. The package notes (:mod:`probe.flips`) say what each mode does with a design.
 """
 
 from __future__ import annotations
@@ -62,23 +63,23 @@ class FlipDesign:
         return None if self.units is None else self.units[rows]
 
 
-def flip_design(design: Design, group_rows: dict, membership: Membership | None) -> FlipDesign:
-    """The :class:`FlipDesign` for the groups ``group_rows`` (every row of a level, for a
-    membership attribute every row of positive probability there)."""
-    n = (len(design.weights) if design.weights is not None else
-         len(design.cluster) if design.cluster is not None else
-         len(membership.probs) if membership is not None else 0)
+def flip_design(design: Design, group_rows: dict, attribute: str, n_rows: int) -> FlipDesign:
+    """The :class:`FlipDesign` of ``attribute`` for the groups ``group_rows`` (every row of a
+    level, for a membership attribute every row of positive probability there). Membership
+    probabilities of other attributes play no part: a recorded column is flipped as it is."""
+    membership = design.membership.get(attribute)
+    design = Design(design.weights, design.cluster, {} if membership is None else
+                    {attribute: membership})
     if design.plain:
         return FlipDesign(False, False, None, membership, {})
-    w = design.row_weights(n) if n else None
+    w = design.row_weights(n_rows)
     weights = {}
-    for j, (level, rows) in enumerate(group_rows.items()):
-        wl = np.ones(len(rows)) if w is None else w[rows]
+    for level, rows in group_rows.items():
+        wl = w[rows]
         if membership is not None and level in membership.levels:
             wl = wl * membership.probs[rows, membership.levels.index(level)]
         weights[level] = wl
-    units = design.units(n) if n else None
-    return FlipDesign(True, design.cluster is not None, units, membership, weights)
+    return FlipDesign(True, design.cluster is not None, design.units(n_rows), membership, weights)
 
 
 def weighted_shares(indicators, weights, units, clustered, confidence_level) -> list:
