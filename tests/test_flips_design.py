@@ -97,6 +97,40 @@ def test_weighted_flip_rate_equals_brute_force_and_statsmodels():
     assert row.judged_at(0.95) == row.flip_rate
 
 
+def _satisfies(frame, pred):
+    """A level or a numeric bin, evaluated by its stated meaning (not by the encoder)."""
+    col = frame[pred["column"]]
+    if pred["op"] == "==":
+        return (col == pred["value"]).to_numpy()
+    lo, hi = pred["value"]
+    v = col.to_numpy(dtype=float)
+    return (v >= (-np.inf if lo is None else lo)) & (v < (np.inf if hi is None else hi))
+
+
+def test_weighted_breakdown_equals_brute_force_weighted_rates():
+    X = _data(2000, seed=6).assign(band=lambda f: np.where(f.z > 0, "hi", "lo"))
+    w = np.random.default_rng(3).gamma(0.7, 2.0, len(X))
+    model = Linear()
+    (row,) = flip_test(model, X, "group", mode="direct", reference="M", sample_weight=w).rows
+    pos, flip = _brute_direct(model, X, "F", "M")
+    source = np.zeros(len(X), dtype=bool)
+    source[pos] = True
+    allflip = np.zeros(len(X), dtype=bool)
+    allflip[pos] = flip
+    assert row.by_slice
+    rates = []
+    for s in row.by_slice:
+        inside = source.copy()
+        for p in s.predicates:
+            inside &= _satisfies(X, p)
+        assert s.rows == inside.sum()
+        brute = np.sum(w[inside] * allflip[inside]) / np.sum(w[inside])
+        assert s.flip_rate.value == pytest.approx(brute, rel=1e-12)
+        assert 0 < s.flip_rate.n_effective <= s.rows
+        rates.append(s.flip_rate.value)
+    assert rates == sorted(rates, reverse=True)  # ranked by the weighted rate
+
+
 def test_integer_weights_equal_duplicated_rows_for_point_estimates():
     X = _data(300, seed=4)
     w = np.random.default_rng(2).integers(1, 4, len(X))
