@@ -35,6 +35,19 @@ def test_unit_weights_change_nothing():
                           design=Design(weights=np.ones(len(X)))).to_dict() == plain
 
 
+def test_zero_one_weights_leave_rows_out():
+    X, y, cand, base = _pair(seed=6)
+    keep = np.random.default_rng(2).uniform(size=len(X)) < 0.7
+    zero_one = compare_models(X, y, cand, base, rng=0, sample_weight=keep.astype(float))
+    subset = compare_models(X[keep], y[keep], cand[keep], base[keep], rng=0)
+    assert [m.to_dict() for m in zero_one.metrics] == [m.to_dict() for m in subset.metrics]
+    assert zero_one.agreement == pytest.approx(subset.agreement, rel=1e-12)
+    # selection only (no labels) takes the design too
+    sel = compare_models(X, None, cand, base, metric="selection", rng=0, sample_weight=keep * 2.0)
+    assert sel.overall.difference.value == pytest.approx(np.mean(cand[keep].astype(float)
+                                                                 - base[keep]), rel=1e-12)
+
+
 def test_weighted_difference_against_brute_force_and_statsmodels():
     X, y, cand, base = _pair(seed=3)
     w = np.random.default_rng(5).gamma(0.8, 1.5, len(X))
