@@ -6,15 +6,34 @@ difference (candidate minus baseline) Tango's score interval for paired proporti
 never of zero width, even when they agree on every row. The p-value is the exact McNemar test on the
 discordant cells. Then the slice search runs on the per-row paired
 difference, oriented so that larger is worse for the candidate (``worse_slices``).
+
+**Under a sampling design** (``sample_weight=`` or ``design=``, :mod:`probe.design`; not a plain
+one) every rate is the weighted rate with Wilson's interval on its effective counts. The
+difference is the weighted mean of the per-row paired difference ``d`` in {-1, 0, 1},
+``(W_b - W_c) / W`` (``W_b`` the weight of the rows where only the candidate has the outcome).
+Its interval is Tango's, unchanged, on *effective* counts: ``n_eff = s² / v`` with ``s²`` the
+weighted variance of ``d`` and ``v`` the design-based (linearisation) variance of its mean,
+clusters or rows as the units (:func:`probe.design.effective_counts`; Kish's size when ``d`` is
+constant), and ``b_eff = n_eff · W_b / W``, ``c_eff = n_eff · W_c / W``. Tango's variance at the
+estimate is then ``s² / n_eff = v``, the design's, while the interval keeps what made Tango the
+choice: it holds its level when the models rarely disagree and never has zero width, where a Wald
+interval ``D ± z·sqrt(v)`` collapses to a point when no row is discordant. The exact McNemar test
+is not exact under weights; its score form on the effective counts,
+``z = (b_eff - c_eff) / sqrt(b_eff + c_eff)`` (``"mcnemar-score-effective"``), is reported
+instead. Every estimate records ``n_effective`` (the difference: that of ``d``), and each metric
+its weighted total (``weight``) and, with clusters, their number (``clusters``). The worse-slice
+search is not weighted here.
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
+from scipy import special
 
+from .design import Design, design_of, effective_counts
 from .errors import DataError, PlanError
 from .metrics import METRIC_NAMES, get_metric, metric_outcome
 from .options import SliceOptions
@@ -44,6 +63,12 @@ class MetricComparison:
     rows : int
         Rows in the metric's base (all rows; label-negatives for the FPR; label-positives for the
         FNR).
+    test : str
+        ``"mcnemar-exact"``, or ``"mcnemar-score-effective"`` under a sampling design.
+    weight : float or None
+        Under a non-plain design, the base's weighted total; else None.
+    clusters : int or None
+        With clusters, the clusters holding the base's rows; else None.
     """
 
     metric: str
@@ -53,6 +78,10 @@ class MetricComparison:
     p_value: float
     discordant: tuple[int, int]
     rows: int
+    test: str = "mcnemar-exact"
+    weight: float | None = None
+    clusters: int | None = None
+    _effective: tuple | None = field(default=None, repr=False, compare=False)
 
     @property
     def shortfall(self) -> Estimate:
@@ -69,21 +98,27 @@ class MetricComparison:
         At the comparison's own level it is exactly :attr:`shortfall`.
         """
         b, c = self.discordant
-        return self._oriented(paired_difference(b, c, self.rows,
-                                                confidence_level=confidence_level))
+        n = self.rows
+        if self._effective is not None:  # a sampling design: Tango on the effective counts
+            b, c, n = self._effective
+        d = paired_difference(b, c, n, confidence_level=confidence_level)
+        return self._oriented(Estimate(self.difference.value, d.low, d.high, d.method,
+                                       self.difference.n_effective))
 
     def _oriented(self, d: Estimate) -> Estimate:
         if get_metric(self.metric).sign > 0:
             return d
-        return Estimate(-d.value, -d.high, -d.low, d.method)
+        return Estimate(-d.value, -d.high, -d.low, d.method, d.n_effective)
 
     def to_dict(self) -> dict:
         return {"metric": self.metric, "rows": self.rows, "candidate": self.candidate.to_dict(),
                 "baseline": self.baseline.to_dict(), "difference": self.difference.to_dict(),
                 "shortfall": self.shortfall.to_dict(),
-                "p_value": json_number(self.p_value), "test": "mcnemar-exact",
+                "p_value": json_number(self.p_value), "test": self.test,
                 "discordant": list(self.discordant),
-                "worse_if": get_metric(self.metric).worse}
+                "worse_if": get_metric(self.metric).worse,
+                **({} if self.weight is None else {"weight": json_number(self.weight)}),
+                **({} if self.clusters is None else {"clusters": self.clusters})}
 
 
 @dataclass(frozen=True)
@@ -186,6 +221,8 @@ def compare_models(
     confidence_level: float = 0.95,
     rng=0,
     encoding=None,
+    sample_weight=None,
+    design: Design | None = None,
 ) -> Comparison:
     """Compare a candidate's decisions with a baseline's on the same labelled rows.
 
@@ -208,6 +245,12 @@ def compare_models(
         Seeds the worse-slice search (its split).
     encoding : Encoding, optional
         The slice columns already encoded (the run's evidence); default: encode ``X``.
+    sample_weight : array_like, optional
+        Row weights (non-negative, not all zero); the same as ``design=Design(weights=...)``.
+    design : probe.design.Design, optional
+        Row weights and clusters (not with ``sample_weight``): weighted rates and differences with
+        design-based intervals (the module notes). A plain design changes nothing; rows of weight
+        0 are then left out.
 
     Returns
     -------
@@ -229,10 +272,20 @@ def compare_models(
             f"candidate and baseline must be scored on the same rows: got "
             f"{len(outcomes[metric][0])} and {len(outcomes[metric][1])} decisions for {len(X)} rows"
         )
+    design = design_of(len(X), sample_weight, design)
+    if design.membership:
+        raise PlanError("the comparison takes row weights and clusters; membership "
+                        "probabilities have no use in it (leave them out of its `design`)")
+    live = None if design.weights is None else design.weights > 0
+    if live is not None:  # rows of weight 0 are in no base
+        outcomes = {k: (c, b, m & live) for k, (c, b, m) in outcomes.items()}
     results = []
     for name, (c_out, b_out, mask) in outcomes.items():
         c_in, b_in = c_out[mask].astype(bool), b_out[mask].astype(bool)
         b, c, m = int(np.sum(c_in & ~b_in)), int(np.sum(~c_in & b_in)), int(mask.sum())
+        if not design.plain:
+            results.append(_weighted(name, c_in, b_in, mask, design, (b, c), confidence_level))
+            continue
         results.append(MetricComparison(
             name,
             wilson(int(c_in.sum()), m, confidence_level=confidence_level),
@@ -246,5 +299,41 @@ def compare_models(
         X, worse, base=mask, options=options, confidence_level=confidence_level, rng=rng,
         label=f"paired {metric} difference (candidate worse > 0)", encoding=encoding,
     )
-    agreement = float(np.mean(outcomes["selection"][0] == outcomes["selection"][1]))
+    same = outcomes["selection"][0] == outcomes["selection"][1]
+    agreement = float(np.mean(same) if live is None else np.average(same, weights=design.weights))
     return Comparison(metric, tuple(results), found, agreement, confidence_level)
+
+
+def _weighted(name, c_in, b_in, mask, design, discordant, confidence_level) -> MetricComparison:
+    """One metric under a non-plain design (the module notes give the method)."""
+    w = design.row_weights(len(mask))[mask]
+    units = design.units(len(mask))[mask]
+    clustered = design.cluster is not None
+    key = np.zeros(len(w), dtype=np.int64)
+
+    def effective(y):
+        e = effective_counts(key, 1, y, w, units, clustered=clustered)
+        return float(e.weight[0]), float(e.events[0]), float(e.n_eff[0]), e.clusters
+
+    if not (w > 0).any():  # no row of positive weight in the base
+        nan = Estimate(np.nan, np.nan, np.nan, "wilson", 0.0)
+        return MetricComparison(name, nan, nan, Estimate(np.nan, np.nan, np.nan, "tango-score",
+                                                         0.0), np.nan, discordant, 0,
+                                "mcnemar-score-effective", 0.0, None, (0.0, 0.0, 0.0))
+    rates = []
+    for y in (c_in, b_in):
+        W, X_, n_eff, _ = effective(y)
+        est = wilson(X_ / W * n_eff, n_eff, confidence_level=confidence_level)
+        rates.append(Estimate(X_ / W, est.low, est.high, est.method, n_eff))
+    d = c_in.astype(float) - b_in
+    W, _, n_eff, clusters = effective(d)
+    W_b, W_c = float(w @ (c_in & ~b_in)), float(w @ (~c_in & b_in))
+    b_eff, c_eff = n_eff * W_b / W, n_eff * W_c / W
+    diff = paired_difference(b_eff, c_eff, n_eff, confidence_level=confidence_level)
+    diff = Estimate((W_b - W_c) / W, diff.low, diff.high, diff.method, n_eff)
+    p = 1.0 if b_eff + c_eff <= 0 else float(
+        2 * special.ndtr(-abs(b_eff - c_eff) / np.sqrt(b_eff + c_eff)))
+    return MetricComparison(name, rates[0], rates[1], diff, p, discordant, int(mask.sum()),
+                            "mcnemar-score-effective", W,
+                            None if clusters is None else int(clusters[0]),
+                            (b_eff, c_eff, n_eff))

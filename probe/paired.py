@@ -47,7 +47,7 @@ def _tango_score(delta: float, b: float, c: float, n: float) -> float:
     return num / math.sqrt(var)
 
 
-def _tango_one(b: int, c: int, n: int, z: float) -> tuple[float, float]:
+def _tango_one(b: float, c: float, n: float, z: float) -> tuple[float, float]:
     if n == 0:
         return math.nan, math.nan
     d = (b - c) / n
@@ -68,9 +68,10 @@ def tango_interval(b, c, n, *, confidence_level: float = 0.95):
 
     Parameters
     ----------
-    b, c : array_like of int
-        Discordant counts: rows with only the first outcome, rows with only the second.
-    n : array_like of int
+    b, c : array_like of float
+        Discordant counts: rows with only the first outcome, rows with only the second (whole
+        numbers, or effective counts under a sampling design: :mod:`probe.compare`).
+    n : array_like of float
         All rows (``b + c <= n``).
     confidence_level : float, default=0.95
 
@@ -93,12 +94,12 @@ def tango_interval(b, c, n, *, confidence_level: float = 0.95):
     (-0.124, -0.0054)
     """
     z = z_value(confidence_level)
-    b, c, n = np.broadcast_arrays(*(np.asarray(v, dtype=np.int64) for v in (b, c, n)))
-    if np.any(b < 0) or np.any(c < 0) or np.any(b + c > n):
+    b, c, n = np.broadcast_arrays(*(np.asarray(v, dtype=np.float64) for v in (b, c, n)))
+    if np.any(b < 0) or np.any(c < 0) or np.any(b + c > n * (1 + 1e-12)):
         raise ValueError("counts must satisfy 0 <= b, c and b + c <= n")
     low, high = np.empty(b.shape), np.empty(b.shape)
     for i in np.ndindex(b.shape):
-        low[i], high[i] = _tango_one(int(b[i]), int(c[i]), int(n[i]), z)
+        low[i], high[i] = _tango_one(float(b[i]), float(c[i]), float(n[i]), z)
     return low, high
 
 
@@ -147,8 +148,9 @@ def newcombe_paired_interval(a, b, c, d, *, confidence_level: float = 0.95):
     return low, high
 
 
-def paired_difference(b: int, c: int, n: int, *, confidence_level: float = 0.95) -> Estimate:
-    """The paired difference ``(b - c) / n`` with Tango's score interval (method ``"tango-score"``)."""
+def paired_difference(b: float, c: float, n: float, *, confidence_level: float = 0.95) -> Estimate:
+    """The paired difference ``(b - c) / n`` with Tango's score interval (method ``"tango-score"``);
+    effective counts (floats) are taken as they are."""
     low, high = tango_interval(b, c, n, confidence_level=confidence_level)
     value = (b - c) / n if n else math.nan
     return Estimate(value, float(low), float(high), "tango-score")

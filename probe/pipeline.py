@@ -209,7 +209,7 @@ def _run(plan: Plan, command, clock: _Clock, progress) -> dict:
                 ev.frame, ev.y_true, ev.decision(), ev.decision("baseline"),
                 metric=plan.compare.metric, favorable=ev.favorable, options=search,
                 confidence_level=cl, rng=seed,
-                encoding=ev.encoding)
+                encoding=ev.encoding, design=ev.design)
             found.baseline = ev.model("baseline").describe()
     with clock.step("verdict"):
         measured = measure(groups=found.groups, slices=found.slices, flips=found.flips,
@@ -275,7 +275,8 @@ def _flips(plan: Plan, ev: Evidence, rankings: dict, progress) -> list:
                                  options=f, mode=mode,
                                  threshold=ev.threshold, favorable=ev.favorable,
                                  confidence_level=plan.confidence_level, rng=plan.seed,
-                                 scores=ev.scores(), encoding=ev.encoding, proxy_ranking=ranking))
+                                 scores=ev.scores(), encoding=ev.encoding, proxy_ranking=ranking,
+                                 design=ev.design))
     if tick:
         tick(len(jobs), len(jobs))
     return out

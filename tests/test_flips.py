@@ -501,7 +501,7 @@ def test_twins_excess_finds_a_planted_direct_dependence():
 
 
 def test_own_group_twins_exclude_self_even_among_exact_duplicates():
-    from probe.flips.twins import _own_twins
+    from probe.flips.twins_search import own_twins as _own_twins
 
     g = np.random.default_rng(3)
     Z = g.normal(size=(60, 2))
@@ -524,7 +524,7 @@ def test_own_group_twins_exclude_self_even_among_exact_duplicates():
 
 
 def test_matched_cross_twins_equal_a_direct_search_of_the_subsample():
-    from probe.flips.twins import _cross_twins
+    from probe.flips.twins_search import cross_twins as _cross_twins
 
     g = np.random.default_rng(4)
     Zt, Zs = g.normal(size=(500, 3)), g.normal(size=(200, 3))

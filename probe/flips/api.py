@@ -24,7 +24,7 @@ _MODES = next(f for f in fields(FlipOptions) if f.name == "modes")
 def flip_test(model, X: pd.DataFrame, attribute: str, *, options: FlipOptions | None = None,
               mode: str | None = None, threshold: float = 0.5, favorable=True,
               confidence_level: float = 0.95, rng=0, scores=None, encoding=None,
-              proxy_ranking=None, **kwargs) -> FlipFindings:
+              proxy_ranking=None, sample_weight=None, design=None, **kwargs) -> FlipFindings:
     """Counterfactual flip test of ``model`` on ``X`` for one protected ``attribute`` in one mode.
 
     Each mode is reported per ``(from, to)`` pair of the attribute's observed levels (or only into
@@ -79,7 +79,14 @@ def flip_test(model, X: pd.DataFrame, attribute: str, *, options: FlipOptions | 
     proxy_ranking : ProxyFindings, optional
         Transport: the attribute's proxy ranking (the one the report's proxies table shows); the
         proxies moved are its top ``n_proxies`` model inputs. Default: :func:`probe.proxies.
-        find_proxies` over the model inputs with its defaults, seeded by ``rng``.
+        find_proxies` over the model inputs with its defaults, seeded by ``rng`` (for an
+        attribute known as membership probabilities: against each row's most probable group).
+    sample_weight : array_like, optional
+        Row weights (non-negative, not all zero); the same as ``design=Design(weights=...)``.
+    design : probe.design.Design, optional
+        Row weights, clusters and attributes known as membership probabilities (not with
+        ``sample_weight``). ``attribute`` may then be one of ``design.membership`` rather than a
+        column of ``X``. See :mod:`probe.flips.weighting` and the package notes.
 
     Returns
     -------
@@ -112,7 +119,7 @@ def flip_test(model, X: pd.DataFrame, attribute: str, *, options: FlipOptions | 
                         f"({', '.join(opts.modes)})")
     ctx = flip_context(model, X, attribute, reference=opts.reference, threshold=threshold,
                        favorable=favorable, confidence_level=confidence_level, scores=scores,
-                       encoding=encoding)
+                       encoding=encoding, sample_weight=sample_weight, design=design)
     pair_seeds = [int(s) for s in gen.integers(0, 2**31 - 1, size=len(ctx.pairs))]
     if mode == "direct":
         return direct_flips(ctx)

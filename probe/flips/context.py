@@ -19,6 +19,8 @@ from ..options import ModelOptions, check_option, coerce_option
 from ..stats import Estimate, mean_interval, wilson_interval
 from .breakdown import slice_breakdown
 from .findings import FlipRow, impossible_sentence, pair_sentence
+from ..design import design_of
+from .weighting import FlipDesign, flip_design, weighted_mean, weighted_shares
 
 __all__ = ["FlipContext", "flip_context", "refuse_fixed_scores", "score", "set_column"]
 
@@ -48,6 +50,7 @@ class FlipContext:
     notes: list
     given_scores: np.ndarray | None
     given_encoding: Encoding | None
+    design: FlipDesign | None = None
 
     def unknown(self, level) -> bool:
         """The model never saw ``level`` as a value of the attribute."""
@@ -70,8 +73,32 @@ class FlipContext:
         """The encoded columns the by-slice breakdown reads (all but the attribute)."""
         enc = self.given_encoding
         if enc is None:  # built at most once per flip test, and only when a row has flips
-            enc = encode_columns(self.X, exclude=[self.attribute])
+            enc = encode_columns(self.X, exclude=[self.attribute] if self.attribute in
+                                 self.X.columns else [])
         return tuple(c for c in enc.columns if c.name != self.attribute)
+
+    def rows_of(self, level) -> int:
+        """The rows of a group: its rows, or the sum of their membership probabilities."""
+        d, rows = self.design, self.group_rows[level]
+        if d.membership is None or level not in d.membership.levels:
+            return len(rows)
+        j = d.membership.levels.index(level)
+        return int(round(float(d.membership.probs[rows, j].sum())))
+
+    def extent(self, level) -> dict:
+        """A row's ``weight`` and ``clusters`` under a non-plain design (nothing when plain)."""
+        d = self.design
+        if not d.weighted:
+            return {}
+        rows = self.group_rows[level]
+        return {"weight": float(d.of(level).sum()),
+                "clusters": int(len(np.unique(d.units[rows]))) if d.clustered else None}
+
+    def weighting(self, level):
+        """``(weights, units, clustered)`` of a group's rows for the breakdown; None when plain."""
+        d = self.design
+        return None if not d.weighted else (d.of(level), d.unit_of(self.group_rows[level]),
+                                            d.clustered)
 
     def decisions(self, s) -> np.ndarray:
         """Boolean: the favourable decision at these scores."""
@@ -79,14 +106,22 @@ class FlipContext:
 
 
 def flip_context(model, X, attribute, *, reference, threshold, favorable, confidence_level,
-                 scores, encoding) -> FlipContext:
-    """Check every input of a flip test once and build its :class:`FlipContext`."""
+                 scores, encoding, sample_weight=None, design=None) -> FlipContext:
+    """Check every input of a flip test once and build its :class:`FlipContext`.
+
+    A plain design keeps the rows of weight 1 (a row of weight 0 is in no group); otherwise every
+    row of positive weight is in its group with its weight (:mod:`.weighting`)."""
     if not callable(getattr(model, "scores", None)):
         raise ModelError(f"the model ({type(model).__name__}) has no `scores(frame)` method")
     refuse_fixed_scores(model)
     if not isinstance(X, pd.DataFrame):
         raise DataError(f"`X` must be a pandas DataFrame, got {type(X).__name__}")
-    if attribute not in X.columns:
+    design = design_of(len(X), sample_weight, design)
+    member = design.membership.get(attribute)
+    if member is not None and attribute in X.columns:
+        raise DataError(f"protected attribute `{attribute}` is both a column of the data and "
+                        "known as membership probabilities; name the two differently")
+    if attribute not in X.columns and member is None:
         raise DataError(f"protected attribute `{attribute}` is not a column of the data")
     threshold = coerce_option(_THRESHOLD, threshold, "threshold")
     check_option(_THRESHOLD, threshold, "threshold")
@@ -101,18 +136,10 @@ def flip_context(model, X, attribute, *, reference, threshold, favorable, confid
     cats = getattr(model, "categories", None) or {}
     known = tuple(cats[attribute]) if cats.get(attribute) is not None else None
     notes = []
-    col = X[attribute]
-    missing = col.isna().to_numpy()
-    if missing.any():
-        notes.append(f"{int(missing.sum())} rows with missing `{attribute}` were left out")
-    levels = attribute_levels(col, attribute)
+    levels, group_rows = _groups(X, attribute, member, design, notes)
     if len(levels) < 2 and reference is None:
         raise DataError(f"protected attribute `{attribute}` needs at least two observed levels, "
                         f"got {list(levels)}")
-    codes = pd.Categorical(col, categories=list(levels)).codes
-    order = np.argsort(codes, kind="stable")
-    bounds = np.searchsorted(codes[order], np.arange(len(levels) + 1))
-    group_rows = {lv: order[bounds[i]:bounds[i + 1]] for i, lv in enumerate(levels)}
     if reference is not None:
         if reference not in levels and (known is None or reference not in known):
             raise PlanError(f"`reference` {reference!r} is not an observed level of `{attribute}` "
@@ -135,9 +162,32 @@ def flip_context(model, X, attribute, *, reference, threshold, favorable, confid
                                                     & (scores <= 1)):
             raise DataError(f"`scores` must be {len(X)} probabilities in [0, 1], one per row "
                             "of `X`")
-    return FlipContext(model, X, attribute, inputs, attribute in inputs, known, levels, pairs,
-                       group_rows, float(threshold), favorable, confidence_level, notes, scores,
-                       encoding)
+    flips_design = flip_design(design, group_rows, attribute, len(X))
+    return FlipContext(model, X, attribute, inputs, attribute in inputs and member is None, known,
+                       levels, pairs, group_rows, float(threshold), favorable, confidence_level,
+                       notes, scores, encoding, flips_design)
+
+
+def _groups(X, attribute, member, design, notes):
+    """The levels and each level's row positions: a recorded column's rows (missing left out, a
+    note says so), or every row of positive probability for a membership attribute; rows of
+    weight 0 are in no group."""
+    weights = design.weights
+    live = np.ones(len(X), dtype=bool) if weights is None else weights > 0
+    if member is not None:
+        levels = tuple(member.levels)
+        return levels, {lv: np.flatnonzero(live & (member.probs[:, j] > 0))
+                        for j, lv in enumerate(levels)}
+    col = X[attribute]
+    missing = col.isna().to_numpy()
+    if missing.any():
+        notes.append(f"{int(missing.sum())} rows with missing `{attribute}` were left out")
+    levels = attribute_levels(col[live] if not live.all() else col, attribute)
+    codes = pd.Categorical(col, categories=list(levels)).codes
+    codes = np.where(live, codes, -1)
+    order = np.argsort(codes, kind="stable")
+    bounds = np.searchsorted(codes[order], np.arange(len(levels) + 1))
+    return levels, {lv: order[bounds[i]:bounds[i + 1]] for i, lv in enumerate(levels)}
 
 
 def refuse_fixed_scores(model) -> None:
@@ -200,17 +250,23 @@ def outcome_row(ctx: FlipContext, mode, src, dst, idx, to_fav, to_unfav, change,
     breakdown by slice."""
     n = len(idx)
     flip = to_fav | to_unfav
-    counts = np.array([flip.sum(), to_fav.sum(), to_unfav.sum()], dtype=float)
-    lo, hi = wilson_interval(counts, np.full(3, float(n)), confidence_level=ctx.confidence_level)
-    ests = [Estimate(c / n, float(a), float(b), "wilson") for c, a, b in zip(counts, lo, hi)]
+    cl, d = ctx.confidence_level, ctx.design
+    w = d.of(src)
+    if w is None:
+        counts = np.array([flip.sum(), to_fav.sum(), to_unfav.sum()], dtype=float)
+        lo, hi = wilson_interval(counts, np.full(3, float(n)), confidence_level=cl)
+        ests = [Estimate(c / n, float(a), float(b), "wilson") for c, a, b in zip(counts, lo, hi)]
+        mean = _mean_t(change, cl)
+    else:
+        units = d.unit_of(idx)
+        ests = weighted_shares((flip, to_fav, to_unfav), w, units, d.clustered, cl)
+        mean = weighted_mean(change, w, units, d.clustered, cl)
     largest = float(np.max(np.abs(change))) if n else math.nan
-    slices = (slice_breakdown(ctx.breakdown, idx, flip, ctx.confidence_level)
-              if counts[0] > 0 else ())
-    sentence = pair_sentence(ctx.attribute, mode, src, dst, ests, ctx.confidence_level, moved,
-                             ctx.is_input)
-    return FlipRow(ctx.attribute, mode, src, dst, n, ests[0], ests[1], ests[2],
-                   _mean_t(change, ctx.confidence_level), largest, False, tuple(moved), slices,
-                   sentence)
+    slices = (slice_breakdown(ctx.breakdown, idx, flip, cl, weighting=ctx.weighting(src))
+              if flip.any() else ())
+    sentence = pair_sentence(ctx.attribute, mode, src, dst, ests, cl, moved, ctx.is_input)
+    return FlipRow(ctx.attribute, mode, src, dst, ctx.rows_of(src), ests[0], ests[1], ests[2],
+                   mean, largest, False, tuple(moved), slices, sentence, **ctx.extent(src))
 
 
 def impossible_row(ctx: FlipContext, mode, src, dst, moved=None) -> FlipRow:
@@ -218,10 +274,10 @@ def impossible_row(ctx: FlipContext, mode, src, dst, moved=None) -> FlipRow:
     nan = Estimate(math.nan, math.nan, math.nan, "wilson")
     ctx.notes.append(f"{mode}: `{ctx.attribute}` = {dst!r} is a level the model never saw; "
                      f"flips from {src!r} into it were not scored")
-    return FlipRow(ctx.attribute, mode, src, dst, len(ctx.group_rows[src]), nan, nan, nan,
+    return FlipRow(ctx.attribute, mode, src, dst, ctx.rows_of(src), nan, nan, nan,
                    Estimate(math.nan, math.nan, math.nan, "t"), math.nan, True,
                    tuple(moved or (ctx.attribute,)), (),
-                   impossible_sentence(ctx.attribute, src, dst))
+                   impossible_sentence(ctx.attribute, src, dst), **ctx.extent(src))
 
 
 def _mean_t(change, confidence_level) -> Estimate:

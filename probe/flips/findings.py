@@ -109,6 +109,11 @@ class FlipRow:
         Transport only: the flip rate of mapping the source group onto a random part of itself with
         the same proxies and machinery (the attribute unchanged), interval as ``flip_rate``; None
         when the group is too small to split.
+    weight : float or None
+        Under a non-plain design: the source group's weighted total (row weights, times membership
+        probabilities for an attribute known that way); None for a plain sample.
+    clusters : int or None
+        With clusters: the clusters holding the source group's rows; else None.
     excess_se, excess_df : float
         The standard error of ``excess`` and the degrees of freedom of its quantile (``inf``: the
         normal), so :meth:`judged_at` can give the interval at any level; not in :meth:`to_dict`.
@@ -136,6 +141,8 @@ class FlipRow:
     excess_score_change: Estimate | None = None
     twin_pool: int | None = None
     placebo_rate: Estimate | None = None
+    weight: float | None = None
+    clusters: int | None = None
     excess_se: float = field(default=math.nan, compare=False, repr=False)
     excess_df: float = field(default=math.inf, compare=False, repr=False)
 
@@ -159,6 +166,10 @@ class FlipRow:
         if self.impossible:
             return None
         if self.judged_what == _JUDGED_WHAT["direct"]:
+            n_eff = self.flip_rate.n_effective
+            if n_eff is not None:  # a weighted rate: Wilson on its effective counts
+                e = wilson(self.flip_rate.value * n_eff, n_eff, confidence_level=confidence_level)
+                return Estimate(self.flip_rate.value, e.low, e.high, e.method, n_eff)
             return wilson(round(self.flip_rate.value * self.rows), self.rows,
                           confidence_level=confidence_level)
         if self.excess is None:
@@ -183,6 +194,10 @@ class FlipRow:
             "by_slice": [s.to_dict() for s in self.by_slice],
             "sentence": self.sentence,
         }
+        if self.weight is not None:
+            out["weight"] = json_number(self.weight)
+        if self.clusters is not None:
+            out["clusters"] = self.clusters
         if self.mode == "twins":  # the own-group control; None when it could not be formed
             for name in _TWIN_CONTROL_KEYS:
                 e = getattr(self, name)

@@ -39,6 +39,7 @@ from .findings import (SCREEN_CAUTION, FlipFindings, pair_sentence, placebo_sent
                        spread_interval)
 from .transport_boot import transport_variances
 from .transport_maps import level_order, move_proxy, prepare_proxy
+from .weighting import spread_n_effective
 
 __all__ = ["transport_flips", "MIN_PROXY_AUC"]
 
@@ -60,7 +61,11 @@ def transport_flips(ctx: FlipContext, *, proxies, n_proxies, proxy_ranking, pair
         proxies = _given_proxies(ctx, proxies)
     else:
         if proxy_ranking is None and ctx.features:
-            proxy_ranking = find_proxies(X, attribute, features=ctx.features, multivariate=False,
+            member = ctx.design.membership
+            ranked = X if member is None else X.assign(**{attribute: np.asarray(
+                member.levels, dtype=object)[member.probs.argmax(axis=1)]})
+            proxy_ranking = find_proxies(ranked, attribute, features=ctx.features,
+                                         multivariate=False,
                                          confidence_level=ctx.confidence_level, rng=rng)
         proxies = _ranked_proxies(ctx, proxy_ranking, n_proxies)
     if not proxies and not ctx.is_input:
@@ -84,10 +89,12 @@ def transport_flips(ctx: FlipContext, *, proxies, n_proxies, proxy_ranking, pair
         # each categorical proxy's coupling priority, shared by the placebo and the bootstrap so
         # that their couplings move the same rows where they can
         orders = {}
+        weights = None if not ctx.design.weighted else (ctx.design.of(src),
+                                                        ctx.design.of(dst))
         for p in proxies:
             if prepared[p][0] == "categorical":
                 orders[p] = level_order(prepared[p][1][idx], pgen)
-            cf[p] = move_proxy(X[p], prepared[p], idx, tgt, orders.get(p))
+            cf[p] = move_proxy(X[p], prepared[p], idx, tgt, orders.get(p), weights)
         new = score(ctx.model, cf, f"the {len(idx)} rows of `{attribute}` = {src!r} transported "
                                    f"to {dst!r}")
         row = pair_row(ctx, "transport", src, dst, idx, base[idx], new, moved)
@@ -112,40 +119,65 @@ def _with_placebo(ctx, row, proxies, prepared, orders, idx, tgt, dst, new, gen):
         ctx.notes.append(f"transport {row.from_!r} -> {dst!r}: the {row.from_!r} group is too "
                          "small to split for a placebo")
         return replace(row, sentence=f"{row.sentence} {placebo_sentence(row, ctx.confidence_level)}")
-    part = idx[np.sort(gen.choice(n, h, replace=False))]
+    d = ctx.design
+    src_w, tgt_w = d.of(row.from_), d.of(dst)
+    pos = (np.sort(gen.choice(n, h, replace=False)) if src_w is None
+           else _unit_part(d.unit_of(idx), h, gen))
+    part = idx[pos]
     cf = X.iloc[idx].copy(deep=False)
     for p in proxies:
-        cf[p] = move_proxy(X[p], prepared[p], idx, part, orders.get(p))
+        cf[p] = move_proxy(X[p], prepared[p], idx, part, orders.get(p),
+                           None if src_w is None else (src_w, src_w[pos]))
     old = ctx.decisions(ctx.base_scores[idx])
     flips = ctx.decisions(new) != old
     what = f"the {n} rows of `{ctx.attribute}` = {row.from_!r} mapped onto {h} of themselves"
     placebo = ctx.decisions(score(ctx.model, cf, what)) != old
+    design = None if src_w is None else (src_w, tgt_w, pos, d.unit_of(idx), d.unit_of(tgt))
     var_real, var_pl, var_ex = transport_variances(ctx, proxies, prepared, orders, idx, tgt, h, dst,
-                                                   flips, placebo, gen)
+                                                   flips, placebo, gen, design)
     cl = ctx.confidence_level
-    deff = _design_effect(flips.sum(), n, var_real)
-    rates = [_deff_wilson(e.value * n, n, deff, cl) for e in
+    if src_w is None:
+        rate, pl_rate = float(flips.mean()), float(placebo.mean())
+        events, pl_events = float(flips.sum()), float(placebo.sum())
+    else:
+        rate, pl_rate = (float(src_w @ flips / src_w.sum()), float(src_w @ placebo / src_w.sum()))
+        events, pl_events = rate * n, pl_rate * n
+    rates = [_deff_wilson(e.value, n, events, var_real, cl, src_w is not None) for e in
              (row.flip_rate, row.to_favorable, row.to_unfavorable)]
     se = float(np.sqrt(var_ex))
-    value = float(flips.mean() - placebo.mean())
     row = replace(row, flip_rate=rates[0], to_favorable=rates[1], to_unfavorable=rates[2],
-                  placebo_rate=_deff_wilson(placebo.sum(), n, _design_effect(placebo.sum(), n,
-                                                                             var_pl), cl),
-                  excess=spread_interval(value, se, np.inf, cl, "bootstrap-normal"),
+                  placebo_rate=_deff_wilson(pl_rate, n, pl_events, var_pl, cl, src_w is not None),
+                  excess=spread_interval(rate - pl_rate, se, np.inf, cl, "bootstrap-normal"),
                   excess_se=se, excess_df=np.inf)
+    if src_w is not None:
+        n_eff = spread_n_effective(flips.astype(float) - placebo, src_w, se, n)
+        row = replace(row, excess=replace(row.excess, n_effective=n_eff))
     return replace(row, sentence=_sentence(ctx, row) + " " + placebo_sentence(row, cl))
 
 
-def _design_effect(x, n, var) -> float:
-    """The bootstrap variance over the binomial one (a rate of 0 or 1 taken half a row inside),
-    at least 1."""
-    p = (x + 0.5) / (n + 1.0)
-    return max(1.0, var * n / (p * (1 - p)))
+def _unit_part(units, h, gen) -> np.ndarray:
+    """Positions of a random part of about ``h`` rows made of whole units (clusters, or rows):
+    units in a random order, taken until they hold ``h`` rows."""
+    uniq, code = np.unique(units, return_inverse=True)
+    order = gen.permutation(len(uniq))
+    size = np.bincount(code, minlength=len(uniq))[order]
+    take = order[:int(np.searchsorted(np.cumsum(size), h)) + 1]
+    return np.flatnonzero(np.isin(code, take))
 
 
-def _deff_wilson(x, n, deff, confidence_level) -> Estimate:
-    lo, hi = wilson_interval(round(x) / deff, n / deff, confidence_level=confidence_level)
-    return Estimate(round(x) / n, float(lo), float(hi), "wilson-design-effect")
+def _deff_wilson(value, n, events, var, confidence_level, weighted) -> Estimate:
+    """Wilson's interval for ``value`` on ``n`` rows over the design effect of ``events / n``: the
+    bootstrap variance over the binomial one (a rate of 0 or 1 taken half a row inside), at least
+    1. Weighted, the rate is a weighted one, the bootstrap resampled units with their weights, and
+    ``n / deff`` is the effective count (recorded as ``n_effective``)."""
+    x = value * n
+    p = (events + 0.5) / (n + 1.0)
+    deff = max(1.0, var * n / (p * (1 - p)))
+    if not weighted:
+        lo, hi = wilson_interval(round(x) / deff, n / deff, confidence_level=confidence_level)
+        return Estimate(round(x) / n, float(lo), float(hi), "wilson-design-effect")
+    lo, hi = wilson_interval(x / deff, n / deff, confidence_level=confidence_level)
+    return Estimate(float(value), float(lo), float(hi), "wilson-design-effect", n / deff)
 
 
 def _sentence(ctx, row):

@@ -27,6 +27,11 @@ level only when the counts push it across its level's cut. Copies of a row drawn
 share its first copy's new level (their indicators are taken as equal), which can only widen the
 interval.
 
+Under a non-plain sampling design (:mod:`probe.flips.weighting`) a replicate draws the pair's
+units (clusters, or rows) with replacement once for both groups, and each row counts as its unit's
+draws times its weight (scaled so the source counts sum to ``n``, the target's to ``nt``): the
+exact part is then the replicate's weighted rate and the rest is unchanged.
+
 References
 ----------
 Efron, B. & Tibshirani, R. (1993). An Introduction to the Bootstrap, ch. 6 (the bootstrap
@@ -51,7 +56,7 @@ BOOT_ROWS = 500
 
 
 def transport_variances(ctx: FlipContext, proxies, prepared, orders, idx, tgt, h, dst, flips,
-                        placebo, gen) -> tuple:
+                        placebo, gen, design=None) -> tuple:
     """Bootstrap variances of the flip rate, the placebo's rate and the excess of one pair.
 
     ``orders`` holds each categorical proxy's coupling priority (the estimate's, so that a row's
@@ -59,6 +64,12 @@ def transport_variances(ctx: FlipContext, proxies, prepared, orders, idx, tgt, h
     and ``placebo`` are the per-row flip indicators of the ``n`` source rows ``idx`` under
     the estimated real map (onto ``tgt``) and placebo map (onto ``h`` source rows); ``gen`` draws
     the replicates. Returns ``(var_real, var_placebo, var_excess)``, each at least 0.
+
+    ``design`` (a non-plain design) is ``(source weights, target weights, placebo part positions,
+    source units, target units)``: each replicate then draws the pair's units (clusters, or rows)
+    with replacement, once for both groups (a unit holding rows of both, or a row of uncertain
+    membership in both, is drawn for both), and every row's count is its unit's draw count times
+    its weight (see the module notes).
     """
     n, nt = len(idx), len(tgt)
     m = min(n, BOOT_ROWS)
@@ -66,11 +77,9 @@ def transport_variances(ctx: FlipContext, proxies, prepared, orders, idx, tgt, h
     movers = [_Resampled(ctx.X[p], prepared[p], orders.get(p), idx, tgt) for p in proxies]
     exact = np.empty((BOOT_REPS, 2))
     live, weights, real_cols, pl_cols = [], [], [[] for _ in proxies], [[] for _ in proxies]
+    draws = _unit_draws(design, n, nt, h)
     for b in range(BOOT_REPS):
-        draw = gen.integers(0, n, n)
-        ws = np.bincount(draw, minlength=n)
-        wt = np.bincount(gen.integers(0, nt, nt), minlength=nt)
-        wh = np.bincount(draw[:h], minlength=n)  # the placebo's part: h of the resampled rows
+        ws, wt, wh = draws(gen)
         exact[b] = ws @ flips / n, ws @ placebo / n
         rows = sub[ws[sub] > 0]
         live.append(rows)
@@ -98,6 +107,38 @@ def transport_variances(ctx: FlipContext, proxies, prepared, orders, idx, tgt, h
         var = theta.var(ddof=1) - noise.mean() * (1.0 / m - 1.0 / n)
         out.append(max(float(var), 0.0))
     return tuple(out)
+
+
+def _unit_draws(design, n, nt, h):
+    """A function of ``gen`` giving one replicate's counts of the source rows, the target rows and
+    the placebo's part. Plain: rows drawn with replacement in each group (the placebo's part ``h``
+    of the resampled rows). Under a design: units drawn once for the pair, each row counted as its
+    unit's draws times its weight, the source counts scaled to sum to ``n`` (so ``ws @ x / n`` is
+    the replicate's weighted rate), the target's to ``nt`` and the part's to its rows (the maps'
+    scale, :mod:`.transport_maps`)."""
+    if design is None:
+        def plain(gen):
+            draw = gen.integers(0, n, n)
+            return (np.bincount(draw, minlength=n), np.bincount(gen.integers(0, nt, nt),
+                                                                minlength=nt),
+                    np.bincount(draw[:h], minlength=n))  # the placebo's part: h resampled rows
+        return plain
+    w_src, w_tgt, pos, u_src, u_tgt = design
+    uniq, code = np.unique(np.concatenate([u_src, u_tgt]), return_inverse=True)
+    c_src, c_tgt = code[:n], code[n:]
+    in_part = np.zeros(n)
+    in_part[pos] = 1.0
+
+    def scaled(a, size):
+        total = a.sum()
+        return a * (size / total) if total > 0 else a
+
+    def weighted(gen):
+        units = np.bincount(gen.integers(0, len(uniq), len(uniq)), minlength=len(uniq))
+        ws = units[c_src] * w_src
+        return (scaled(ws, n), scaled(units[c_tgt] * w_tgt, nt),
+                scaled(ws * in_part, len(pos)))
+    return weighted
 
 
 def _score_batch(ctx, positions, proxies, prepared, real_cols, pl_cols, dst):
@@ -147,9 +188,11 @@ class _Resampled:
         tcodes = self.src if placebo else self.tgt
         ok_t = tcodes >= 0
         tcounts = np.bincount(tcodes[ok_t], weights=wt[ok_t], minlength=len(self.first))
-        n_ok = int(ws[self.src >= 0].sum())
+        n_ok = ws[self.src >= 0].sum()
         if tcounts.sum() == 0 or n_ok == 0:
             return self.idx[rows]
-        need = largest_remainder(tcounts / tcounts.sum(), n_ok)
+        shares = tcounts / tcounts.sum()  # counts: whole rows; weights: shares of the weight
+        need = (largest_remainder(shares, int(n_ok)) if np.issubdtype(ws.dtype, np.integer)
+                else shares * n_ok)
         new = coupled_codes(self.src, ws, need, self.order)[rows]
         return np.where(new >= 0, self.first[np.maximum(new, 0)], self.idx[rows])

@@ -12,6 +12,18 @@ rows, the surplus rows (chosen by a seeded permutation) are dealt to the levels 
 fixed level order. Missing proxy values stay missing. Whether a column is numeric is
 :func:`probe.data.is_numeric`, the encoder's rule.
 
+**Weights.** Under a sampling design (:mod:`probe.flips.weighting`) both groups are weighted
+distributions. A numeric proxy's plotting position becomes the weighted mid-rank
+``q = (W_below + w_ties / 2) / W`` and the target quantile is read at ``q`` on the target's
+cumulative weights, with each group's weights first scaled to a mean of 1 per row: unit weights then
+give the unweighted map exactly and the map does not depend on the weights' scale. (Integer weights
+are therefore *not* the same as duplicated rows here: duplication also changes how many rows the
+``1/2`` of the plotting position is counted in. The two maps differ by less than one row's share.)
+A categorical proxy's target counts are the target's weighted level shares times the source's
+weight, and the coupling keeps a level's rows in ``order`` until their weight reaches that need;
+rows move whole (no row is split between levels), so the moved shares match the target's up to
+one row's weight per level.
+
 References
 ----------
 Villani, C. (2009). Optimal Transport, Old and New, ch. 2 (monotone rearrangement on the line).
@@ -78,6 +90,22 @@ def weighted_quantile_map(values, source, source_counts, target, target_counts, 
     return out
 
 
+def _weighted_quantiles(values, target, w_src, w_tgt, integer) -> np.ndarray:
+    """:func:`quantile_map` of the weighted source sample (``values`` with weights ``w_src``) onto
+    the weighted target sample; each side's weights are scaled to a mean of 1 per row, so that
+    unit weights give :func:`quantile_map` exactly and the map does not depend on the weights'
+    scale (the module notes)."""
+    so, to = _sorted_weights(values, w_src), _sorted_weights(target, w_tgt)
+    return weighted_quantile_map(values, *so, *to, integer=integer)
+
+
+def _sorted_weights(values, weights):
+    ok = np.flatnonzero(~np.isnan(values))
+    order = ok[np.argsort(values[ok], kind="stable")]
+    w = weights[order]
+    return values[order], w * (len(w) / w.sum()) if w.sum() > 0 else w
+
+
 def transport_categorical(source_codes, target_counts, rng) -> np.ndarray:
     """Reassign levels so their counts match ``target_counts``, changing the fewest rows.
 
@@ -110,13 +138,15 @@ def coupled_codes(codes, counts, need, order) -> np.ndarray:
     replicate only when the counts push it across its level's cut).
     """
     c, w = codes[order], counts[order]
-    have = np.bincount(c, weights=w, minlength=len(need)).astype(np.int64)
+    have = np.bincount(c, weights=w, minlength=len(need))
     before = np.cumsum(w) - w - np.concatenate([[0], np.cumsum(have)[:-1]])[c]
     surplus_start = np.concatenate([[0], np.cumsum(np.maximum(have - need, 0))[:-1]])
     moved = before >= need[c]
     new = c.copy()
-    new[moved] = np.searchsorted(np.cumsum(np.maximum(need - have, 0)),
-                                 (surplus_start[c] + before - need[c])[moved], side="right")
+    # (real-valued weights: a float sum may land on the last cut; the clip keeps it inside)
+    new[moved] = np.minimum(np.searchsorted(np.cumsum(np.maximum(need - have, 0)),
+                                            (surplus_start[c] + before - need[c])[moved],
+                                            side="right"), len(need) - 1)
     out = np.array(codes, dtype=np.int64, copy=True)
     out[order] = new
     return out
@@ -153,25 +183,34 @@ def prepare_proxy(col: pd.Series):
     return ("categorical", codes, first)
 
 
-def move_proxy(col: pd.Series, prepared, idx, tgt, order) -> pd.Series:
+def move_proxy(col: pd.Series, prepared, idx, tgt, order, weights=None) -> pd.Series:
     """The proxy's values for the source rows ``idx`` moved onto the rows ``tgt``; ``order`` is the
-    categorical coupling's :func:`level_order` of the source rows (unused for a numeric proxy)."""
+    categorical coupling's :func:`level_order` of the source rows (unused for a numeric proxy).
+
+    ``weights``, when given, are ``(source weights, target weights)``: the maps are then those of
+    the weighted distributions (the module notes)."""
     if prepared[0] == "numeric":
         v = prepared[1]
         if not np.isfinite(v[tgt]).any():
             raise DataError(f"proxy `{col.name}` has no known value in the target group, so it "
                             "cannot be moved there; leave it out of `proxies`")
         integer = pd.api.types.is_integer_dtype(col.dtype)
-        return proxy_values(col, prepared, quantile_map(v[idx], v[tgt], integer=integer),
-                            col.index[idx])
+        if weights is None:
+            mapped = quantile_map(v[idx], v[tgt], integer=integer)
+        else:
+            mapped = _weighted_quantiles(v[idx], v[tgt], *weights, integer)
+        return proxy_values(col, prepared, mapped, col.index[idx])
     _, codes, first = prepared
     src, tcodes = codes[idx], codes[tgt]
-    tgt_counts = np.bincount(tcodes[tcodes >= 0], minlength=len(first))
-    n_ok = int((src >= 0).sum())
+    w_src, w_tgt = (np.ones(len(src), np.int64), None) if weights is None else weights
+    tgt_counts = np.bincount(tcodes[tcodes >= 0], minlength=len(first),
+                             weights=None if w_tgt is None else w_tgt[tcodes >= 0])
+    n_ok = w_src[src >= 0].sum()
     if tgt_counts.sum() == 0 or n_ok == 0:
         return col.iloc[idx]
-    need = largest_remainder(tgt_counts / tgt_counts.sum(), n_ok)
-    new_codes = coupled_codes(src, np.ones(len(src), np.int64), need, order)
+    shares = tgt_counts / tgt_counts.sum()
+    need = largest_remainder(shares, int(n_ok)) if weights is None else shares * n_ok
+    new_codes = coupled_codes(src, w_src, need, order)
     return proxy_values(col, prepared, np.where(new_codes >= 0, first[np.maximum(new_codes, 0)],
                                                 idx), col.index[idx])
 

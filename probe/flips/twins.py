@@ -55,24 +55,22 @@ Econometrica 76, 1537-1557.
 from __future__ import annotations
 
 import math
-from dataclasses import replace
+from dataclasses import dataclass, replace
 
 import numpy as np
-from scipy import stats as _sps
 
 from ..data import is_numeric
 from ..encode import encode_columns
 from ..errors import DataError
 from ..stats import Estimate, wilson_interval
-from ..threads import N_JOBS, limited
 from .context import FlipContext, outcome_row
 from .findings import SCREEN_CAUTION, FlipFindings, spread_interval, twin_sentence
+from .twins_search import cross_excluding, cross_twins, kneighbors, own_twins, twin_outcomes
+from .weighting import spread_n_effective, weighted_shares
 
 __all__ = ["twin_flips"]
 
 _TWIN_LEVELS = 20      # named levels per categorical in the twins' one-hot design
-_TWIN_CHUNK = 20_000   # query rows per nearest-neighbour call
-_KD_TREE_MAX_DIM = 8   # above this many encoded dimensions, brute (chunked) search is faster
 SUBSAMPLES = 20
 """Random subsamples of both groups behind the excess's standard error."""
 SUBSAMPLE_ROWS = 4_000
@@ -104,31 +102,34 @@ def twin_flips(ctx: FlipContext, *, k, pair_seeds) -> FlipFindings:
         m = min(n_dst, n_src - 1)
         pgen = np.random.default_rng(seed)
         if m < k:
-            raw_nb = _kneighbors(Zt, Zs, k)
-            raw = _twin_outcomes(fav[idx], fav, base, tgt[raw_nb])
+            pd_ = _PairDesign.of(ctx, src, dst)
+            vote = None if pd_ is None else pd_.vote_dst
+            raw_nb = (kneighbors(Zt, Zs, k) if vote is None
+                      else cross_excluding(Zt, Zs, k, idx, tgt))
+            raw = twin_outcomes(fav[idx], fav, base, tgt[raw_nb], vote)
             row = outcome_row(ctx, "twins", src, dst, idx, raw[0], raw[1], raw[2] - base[idx], ())
             notes.append(f"twins {src!r} -> {dst!r}: no own-group control, the {src!r} group has "
                          f"{n_src} rows (k={k} twins need at least {k + 1})")
             rows.append(replace(row, sentence=twin_sentence(row, k, None, ctx.confidence_level)))
             continue
-        pair = _Pair(fav, base, idx, tgt, Zs, Zt, k)
+        pair = _Pair(fav, base, idx, tgt, Zs, Zt, k, _PairDesign.of(ctx, src, dst))
         raw, matched, ctrl, subsampled = pair.outcomes(np.arange(n_src), np.arange(n_dst), pgen)
         row = outcome_row(ctx, "twins", src, dst, idx, raw[0], raw[1], raw[2] - base[idx], ())
         if subsampled or n_src - 1 > m:
             which = f"{dst!r} group" if subsampled else f"own {src!r} group"
             notes.append(f"twins {src!r} -> {dst!r}: the excess compares pools of equal size, "
                          f"{m} rows (the {which} subsampled)")
-        counts = np.array([(ctrl[0] | ctrl[1]).sum(), (matched[0] | matched[1]).sum()], float)
-        lo, hi = wilson_interval(counts, np.full(2, float(n_src)),
-                                 confidence_level=ctx.confidence_level)
-        rate_c, rate_m = (Estimate(c / n_src, float(a), float(b), "wilson")
-                          for c, a, b in zip(counts, lo, hi))
-        values = _excesses(matched, ctrl)
+        rate_c, rate_m = _rates(ctx, pair, ctrl[0] | ctrl[1], matched[0] | matched[1])
+        values = _excesses(matched, ctrl, pair.weights)
         se, df, note = _subsample_se(pair, pgen)
         if note:
             notes.append(f"twins {src!r} -> {dst!r}: {note}")
         excess = [spread_interval(v, s, df, ctx.confidence_level, "half-sample-t")
                   for v, s in zip(values, se)]
+        if pair.weights is not None:
+            diffs = _differences(matched, ctrl)
+            excess = [replace(e, n_effective=spread_n_effective(dv, pair.weights, s, n_src))
+                      for e, dv, s in zip(excess, diffs, se)]
         row = replace(row, control_rate=rate_c, matched_rate=rate_m, excess=excess[0],
                       excess_to_favorable=excess[1], excess_to_unfavorable=excess[2],
                       excess_score_change=excess[3], twin_pool=int(m), excess_se=float(se[0]),
@@ -142,13 +143,31 @@ def twin_flips(ctx: FlipContext, *, k, pair_seeds) -> FlipFindings:
                          "excess_interval": "half-sample-t"})
 
 
-def _excesses(matched, ctrl) -> np.ndarray:
-    """Mean paired differences (matched − own-group): overall, to favourable, to unfavourable,
-    twins' mean score."""
+def _rates(ctx, pair, ctrl, matched):
+    """The control's and the matched pool's flip rates (Wilson; weighted under a design)."""
+    cl, n_src = ctx.confidence_level, len(pair.idx)
+    if pair.weights is not None:
+        d = ctx.design
+        return weighted_shares((ctrl, matched), pair.weights, d.unit_of(pair.idx), d.clustered,
+                               cl)
+    counts = np.array([ctrl.sum(), matched.sum()], float)
+    lo, hi = wilson_interval(counts, np.full(2, float(n_src)), confidence_level=cl)
+    return [Estimate(c / n_src, float(a), float(b), "wilson") for c, a, b in zip(counts, lo, hi)]
+
+
+def _differences(matched, ctrl) -> list:
+    """Per person (matched − own-group): overall, to favourable, to unfavourable, twins' mean
+    score (to_fav and to_unfav are disjoint)."""
     d_fav = matched[0].astype(float) - ctrl[0]
     d_unfav = matched[1].astype(float) - ctrl[1]
-    return np.array([(d_fav + d_unfav).mean(), d_fav.mean(), d_unfav.mean(),
-                     (matched[2] - ctrl[2]).mean()])  # to_fav and to_unfav are disjoint
+    return [d_fav + d_unfav, d_fav, d_unfav, matched[2] - ctrl[2]]
+
+
+def _excesses(matched, ctrl, weights=None) -> np.ndarray:
+    """Mean paired differences (:func:`_differences`), weighted by the people's weights."""
+    if weights is None:
+        return np.array([d.mean() for d in _differences(matched, ctrl)])
+    return np.array([np.average(d, weights=weights) for d in _differences(matched, ctrl)])
 
 
 def _subsample_se(pair, gen):
@@ -162,6 +181,8 @@ def _subsample_se(pair, gen):
         return (np.full(4, math.nan), SUBSAMPLES - 1.0,
                 "too few rows for the excess's interval (half of each group must hold a pool of "
                 f"k={pair.k} twins)")
+    if pair.design is not None:
+        return _unit_subsample_se(pair, f, gen)
     reps = np.array([_excesses(*pair.outcomes(np.sort(gen.choice(n_src, r_src, replace=False)),
                                               np.sort(gen.choice(n_dst, r_dst, replace=False)),
                                               gen)[1:3])
@@ -170,12 +191,69 @@ def _subsample_se(pair, gen):
     return np.sqrt(f / (1 - f) * reps.var(axis=0, ddof=1)), SUBSAMPLES - 1.0, None
 
 
+def _unit_subsample_se(pair, f, gen):
+    """:func:`_subsample_se` under a design: a share ``f`` of the pair's units (clusters, or
+    rows; a row of uncertain membership is one unit in both groups) is drawn without
+    replacement, with all their rows in both groups, and the excess is weighted; the delete-d
+    factor is on the units' share. Subsamples too small for ``k`` twins are drawn again."""
+    d = pair.design
+    uniq, code = np.unique(np.concatenate([d.u_src, d.u_tgt]), return_inverse=True)
+    c_src, c_tgt = code[:len(pair.idx)], code[len(pair.idx):]
+    r = max(1, int(round(f * len(uniq))))
+    reps = []
+    for _ in range(4 * SUBSAMPLES):
+        keep = np.zeros(len(uniq), dtype=bool)
+        keep[gen.choice(len(uniq), r, replace=False)] = True
+        s, t = np.flatnonzero(keep[c_src]), np.flatnonzero(keep[c_tgt])
+        if min(len(t), len(s) - 1) < pair.k:
+            continue
+        out = pair.outcomes(s, t, gen)
+        reps.append(_excesses(out[1], out[2], pair.weights[s]))
+        if len(reps) == SUBSAMPLES:
+            break
+    if len(reps) < 2:
+        return np.full(4, math.nan), SUBSAMPLES - 1.0, "too few units for the excess's interval"
+    f = r / len(uniq)
+    reps = np.array(reps)
+    return np.sqrt(f / (1 - f) * reps.var(axis=0, ddof=1)), len(reps) - 1.0, None
+
+
+@dataclass(frozen=True)
+class _PairDesign:
+    """A pair's design: the source people's weights, both groups' units, and for an attribute
+    known as membership probabilities each row's probability of each group (the twins' votes)."""
+
+    weights: np.ndarray
+    u_src: np.ndarray
+    u_tgt: np.ndarray
+    vote_src: np.ndarray | None
+    vote_dst: np.ndarray | None
+
+    @staticmethod
+    def of(ctx, src, dst):
+        d = ctx.design
+        if not d.weighted:
+            return None
+        idx, tgt = ctx.group_rows[src], ctx.group_rows[dst]
+        units = d.units if d.units is not None else np.arange(len(ctx.X))
+        votes = (None, None)
+        if d.membership is not None:
+            lv = d.membership.levels
+            votes = (d.membership.probs[:, lv.index(src)], d.membership.probs[:, lv.index(dst)])
+        return _PairDesign(d.of(src), units[idx], units[tgt], *votes)
+
+
 class _Pair:
     """One ``(from, to)`` pair ready for the twin searches, on all its people or a subsample."""
 
-    def __init__(self, fav, base, idx, tgt, Zs, Zt, k):
+    def __init__(self, fav, base, idx, tgt, Zs, Zt, k, design=None):
         self.fav, self.base, self.idx, self.tgt, self.Zs, self.Zt, self.k = (
             fav, base, idx, tgt, Zs, Zt, k)
+        self.design = design
+
+    @property
+    def weights(self):
+        return None if self.design is None else self.design.weights
 
     def outcomes(self, s, t, gen):
         """Per person of the source rows ``s`` (positions in the pair's source group), with the
@@ -187,13 +265,20 @@ class _Pair:
         m = min(n_dst, n_src - 1)
         # the other group's pool for the excess: all of it, or m of its rows
         sub = np.sort(gen.choice(n_dst, m, replace=False)) if n_dst > m else None
-        raw_nb, matched_nb = _cross_twins(Zt, Zs, k, sub)
+        d = self.design
+        shared = d is not None and d.vote_dst is not None  # a row can be in both groups
+        if shared:
+            raw_nb = cross_excluding(Zt, Zs, k, idx, tgt)
+            matched_nb = raw_nb if sub is None else cross_excluding(Zt[sub], Zs, k, idx, tgt[sub])
+        else:
+            raw_nb, matched_nb = cross_twins(Zt, Zs, k, sub)
+        v_src, v_dst = (d.vote_src, d.vote_dst) if shared else (None, None)
         own = self.fav[idx]
-        raw = _twin_outcomes(own, self.fav, self.base, tgt[raw_nb])
-        own_nb = _own_twins(Zs, k, m, gen)
-        matched = raw if sub is None else _twin_outcomes(own, self.fav, self.base,
-                                                         tgt[sub[matched_nb]])
-        ctrl = _twin_outcomes(own, self.fav, self.base, idx[own_nb])
+        raw = twin_outcomes(own, self.fav, self.base, tgt[raw_nb], v_dst)
+        own_nb = own_twins(Zs, k, m, gen)
+        matched = raw if sub is None else twin_outcomes(own, self.fav, self.base,
+                                                         tgt[sub[matched_nb]], v_dst)
+        ctrl = twin_outcomes(own, self.fav, self.base, idx[own_nb], v_src)
         return raw, matched, ctrl, sub is not None
 
 
@@ -250,81 +335,3 @@ def _centre_scale(pooled):
         return 0.0, 0.0
     with np.errstate(over="ignore", invalid="ignore"):
         return np.nanmean(pooled), np.nanstd(pooled)
-
-
-def _kneighbors(pool, queries, n_neighbors) -> np.ndarray:
-    """Positions in ``pool`` of each query row's ``n_neighbors`` nearest, nearest first; queried in
-    chunks so memory stays bounded (never a queries x pool matrix)."""
-    from sklearn.neighbors import NearestNeighbors
-
-    # a k-d tree wins in few dimensions; beyond that sklearn's brute search (computed in chunks
-    # under its working-memory bound, never an n x n matrix) is several times faster
-    algorithm = "kd_tree" if pool.shape[1] <= _KD_TREE_MAX_DIM else "brute"
-    out = np.empty((len(queries), n_neighbors), dtype=np.int64)
-    with limited():
-        nn = NearestNeighbors(n_neighbors=n_neighbors, algorithm=algorithm,
-                              n_jobs=N_JOBS).fit(pool)
-        for start in range(0, len(queries), _TWIN_CHUNK):
-            stop = min(start + _TWIN_CHUNK, len(queries))
-            out[start:stop] = nn.kneighbors(queries[start:stop], return_distance=False)
-    return out
-
-
-def _query_depth(k, p, n) -> int:
-    """How many neighbours in the full pool to ask for so that, with probability at least 0.999,
-    ``k`` of them fall in a random subsample holding a share ``p`` of it."""
-    depth = k
-    while depth < n and _sps.binom.sf(k - 1, depth, p) < 0.999:
-        depth += 1
-    return depth
-
-
-def _cross_twins(Zt, Zs, k, sub):
-    """The ``k`` nearest other-group twins of each source row: in the whole group (positions in
-    ``Zt``) and in the subsample ``sub`` (positions in ``sub``; the same array when ``sub`` is
-    None)."""
-    if sub is None:
-        nb = _kneighbors(Zt, Zs, k)
-        return nb, nb
-    p = len(sub) / len(Zt)
-    if p < 0.5:  # a small subsample: its own search is cheap
-        return _kneighbors(Zt, Zs, k), _kneighbors(Zt[sub], Zs, k)
-    # most of the group is kept: one deeper search in the whole group serves both; the nearest k
-    # of it that lie in the subsample are its nearest k there (rows short of k are searched again)
-    full = _kneighbors(Zt, Zs, _query_depth(k, p, len(Zt)))
-    pos = np.full(len(Zt), -1, dtype=np.int64)
-    pos[sub] = np.arange(len(sub))
-    in_sub = pos[full]
-    hit = in_sub >= 0
-    order = np.argsort(~hit, axis=1, kind="stable")[:, :k]
-    matched = np.take_along_axis(in_sub, order, axis=1)
-    short = np.flatnonzero(hit.sum(axis=1) < k)
-    if len(short):
-        matched[short] = _kneighbors(Zt[sub], Zs[short], k)
-    return full[:, :k], matched
-
-
-def _own_twins(Zs, k, m, gen) -> np.ndarray:
-    """Each source row's ``k`` nearest other members of its own group (positions in ``Zs``), drawn
-    from a pool of ``m`` others: all of the group when it has ``m + 1`` rows, else a random
-    ``m + 1`` of them (a row outside that subsample draws from all ``m + 1``, one more; immaterial).
-
-    Asks for ``k + 1`` and drops the row itself; when exact duplicates crowd it out of its own
-    ``k + 1`` nearest, the farthest is dropped instead."""
-    n = len(Zs)
-    pool = np.sort(gen.choice(n, m + 1, replace=False)) if n - 1 > m else np.arange(n)
-    pos = np.full(n, -1, dtype=np.int64)
-    pos[pool] = np.arange(len(pool))
-    nb = _kneighbors(Zs[pool] if len(pool) < n else Zs, Zs, k + 1)
-    is_self = nb == pos[:, None]
-    drop = np.where(is_self.any(axis=1), is_self.argmax(axis=1), k)
-    keep = np.ones(nb.shape, dtype=bool)
-    keep[np.arange(n), drop] = False
-    return pool[nb[keep].reshape(n, k)]
-
-
-def _twin_outcomes(own_fav, fav, base, twin_rows):
-    """Per person: (twins favourable by majority and the person not, the reverse, twins' mean
-    score); a tie among an even number of twins counts as no difference."""
-    share = fav[twin_rows].mean(axis=1)
-    return ~own_fav & (share > 0.5), own_fav & (share < 0.5), base[twin_rows].mean(axis=1)
