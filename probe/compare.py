@@ -33,7 +33,8 @@ import numpy as np
 import pandas as pd
 from scipy import special
 
-from .design import Design, design_of, effective_counts
+from .design import Design, effective_counts
+from .design_data import resolve_design
 from .errors import DataError, PlanError
 from .metrics import METRIC_NAMES, get_metric, metric_outcome
 from .options import SliceOptions
@@ -272,7 +273,7 @@ def compare_models(
             f"candidate and baseline must be scored on the same rows: got "
             f"{len(outcomes[metric][0])} and {len(outcomes[metric][1])} decisions for {len(X)} rows"
         )
-    design = design_of(len(X), sample_weight, design)
+    design = resolve_design(sample_weight, design, len(X))
     if design.membership:
         raise PlanError("the comparison takes row weights and clusters; membership "
                         "probabilities have no use in it (leave them out of its `design`)")

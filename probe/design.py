@@ -63,10 +63,9 @@ from typing import Mapping, Sequence
 
 import numpy as np
 
-from .errors import DataError, PlanError
 
 __all__ = ["CellEffective", "Design", "MEMBERSHIP_CAUTION", "MIN_CLUSTERS", "Membership",
-           "UNCERTAIN_TOP", "design_of", "effective_counts", "expand_rows"]
+           "UNCERTAIN_TOP", "effective_counts", "expand_rows"]
 
 #: Rules judged on fewer clusters than this are inconclusive: a sandwich variance from a few dozen
 #: clusters is itself unreliable (common practice; Cameron & Miller 2015 discuss "few clusters").
@@ -351,31 +350,3 @@ def expand_rows(codes: Sequence[np.ndarray], membership: Sequence[Membership | N
         out[j] = rep_code
         source, w, prob = rep_src, rep_w[keep], rep_p[keep]
     return out, source, w, prob
-
-
-def design_of(n_rows: int, sample_weight=None, design: Design | None = None) -> Design:
-    """The design of ``n_rows`` rows from an analysis' ``sample_weight=`` or ``design=`` (not
-    both; ``sample_weight`` alone is ``Design(weights=...)``), checked for length and values."""
-    if sample_weight is not None and design is not None:
-        raise PlanError("give `sample_weight` or `design`, not both (put the weights in the "
-                        "Design)")
-    if design is not None and not isinstance(design, Design):
-        raise PlanError(f"`design` must be a probe.design.Design, got {type(design).__name__}")
-    if sample_weight is not None:
-        try:
-            w = np.asarray(sample_weight, dtype=np.float64)
-        except (TypeError, ValueError):
-            raise DataError("`sample_weight` must hold numbers, one per row") from None
-        if w.shape != (n_rows,):
-            raise DataError(f"`sample_weight` must hold one weight per row ({n_rows}), got shape "
-                            f"{w.shape}")
-        if not np.all(np.isfinite(w)) or np.any(w < 0) or not np.any(w > 0):
-            raise DataError("`sample_weight` must be finite, 0 or more, and not all zero")
-        design = Design(weights=w)
-    design = design or Design()
-    sizes = [len(a) for a in (design.weights, design.cluster) if a is not None]
-    sizes += [len(m.probs) for m in design.membership.values()]
-    if any(s != n_rows for s in sizes):
-        raise DataError(f"the design must describe the {n_rows} rows of the data, got arrays "
-                        f"of {sorted(set(sizes))} rows")
-    return design

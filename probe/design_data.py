@@ -13,7 +13,7 @@ import pandas as pd
 
 from .data import check_columns, is_numeric, rows_text
 from .design import Design, Membership
-from .errors import DataError
+from .errors import DataError, PlanError
 
 __all__ = ["MEMBERSHIP_TOLERANCE", "read_design", "resolve_design"]
 
@@ -100,9 +100,14 @@ def resolve_design(sample_weight, design: Design | None, n_rows: int) -> Design:
     checked like a weights column; plain when neither is given. Refuses both at once and a design
     whose arrays do not have one value per row."""
     if sample_weight is not None and design is not None:
-        raise DataError("give `sample_weight` or `design`, not both (a Design holds the weights)")
+        raise PlanError("give `sample_weight` or `design`, not both (a Design holds the weights)")
+    if design is not None and not isinstance(design, Design):
+        raise PlanError(f"`design` must be a probe.Design, got {type(design).__name__}")
     if sample_weight is not None:
-        w = np.asarray(sample_weight, dtype=np.float64).reshape(-1)
+        try:
+            w = np.asarray(sample_weight, dtype=np.float64).reshape(-1)
+        except (TypeError, ValueError):
+            raise DataError("`sample_weight` must hold numbers, one per row") from None
         frame = pd.DataFrame({"sample_weight": w}) if len(w) == n_rows else None
         if frame is None:
             raise DataError(f"`sample_weight` has {len(w)} values for {n_rows} rows")

@@ -105,7 +105,7 @@ def test_refusals_are_one_line():
     X, y, cand, base = _pair(100)
     with pytest.raises(PlanError, match="not both"):
         compare_models(X, y, cand, base, sample_weight=np.ones(100), design=Design())
-    with pytest.raises(DataError, match="one weight per row"):
+    with pytest.raises(DataError, match="99 values for 100 rows"):
         compare_models(X, y, cand, base, sample_weight=np.ones(99))
     probs = np.full((100, 2), 0.5)
     with pytest.raises(PlanError, match="membership"):

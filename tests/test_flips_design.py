@@ -197,9 +197,9 @@ def test_design_refusals_are_one_line():
     model = Linear()
     with pytest.raises(PlanError, match="not both"):
         flip_test(model, X, "group", sample_weight=np.ones(50), design=Design())
-    with pytest.raises(DataError, match="one weight per row"):
+    with pytest.raises(DataError, match="49 values for 50 rows"):
         flip_test(model, X, "group", sample_weight=np.ones(49))
-    with pytest.raises(DataError, match="0 or more"):
+    with pytest.raises(DataError, match="negative values"):
         flip_test(model, X, "group", sample_weight=-np.ones(50))
     with pytest.raises(DataError, match="hold numbers"):
         flip_test(model, X, "group", sample_weight=["a"] * 50)
@@ -207,5 +207,5 @@ def test_design_refusals_are_one_line():
     both = Design(membership={"group": Membership("group", ("F", "M"), ("p", "q"), probs)})
     with pytest.raises(DataError, match="both a column"):
         flip_test(model, X, "group", design=both)
-    with pytest.raises(PlanError, match="probe.design.Design"):
+    with pytest.raises(PlanError, match="probe.Design"):
         flip_test(model, X, "group", design={"weights": 1})

@@ -19,7 +19,7 @@ from ..options import ModelOptions, check_option, coerce_option
 from ..stats import Estimate, mean_interval, wilson_interval
 from .breakdown import slice_breakdown
 from .findings import FlipRow, impossible_sentence, pair_sentence
-from ..design import design_of
+from ..design_data import resolve_design
 from .weighting import FlipDesign, flip_design, weighted_mean, weighted_shares
 
 __all__ = ["FlipContext", "flip_context", "refuse_fixed_scores", "score", "set_column"]
@@ -116,7 +116,7 @@ def flip_context(model, X, attribute, *, reference, threshold, favorable, confid
     refuse_fixed_scores(model)
     if not isinstance(X, pd.DataFrame):
         raise DataError(f"`X` must be a pandas DataFrame, got {type(X).__name__}")
-    design = design_of(len(X), sample_weight, design)
+    design = resolve_design(sample_weight, design, len(X))
     member = design.membership.get(attribute)
     if member is not None and attribute in X.columns:
         raise DataError(f"protected attribute `{attribute}` is both a column of the data and "

@@ -1,6 +1,6 @@
 """The flip tests under a sampling design: who is in each group, with what weight, in which unit.
 
-:func:`flip_design` reads the design once (:mod:`probe.design`; :func:`probe.design.design_of`
+:func:`flip_design` reads the design once (:mod:`probe.design`; :func:`probe.design_data.resolve_design`
 resolves ``sample_weight=`` / ``design=``) into a :class:`FlipDesign`: per level of the flipped
 attribute its rows, their weights (the row weight, times the membership probability when the
 attribute is known only as probabilities: each row then counts in each group with weight

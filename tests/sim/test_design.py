@@ -15,7 +15,7 @@ from statsmodels.stats.weightstats import DescrStatsW
 
 from probe.design import Design, Membership, effective_counts, expand_rows
 from probe.design_data import read_design, resolve_design
-from probe.errors import DataError
+from probe.errors import DataError, PlanError
 from probe.groups import group_metrics
 from probe.policy import measure
 
@@ -241,7 +241,7 @@ def test_bad_membership_is_refused_in_one_line():
 
 
 def test_sample_weight_and_design_are_one_or_the_other():
-    with pytest.raises(DataError, match="not both"):
+    with pytest.raises(PlanError, match="not both"):
         resolve_design(np.ones(3), Design(), 3)
     with pytest.raises(DataError, match="3 values for 4 rows"):
         resolve_design(np.ones(3), None, 4)
