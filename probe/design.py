@@ -117,6 +117,10 @@ class Membership:
         """Share of rows whose largest membership probability is below :data:`UNCERTAIN_TOP`."""
         return float(np.mean(self.probs.max(axis=1) < UNCERTAIN_TOP)) if len(self.probs) else 0.0
 
+    def most_likely(self) -> np.ndarray:
+        """Each row's most probable group (the first of ties), as an object array of levels."""
+        return np.asarray(self.levels, dtype=object)[self.probs.argmax(axis=1)]
+
     def describe(self) -> dict:
         return {"groups": dict(zip(self.levels, self.columns)),
                 "uncertain_share": self.uncertain_share, "uncertain_below": UNCERTAIN_TOP}

@@ -78,11 +78,21 @@ def _load(plan: Plan, spec: str, holdout, *, pin: str | None):
 
 
 def _never_sliced(plan: Plan, label: str | None, model) -> list[str]:
-    """The label, the plan's exclusions and a ``column:`` model's score column are never sliced."""
+    """The label, the plan's exclusions, a ``column:`` model's score column and the design's
+    columns (weights, cluster ids, membership probabilities) are never sliced."""
     exclude = [label, *plan.search.exclude] if label else list(plan.search.exclude)
+    exclude += _design_columns(plan)
     if model.kind == "column":
         exclude.append(model.spec.split(":", 1)[1])
     return list(dict.fromkeys(exclude))
+
+
+def _design_columns(plan: Plan) -> list[str]:
+    """The columns that describe the sample, not the people: weights, clusters, membership
+    probabilities (never sliced, never ranked as proxies)."""
+    d = plan.data
+    return [c for c in (d.weights, d.cluster) if c] + [
+        c for groups in d.membership.values() for c in groups.values()]
 
 
 def prepare(plan: Plan, *, clock: _Clock | None = None, progress: Progress | None = None) -> Evidence:
@@ -195,9 +205,10 @@ def _run(plan: Plan, command, clock: _Clock, progress) -> dict:
     rankings: dict = {}
     if plan.proxies is not None:
         with clock.step("proxies"):
-            attributes = _attributes(plan.proxies.attributes, h.protected, "proxies", ev.frame)
+            attributes = _attributes(plan.proxies.attributes, h.protected, "proxies", ev.frame,
+                                     ev.design.membership)
             found.proxies = [_ranking(plan, ev.frame, a, ev.model().feature_names, h.label,
-                                      h.protected, rankings, ev.groups, progress)
+                                      h.protected, rankings, ev.groups, progress, ev.design)
                              for a in attributes]
     if plan.flips is not None:
         with clock.step("flips"):
@@ -221,12 +232,12 @@ def _run(plan: Plan, command, clock: _Clock, progress) -> dict:
     return assemble_report(found, verdict, prov)
 
 
-def _attributes(asked, protected, section: str, frame) -> tuple:
+def _attributes(asked, protected, section: str, frame, membership=()) -> tuple:
     attributes = asked or protected
     if not attributes:
         raise DataError(f"[{section}] needs `attributes` (or protected attributes in [data])")
     for a in attributes:
-        if a not in frame.columns:
+        if a not in frame.columns and a not in membership:
             what = "flip" if section == "flips" else "proxy"
             raise DataError(f"{what} attribute `{a}` is not in the data"
                             + close_names(a, list(frame.columns)))
@@ -234,30 +245,42 @@ def _attributes(asked, protected, section: str, frame) -> tuple:
 
 
 def _ranking(plan: Plan, frame, attribute, model_features, label, protected, rankings: dict,
-             groups, progress: Progress | None = None):
+             groups, progress: Progress | None = None, design=None):
     """The proxy ranking of one attribute, computed once per run (the table and transport share it);
-    the attribute as the groups see it (its bands when binned), the features as they are."""
+    the attribute as the groups see it (its bands when binned; an attribute known as membership
+    probabilities as each row's most probable group), the features as they are."""
     if attribute not in rankings:
+        notes = []
+        member = design.membership.get(attribute) if design is not None else None
+        if member is not None:
+            frame = frame.assign(**{attribute: member.most_likely()})
+            notes.append(f"`{attribute}` is known as membership probabilities: the proxies are "
+                         "ranked against each row's most probable group")
+        if design is not None and (design.weights is not None or design.cluster is not None):
+            notes.append("the ranking is unweighted: it measures association in the rows as "
+                         "sampled, not in the weighted population")
         features = (plan.proxies.features if plan.proxies else None) or model_features
         if features:
             features = [c for c in features if c != attribute]
         else:
-            skip = {label, attribute, *protected}
+            skip = {label, attribute, *protected, *_design_columns(plan)}
             features = [c for c in frame.columns if c not in skip]
         # the multivariate check runs only for the attributes the proxies table shows
         shown = (plan.proxies.attributes or protected) if plan.proxies else ()
         if groups is not frame and attribute in groups.columns:
             frame = frame.assign(**{attribute: groups[attribute]})
-        rankings[attribute] = find_proxies(frame, attribute, features=features,
-                                           confidence_level=plan.confidence_level, rng=plan.seed,
-                                           multivariate=attribute in shown,
-                                           progress=_bar(progress, f"proxies of {attribute}"))
+        found = find_proxies(frame, attribute, features=features,
+                             confidence_level=plan.confidence_level, rng=plan.seed,
+                             multivariate=attribute in shown,
+                             progress=_bar(progress, f"proxies of {attribute}"))
+        rankings[attribute] = replace(found, notes=(*found.notes, *notes)) if notes else found
     return rankings[attribute]
 
 
 def _flips(plan: Plan, ev: Evidence, rankings: dict, progress) -> list:
     f = plan.flips
-    attributes = _attributes(f.attributes, ev.holdout.protected, "flips", ev.frame)
+    attributes = _attributes(f.attributes, ev.holdout.protected, "flips", ev.frame,
+                             ev.design.membership)
     jobs = [(a, m) for a in attributes for m in f.modes]
     tick = _bar(progress, "flip tests")
     out = []
@@ -267,7 +290,8 @@ def _flips(plan: Plan, ev: Evidence, rankings: dict, progress) -> list:
         ranking = None
         if mode == "transport" and f.proxies is None:
             ranking = _ranking(plan, ev.frame, attribute, ev.model().feature_names,
-                               ev.holdout.label, ev.holdout.protected, rankings, ev.groups)
+                               ev.holdout.label, ev.holdout.protected, rankings, ev.groups,
+                               design=ev.design)
         with warnings.catch_warnings():  # the report states it: the row that does not apply
             warnings.filterwarnings("ignore", message=".*direct flip does not apply",
                                     category=ProbeWarning)
@@ -285,7 +309,8 @@ def _flips(plan: Plan, ev: Evidence, rankings: dict, progress) -> list:
 def _flip_frame(ev: Evidence, attribute: str, mode: str):
     """The model's inputs with a binned attribute as its bands (its groups); a flip that would
     set a band as the value of a model input cannot be scored, so it is refused."""
-    if ev.groups is ev.frame or not isinstance(ev.groups[attribute].dtype, pd.CategoricalDtype) \
+    if ev.groups is ev.frame or attribute in ev.design.membership \
+            or not isinstance(ev.groups[attribute].dtype, pd.CategoricalDtype) \
             or isinstance(ev.frame[attribute].dtype, pd.CategoricalDtype):
         return ev.inputs
     banded = ev.groups[attribute]
@@ -302,7 +327,9 @@ def _run_proxies_only(plan: Plan, command, clock: _Clock, progress) -> dict:
         path = plan.resolve(plan.data.path)
         frame = read_table(path)
     data = {"path": str(path), "sha256": sha256_file(path), "rows": len(frame)}
-    protected = tuple(plan.data.protected)
+    design = read_design(frame, weights=plan.data.weights, cluster=plan.data.cluster,
+                         membership=plan.data.membership, where=f"`{path}`")
+    protected = _protected(plan.data)
     label = plan.data.label or None
     if label and label not in frame.columns:
         raise DataError(f"label column `{label}` is not in `{path}`"
@@ -313,10 +340,13 @@ def _run_proxies_only(plan: Plan, command, clock: _Clock, progress) -> dict:
                         "features with --features A,B (plan: `features` in [proxies])")
     found = Findings()
     with clock.step("proxies"):
-        attributes = _attributes(plan.proxies.attributes, protected, "proxies", frame)
-        groups = group_view(frame, attributes, plan.data.bins)
-        found.proxies = [_ranking(plan, frame, a, None, label, protected, {}, groups, progress)
-                         for a in attributes]
+        attributes = _attributes(plan.proxies.attributes, protected, "proxies", frame,
+                                 design.membership)
+        groups = group_view(frame, [a for a in attributes if a not in design.membership],
+                            plan.data.bins)
+        found.proxies = [_ranking(plan, frame, a, None, label, protected, {}, groups, progress,
+                                  design) for a in attributes]
     verdict = judge(measure(), plan.policy, confidence_level=plan.confidence_level)
-    prov = provenance(plan, command=command, timings=clock.timings, model=None, data=data)
+    prov = provenance(plan, command=command, timings=clock.timings, model=None, data=data,
+                      design=design)
     return assemble_report(found, verdict, prov)
