@@ -54,11 +54,15 @@ class Scorer:
     score_level : float
         The scores' level (:func:`search_level`).
     max_share : float
-        The largest share of the rows a scored slice may hold.
+        The largest share of the rows (of the weight, with weights) a scored slice may hold.
+    weights : ndarray, optional
+        Row weights, all positive (None: the plain counts).
     """
 
-    def __init__(self, y, binary, min_rows, confidence_level, score_level, max_share):
+    def __init__(self, y, binary, min_rows, confidence_level, score_level, max_share,
+                 weights=None):
         self.binary = binary
+        self.weighted = weights is not None
         self.min_rows = min_rows
         self.confidence_level = confidence_level
         self.score_level = score_level
@@ -70,6 +74,22 @@ class Scorer:
         if not binary:
             self.total_sq = float((y * y).sum())
             self.y_max = float(y.max()) if self.N else 0.0
+        if self.weighted:
+            w = np.asarray(weights, dtype=float)
+            w2, wy = w * w, w * y
+            # the totals of the counter's weighted sums (its class notes), in its order
+            self.totals = ((float(w.sum()), float(wy.sum()), float(w2.sum()),
+                            float((w2 * y).sum())) if binary else
+                           (float(w.sum()), float(wy.sum()), float((w2 * y * y).sum()),
+                            float((w2 * y).sum()), float(w2.sum())))
+            self.max_weight = max_share * self.totals[0]
+            self.w_min = float(w.min()) if len(w) else 1.0
+
+    def capped(self, st) -> np.ndarray:
+        """Per slice: over the share cap (of the rows, or of the weight with weights)."""
+        if not self.weighted:
+            return st[0] > self.max_rows
+        return (st[2] if self.binary else st[1]) > self.max_weight
 
     def window(self, stats, need_bound):
         """Scores (and refinement bounds) of the supported slices of many column sets in one call.
@@ -93,7 +113,16 @@ class Scorer:
         sup = (n >= self.min_rows) & (n < self.N)
         score = np.full(len(n), -np.inf)
         bound = np.full(len(n), -np.inf) if need_bound else None
-        if sup.any():
+        capped = n > self.max_rows
+        if self.weighted:
+            cols = [np.concatenate([st[i] for st in stats]) for i in range(len(stats[0]))]
+            capped = self.capped(cols)
+            if sup.any():
+                sub = [c[sup] for c in cols]
+                score[sup] = self._weighted_score(sub)
+                if need_bound:
+                    bound[sup] = self._weighted_bound(sub)
+        elif sup.any():
             ns = n[sup]
             xs = np.concatenate([st[1] for st in stats])[sup]
             if self.binary:
@@ -106,7 +135,7 @@ class Scorer:
                 if need_bound:
                     pos = np.concatenate([st[3] for st in stats])[sup]
                     bound[sup] = self._real_bound(pos, ns)
-        score[np.isnan(score) | (n > self.max_rows)] = -np.inf
+        score[np.isnan(score) | capped] = -np.inf
         if need_bound:
             bound[np.isnan(bound)] = -np.inf
         cuts = np.cumsum([len(st[0]) for st in stats])[:-1]
@@ -115,7 +144,12 @@ class Scorer:
         return list(zip(sups, scores)), bounds
 
     def gap(self, st):
-        """The point gap of each slice's rate to the rest's."""
+        """The point gap of each slice's rate to the rest's (weighted with weights)."""
+        if self.weighted:
+            W, S = (st[2], st[3]) if self.binary else (st[1], st[2])
+            TW, TS = self.totals[0], self.totals[1]
+            with np.errstate(invalid="ignore", divide="ignore"):
+                return S / W - (TS - S) / (TW - W)
         n, x = st[0], st[1]
         with np.errstate(invalid="ignore", divide="ignore"):
             return x / n - (self.total - x) / (self.N - n)
@@ -129,7 +163,10 @@ class Scorer:
         rn, rx = parent_st[0][pk] - n, parent_st[1][pk] - x
         empty = (n < 2) | (rn < 2)
         with np.errstate(invalid="ignore", divide="ignore"):
-            if self.binary:
+            if self.weighted:
+                rest = [np.maximum(p[pk] - a, 0.0) for p, a in zip(parent_st, st)]
+                low = self._weighted_limit(st, rest, self.confidence_level)
+            elif self.binary:
                 low, _ = newcombe_interval(x, np.maximum(n, 1), np.clip(rx, 0, None),
                                            np.maximum(rn, 1),
                                            confidence_level=self.confidence_level)
@@ -188,4 +225,76 @@ class Scorer:
         num = self.total - pos
         rest = np.where(num >= 0, num / np.maximum(self.N - self.min_rows, 1),
                         num / np.maximum(self.N - n, 1))
+        return top - rest
+
+    # -- under row weights: effective counts from the additive sums (rows as units) --------------
+
+    def _effective(self, st):
+        """``(x_eff, n_eff)`` of a 0/1 outcome from ``(rows, event rows, W, A, W2, A2)``, as
+        :func:`probe.design.effective_counts` computes them with the rows as units: the
+        linearisation variance ``sum w^2 (y - p)^2 / W^2``, Kish's ``W^2 / sum w^2`` where the rate
+        is 0 or 1, capped at the rows."""
+        n, W, A, W2, A2 = st[0], st[2], st[3], st[4], st[5]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            p = np.clip(np.where(W > 0, A / W, 0.0), 0.0, 1.0)
+            spread = p * (1.0 - p)
+            v = np.maximum(A2 * (1.0 - 2.0 * p) + p * p * W2, 0.0) / (W * W)
+            n_eff = np.where((spread > 1e-12 * p * p + 1e-300) & (v > 0), spread / v, W * W / W2)
+        n_eff = np.where(W > 0, np.minimum(np.nan_to_num(n_eff), n), 0.0)
+        return p * n_eff, n_eff
+
+    def _mean_var(self, st):
+        """The weighted mean and the linearisation variance of it (rows as units) of a real
+        outcome from ``(rows, W, S, Q, R, W2)``: ``sum w^2 (y - m)^2 / W^2``."""
+        W, S, Q, R, W2 = st[1], st[2], st[3], st[4], st[5]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            m = S / W
+            return m, np.maximum(Q - 2.0 * m * R + m * m * W2, 0.0) / (W * W)
+
+    def _weighted_limit(self, st, rest, level):
+        """Lower limit of (slice rate - rest rate) at ``level``: Newcombe on the effective counts of
+        a 0/1 outcome, Wald from the weighted variances otherwise."""
+        if self.binary:
+            x1, n1 = self._effective(st)
+            x2, n2 = self._effective(rest)
+            return newcombe_interval(np.minimum(x1, n1), np.maximum(n1, 1e-300),
+                                     np.minimum(x2, n2), np.maximum(n2, 1e-300),
+                                     confidence_level=level)[0]
+        (m1, v1), (m2, v2) = self._mean_var(st), self._mean_var(rest)
+        return (m1 - m2) - z_value(level) * np.sqrt(v1 + v2)
+
+    def _rest(self, st):
+        """The rest's sums: the totals minus the slice's (rows first)."""
+        t = self.totals
+        rest = [self.N - st[0]]
+        if self.binary:
+            rest += [self.total - st[1], t[0] - st[2], t[1] - st[3], t[2] - st[4], t[3] - st[5]]
+        else:
+            rest += [t[i] - st[i + 1] for i in range(5)]
+        return [np.maximum(r, 0.0) for r in rest]
+
+    def _weighted_score(self, st):
+        """The weighted score at the search level (see the module notes)."""
+        return self._weighted_limit(st, self._rest(st), self.score_level)
+
+    def _weighted_bound(self, st):
+        """An upper bound on the weighted score of any refinement (the module notes argue it)."""
+        m, w_min = self.min_rows, self.w_min
+        TW, TA = self.totals[0], self.totals[1]
+        if self.binary:
+            n, e, W, A = st[0], st[1], st[2], st[3]
+            short = np.maximum(m - e, 0.0) * w_min
+            with np.errstate(invalid="ignore", divide="ignore"):
+                p_max = np.where(A + short > 0, A / (A + short), 0.0)
+            low, _ = wilson_interval(p_max * n, n, confidence_level=self.score_level)
+            w_least = np.minimum(np.maximum(A, m * w_min), W)
+            with np.errstate(invalid="ignore", divide="ignore"):
+                rest = np.where(TW - w_least > 0, (TA - A) / (TW - w_least), 0.0)
+            return low - rest
+        W, pos = st[1], st[6]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            top = np.minimum(self.y_max, pos / (m * w_min))
+            num = TA - pos
+            rest = np.where(num >= 0, num / np.maximum(TW - m * w_min, 1e-300),
+                            num / np.maximum(TW - W, 1e-300))
         return top - rest
