@@ -8,7 +8,8 @@ A carried slice is listed when, on the estimate part,
    rows it does not hold (one-sided p-values, exact for 0/1 and {-1, 0, 1} outcomes, Welch
    otherwise, at most ``(1 - confidence_level) / carried``: Bonferroni over the carried slices, any
    of which may be checked). A broad slice that is bad only because it holds a listed slice's rows
-   is not listed again; a sharper slice inside a broad listed one is.
+   is not listed again; a sharper slice inside a broad listed one is. Under a design that is not
+   plain the p-values are those of :mod:`.estimate_design` (score test on effective counts).
 
 The order is the estimate part's evidence: the gap's lower limit at the report's level, on rows the
 search did not see, then the p-value; at most ``top`` are listed. The q-values are not touched: they are taken over the whole carried family, fixed before the estimate
@@ -19,19 +20,22 @@ from __future__ import annotations
 
 import numpy as np
 
-from .pvalues import exact_pvalue, is_ternary, real_pvalue
+from ..stats import two_proportion_pvalue
+from .estimate_design import pair_basis
+from .pvalues import exact_pvalue, is_ternary, real_pvalue, welch, welch_pvalue
 
 __all__ = ["listed"]
 
 
-def listed(rows, masks, y, *, binary, direction, confidence_level, top):
+def listed(rows, masks, y, *, binary, direction, confidence_level, top, design=None):
     """Indices into ``rows`` (the dicts of :func:`~probe.slices.estimate.estimate`) of the slices
-    listed, in order; ``masks`` their rows of the estimate part's outcome ``y``."""
+    listed, in order; ``masks`` their rows of the estimate part's outcome ``y``; ``design`` the
+    estimate part's :class:`~probe.slices.estimate_design.Weighting` (None when plain)."""
     sign = 1.0 if direction == "higher" else -1.0
     order = sorted((k for k in range(len(rows)) if sign * rows[k]["gap"].value > 0),
                    key=lambda k: (-rows[k]["evidence"], rows[k]["p"]))
     cut = (1.0 - confidence_level) / max(len(rows), 1)
-    worse = _Worse(y, binary, "greater" if sign > 0 else "less")
+    worse = _Worse(y, binary, "greater" if sign > 0 else "less", design)
     out, covered = [], np.zeros(len(y), dtype=bool)
     for k in order:
         if len(out) >= top:
@@ -52,9 +56,11 @@ class _Worse:
     """One-sided p-values of some rows against others on one outcome (its per-row terms and its
     kind worked out once)."""
 
-    def __init__(self, y, binary, alternative):
-        self.alt, self.binary = alternative, binary
-        if binary:
+    def __init__(self, y, binary, alternative, design=None):
+        self.alt, self.binary, self.design, self.y = alternative, binary, design, y
+        if design is not None:
+            self.wy2 = None if binary else design.weights * y * y
+        elif binary:
             self.events = y == 1
         else:
             self.y, self.y_sq, self.ternary = y, y * y, is_ternary(y)
@@ -64,7 +70,16 @@ class _Worse:
         na, nb = float(np.count_nonzero(a)), float(np.count_nonzero(b))
         if na < 1 or nb < 1:
             return 1.0
-        if self.binary:
+        if self.design is not None:
+            key = np.full(len(self.y), -1, dtype=np.int64)
+            key[b] = 1
+            key[a] = 0
+            c, _ = pair_basis(key, self.y, self.design, self.binary, self.wy2)
+            if self.binary:
+                p = two_proportion_pvalue(c[1], c[0], c[4], c[3], alternative=self.alt)
+            else:
+                p = welch_pvalue(*welch(*c[:3], *c[3:]), alternative=self.alt)
+        elif self.binary:
             p = exact_pvalue(np.count_nonzero(a & self.events), na,
                              np.count_nonzero(b & self.events), nb, alternative=self.alt)
         else:
