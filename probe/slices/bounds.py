@@ -19,6 +19,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..stats import newcombe_interval, wilson_interval, z_value
+from .estimate_design import row_effective, row_mean_var
 
 __all__ = ["Scorer", "lattice_size", "search_level"]
 
@@ -229,38 +230,16 @@ class Scorer:
 
     # -- under row weights: effective counts from the additive sums (rows as units) --------------
 
-    def _effective(self, st):
-        """``(x_eff, n_eff)`` of a 0/1 outcome from ``(rows, event rows, W, A, W2, A2)``, as
-        :func:`probe.design.effective_counts` computes them with the rows as units: the
-        linearisation variance ``sum w^2 (y - p)^2 / W^2``, Kish's ``W^2 / sum w^2`` where the rate
-        is 0 or 1, capped at the rows."""
-        n, W, A, W2, A2 = st[0], st[2], st[3], st[4], st[5]
-        with np.errstate(invalid="ignore", divide="ignore"):
-            p = np.clip(np.where(W > 0, A / W, 0.0), 0.0, 1.0)
-            spread = p * (1.0 - p)
-            v = np.maximum(A2 * (1.0 - 2.0 * p) + p * p * W2, 0.0) / (W * W)
-            n_eff = np.where((spread > 1e-12 * p * p + 1e-300) & (v > 0), spread / v, W * W / W2)
-        n_eff = np.where(W > 0, np.minimum(np.nan_to_num(n_eff), n), 0.0)
-        return p * n_eff, n_eff
-
-    def _mean_var(self, st):
-        """The weighted mean and the linearisation variance of it (rows as units) of a real
-        outcome from ``(rows, W, S, Q, R, W2)``: ``sum w^2 (y - m)^2 / W^2``."""
-        W, S, Q, R, W2 = st[1], st[2], st[3], st[4], st[5]
-        with np.errstate(invalid="ignore", divide="ignore"):
-            m = S / W
-            return m, np.maximum(Q - 2.0 * m * R + m * m * W2, 0.0) / (W * W)
-
     def _weighted_limit(self, st, rest, level):
         """Lower limit of (slice rate - rest rate) at ``level``: Newcombe on the effective counts of
         a 0/1 outcome, Wald from the weighted variances otherwise."""
         if self.binary:
-            x1, n1 = self._effective(st)
-            x2, n2 = self._effective(rest)
+            x1, n1 = row_effective(st[0], *st[2:])
+            x2, n2 = row_effective(rest[0], *rest[2:])
             return newcombe_interval(np.minimum(x1, n1), np.maximum(n1, 1e-300),
                                      np.minimum(x2, n2), np.maximum(n2, 1e-300),
                                      confidence_level=level)[0]
-        (m1, v1), (m2, v2) = self._mean_var(st), self._mean_var(rest)
+        (m1, v1), (m2, v2) = row_mean_var(*st[1:6]), row_mean_var(*rest[1:6])
         return (m1 - m2) - z_value(level) * np.sqrt(v1 + v2)
 
     def _rest(self, st):

@@ -31,7 +31,8 @@ import numpy as np
 from ..design import effective_counts
 from ..stats import Estimate
 
-__all__ = ["Weighting", "effective_basis", "pair_basis", "unit_bootstrap"]
+__all__ = ["Basis", "Weighting", "effective_basis", "row_effective", "row_mean_var",
+           "unit_bootstrap"]
 
 _BOOT_BATCH = 16  # resamples drawn at once (a batch x units matrix of counts)
 
@@ -46,42 +47,107 @@ class Weighting:
     clustered: bool
 
 
+def row_effective(rows, W, A, W2, A2):
+    """``(x_eff, n_eff)`` of a 0/1 outcome from additive sums (rows, ``sum w``, ``sum w y``,
+    ``sum w^2``, ``sum w^2 y``), as :func:`probe.design.effective_counts` computes them with the
+    rows as units: ``n_eff = p (1 - p) / v``, ``v = sum w^2 (y - p)^2 / W^2``; Kish's
+    ``W^2 / sum w^2`` where the rate is 0 or 1; capped at the rows."""
+    with np.errstate(invalid="ignore", divide="ignore"):
+        p = np.clip(np.where(W > 0, A / W, 0.0), 0.0, 1.0)
+        spread = p * (1.0 - p)
+        v = np.maximum(A2 * (1.0 - 2.0 * p) + p * p * W2, 0.0) / (W * W)
+        n_eff = np.where((spread > 1e-12 * p * p + 1e-300) & (v > 0), spread / v, W * W / W2)
+    n_eff = np.where(W > 0, np.minimum(np.nan_to_num(n_eff), rows), 0.0)
+    return p * n_eff, n_eff
+
+
+def row_mean_var(W, S, Q, R, W2):
+    """The weighted mean of a real outcome and its linearisation variance with the rows as units,
+    ``sum w^2 (y - m)^2 / W^2``, from ``sum w``, ``sum w y``, ``sum w^2 y^2``, ``sum w^2 y``,
+    ``sum w^2``."""
+    with np.errstate(invalid="ignore", divide="ignore"):
+        m = S / W
+        return m, np.maximum(Q - 2.0 * m * R + m * m * W2, 0.0) / (W * W)
+
+
+class Basis:
+    """The pseudo-sums and weighted figures of rows against other rows on one estimate part.
+
+    With the rows as units (no clusters, no membership copies) every figure comes from additive
+    per-row terms, summed over the smaller side; otherwise from
+    :func:`probe.design.effective_counts` with the units."""
+
+    def __init__(self, y, wt: Weighting, binary: bool):
+        self.y, self.wt, self.binary = y, wt, binary
+        w = wt.weights
+        wy, w2 = w * y, w * w
+        if wt.units is None:  # rows, w, wy, w2, w2 y (and w y^2, w2 y^2 for a real outcome)
+            terms = [np.ones(len(y)), w, wy, w2, w2 * y]
+            if not binary:
+                terms += [wy * y, w2 * y * y]
+            self.terms = np.column_stack(terms)
+            self.total = self.terms.sum(axis=0)
+            self.buf = np.empty(len(y))
+        else:
+            self.wy2 = None if binary else wy * y
+
+    def _sums(self, mask):
+        np.copyto(self.buf, mask)  # one matrix-vector product, no index array
+        return self.buf @ self.terms
+
+    def pair(self, a, b=None):
+        """``(c, fig)`` of the rows ``a`` against the rows ``b`` (default: every other row):
+        ``c = (n1, s1, sq1, n2, s2, sq2)`` the pseudo-sums on effective counts, ``fig`` = (weight,
+        events, rows, clusters, other weight, other events, n_eff, other n_eff)."""
+        if self.wt.units is None:
+            t1 = self._sums(a)
+            t2 = self.total - t1 if b is None else self._sums(b)
+            t = np.column_stack([t1, t2])
+            rows, W, S, W2, R = t[:5]
+            if self.binary:
+                x_eff, n_eff = row_effective(rows, W, S, W2, R)
+                spread = None
+            else:
+                mean, v = row_mean_var(W, S, t[6], R, W2)
+                with np.errstate(invalid="ignore", divide="ignore"):
+                    spread = np.maximum(t[5] / W - mean * mean, 0.0)
+                    varies = (spread > 1e-12 * mean * mean + 1e-300) & (v > 0)
+                    n_eff = np.where(varies, spread / v, W * W / W2)
+                n_eff = np.where(W > 0, np.minimum(np.nan_to_num(n_eff), rows), 0.0)
+            clusters = (np.nan, np.nan)
+        else:
+            key = np.full(len(self.y), -1, dtype=np.int64)
+            key[~a if b is None else b] = 1
+            key[a] = 0
+            with np.errstate(invalid="ignore", divide="ignore"):  # an empty side (overall rate)
+                eff = effective_counts(key, 2, self.y, self.wt.weights, self.wt.units,
+                                       clustered=self.wt.clustered)
+                mean = eff.events / eff.weight
+            rows, W, S, n_eff, x_eff = eff.rows, eff.weight, eff.events, eff.n_eff, eff.x_eff
+            if not self.binary:
+                inside = key >= 0
+                with np.errstate(invalid="ignore", divide="ignore"):
+                    spread = np.maximum(np.bincount(key[inside], weights=self.wy2[inside],
+                                                    minlength=2) / W - mean * mean, 0.0)
+            clusters = (np.nan, np.nan) if eff.clusters is None else eff.clusters
+        if self.binary:  # the rate rounded above 1 would put x_eff over n_eff
+            s = sq = np.minimum(x_eff, n_eff)
+        else:
+            s, sq = mean * n_eff, mean * mean * n_eff + spread * (n_eff - 1.0)
+        c = (n_eff[0], s[0], sq[0], n_eff[1], s[1], sq[1])
+        fig = (W[0], S[0], rows[0], clusters[0], W[1], S[1], n_eff[0], n_eff[1])
+        return c, fig
+
+
 def effective_basis(masks, y, wt: Weighting, binary: bool):
     """Per slice the pseudo-sums ``c = (n1, s1, sq1, n2, s2, sq2)`` on effective counts (slice,
-    rest), and the weighted figures: ``(weight, events, rows, clusters, rest weight, rest events,
-    n_eff of the slice, n_eff of the rest)``, arrays over slices."""
+    rest) and the weighted figures of :meth:`Basis.pair`, arrays over slices."""
     K = len(masks)
-    c = np.empty((6, K))
-    fig = np.empty((8, K))
-    wy2 = None if binary else wt.weights * y * y
+    c, fig = np.empty((6, K)), np.empty((8, K))
+    basis = Basis(y, wt, binary)
     for k, mask in enumerate(masks):
-        key = (~mask).view(np.int8).astype(np.int64)  # 0: the slice, 1: the rest
-        c[:, k], fig[:, k] = pair_basis(key, y, wt, binary, wy2)
+        c[:, k], fig[:, k] = basis.pair(mask)
     return tuple(c), fig
-
-
-def pair_basis(key, y, wt: Weighting, binary: bool, wy2=None):
-    """The pseudo-sums and weighted figures (as in :func:`effective_basis`) of the rows keyed 0
-    against those keyed 1 (rows keyed -1 left out); ``wy2`` is ``w y^2`` for a real outcome."""
-    w = wt.weights
-    eff = effective_counts(key, 2, y, w, wt.units, clustered=wt.clustered)
-    n_eff = eff.n_eff
-    with np.errstate(invalid="ignore", divide="ignore"):
-        mean = eff.events / eff.weight
-    if binary:  # the rate rounded above 1 would put x_eff over n_eff
-        s = sq = np.minimum(eff.x_eff, n_eff)
-    else:
-        wy2 = w * y * y if wy2 is None else wy2
-        inside = key >= 0
-        with np.errstate(invalid="ignore", divide="ignore"):
-            spread = np.maximum(np.bincount(key[inside], weights=wy2[inside], minlength=2)
-                                / eff.weight - mean * mean, 0.0)
-        s, sq = mean * n_eff, mean * mean * n_eff + spread * (n_eff - 1.0)
-    c = (n_eff[0], s[0], sq[0], n_eff[1], s[1], sq[1])
-    fig = (eff.weight[0], eff.events[0], eff.rows[0],
-           np.nan if eff.clusters is None else eff.clusters[0],
-           eff.weight[1], eff.events[1], n_eff[0], n_eff[1])
-    return c, fig
 
 
 def unit_bootstrap(masks, y, wt: Weighting, rng, confidence_level, rate, gap, n_resamples):

@@ -21,7 +21,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..stats import two_proportion_pvalue
-from .estimate_design import pair_basis
+from .estimate_design import Basis
 from .pvalues import exact_pvalue, is_ternary, real_pvalue, welch, welch_pvalue
 
 __all__ = ["listed"]
@@ -59,7 +59,7 @@ class _Worse:
     def __init__(self, y, binary, alternative, design=None):
         self.alt, self.binary, self.design, self.y = alternative, binary, design, y
         if design is not None:
-            self.wy2 = None if binary else design.weights * y * y
+            self.basis = Basis(y, design, binary)
         elif binary:
             self.events = y == 1
         else:
@@ -71,10 +71,7 @@ class _Worse:
         if na < 1 or nb < 1:
             return 1.0
         if self.design is not None:
-            key = np.full(len(self.y), -1, dtype=np.int64)
-            key[b] = 1
-            key[a] = 0
-            c, _ = pair_basis(key, self.y, self.design, self.binary, self.wy2)
+            c, _ = self.basis.pair(a, b)
             if self.binary:
                 p = two_proportion_pvalue(c[1], c[0], c[4], c[3], alternative=self.alt)
             else:
