@@ -23,6 +23,8 @@ from .estimate_design import row_effective, row_mean_var
 
 __all__ = ["Scorer", "lattice_size", "search_level"]
 
+_GRID = 6  # pieces of the refinements' sizes in the weighted bound
+
 
 def lattice_size(n_levels, depth) -> int:
     """The number of slices the lattice can hold: over every column set of at most ``depth``
@@ -256,20 +258,45 @@ class Scorer:
         """The weighted score at the search level (see the module notes)."""
         return self._weighted_limit(st, self._rest(st), self.score_level)
 
+    def _weighted_rate_bound(self, st):
+        """At least Wilson's lower limit (search level) of any refinement's weighted rate on its
+        effective counts. A refinement with ``n'`` rows has rate at most
+        ``P(n') = a / (a + (n' - e)+ w_min)``, falling with ``n'`` (1 up to ``n' = e``), and at most
+        ``n'`` effective trials; the limit grows with the rate and the trials, so over
+        ``n' in [a_j, a_j+1]`` it is at most ``L(P(a_j), a_j+1)``: the maximum over a geometric
+        grid of ``n'`` from ``clip(e, min_rows, n)`` to ``n`` (with ``L(1, min(e, n))`` for the pure
+        refinements below ``e``)."""
+        n, e, A = st[0], st[1], st[3]
+        m, z_level = self.min_rows, self.score_level
+
+        def limit(p, trials):
+            return wilson_interval(p * trials, trials, confidence_level=z_level)[0]
+
+        pure = np.minimum(e, n)
+        best = np.where(e >= m, limit(np.ones_like(n), np.maximum(pure, 1.0)), -np.inf)
+        n0 = np.clip(e, m, n)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            grid = [n0 * (n / n0) ** (j / _GRID) for j in range(_GRID + 1)]
+            for lo, hi in zip(grid, grid[1:] or grid):
+                short = np.maximum(lo - e, 0.0) * self.w_min
+                p = np.where(A + short > 0, A / (A + short), 0.0)
+                best = np.maximum(best, limit(np.clip(p, 0.0, 1.0), hi))
+        return best
+
+    def _weighted_rest_bound(self, st):
+        """At most the rest's weighted rate beside any refinement (see the module notes)."""
+        W, A = st[2], st[3]
+        TW, TA = self.totals[0], self.totals[1]
+        w_least = np.minimum(np.maximum(A, self.min_rows * self.w_min), W)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            return np.where(TW - w_least > 0, (TA - A) / (TW - w_least), 0.0)
+
     def _weighted_bound(self, st):
         """An upper bound on the weighted score of any refinement (the module notes argue it)."""
         m, w_min = self.min_rows, self.w_min
         TW, TA = self.totals[0], self.totals[1]
         if self.binary:
-            n, e, W, A = st[0], st[1], st[2], st[3]
-            short = np.maximum(m - e, 0.0) * w_min
-            with np.errstate(invalid="ignore", divide="ignore"):
-                p_max = np.where(A + short > 0, A / (A + short), 0.0)
-            low, _ = wilson_interval(p_max * n, n, confidence_level=self.score_level)
-            w_least = np.minimum(np.maximum(A, m * w_min), W)
-            with np.errstate(invalid="ignore", divide="ignore"):
-                rest = np.where(TW - w_least > 0, (TA - A) / (TW - w_least), 0.0)
-            return low - rest
+            return self._weighted_rate_bound(st) - self._weighted_rest_bound(st)
         W, pos = st[1], st[6]
         with np.errstate(invalid="ignore", divide="ignore"):
             top = np.minimum(self.y_max, pos / (m * w_min))
