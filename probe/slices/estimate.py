@@ -18,10 +18,10 @@ from scipy import special
 
 from ..stats import (Estimate, bh_adjust, newcombe_interval, ratio_interval,
                      two_proportion_pvalue, wilson_interval, z_value)
-from .estimate_design import Weighting, effective_basis, unit_bootstrap
+from .estimate_design import Basis, Weighting, effective_basis, unit_bootstrap
 from .pvalues import exact_pvalue, is_ternary, real_pvalue, welch, welch_interval, welch_pvalue
 
-__all__ = ["N_RESAMPLES", "Weighting", "at_level", "carry", "closed_form", "estimate",
+__all__ = ["Basis", "N_RESAMPLES", "Weighting", "at_level", "carry", "closed_form", "estimate",
            "overall_estimate", "rate_estimates"]
 
 N_RESAMPLES = 2000  # bootstrap resamples of the carried slices
@@ -80,13 +80,13 @@ def rate_estimates(s, n, sq, binary, cl, limits=None):
     return [Estimate(float(a), float(b), float(c), method) for a, b, c in zip(value, low, high)]
 
 
-def overall_estimate(y, binary, cl, design: Weighting | None = None) -> Estimate:
+def overall_estimate(y, binary, cl, design: Basis | None = None) -> Estimate:
     """The rate over all the base rows: on the counts, or weighted on effective counts."""
     limits = (float(y.min()), float(y.max())) if len(y) else None
     if design is None:
         return rate_estimates(np.array([y.sum()]), np.array([float(len(y))]),
                               np.array([(y * y).sum()]), binary, cl, limits)[0]
-    c, fig = effective_basis([np.ones(len(y), dtype=bool)], y, design, binary)
+    c, fig = effective_basis([np.ones(len(y), dtype=bool)], design)
     rate = rate_estimates(c[1], c[0], c[2], binary, cl, limits)[0]
     return Estimate(float(fig[1, 0] / fig[0, 0]), rate.low, rate.high, rate.method,
                     float(fig[6, 0]))
@@ -147,7 +147,7 @@ def rank_weights(k: int) -> np.ndarray:
 
 
 def estimate(carried, masks, y, *, binary, direction, confidence_level, interval, family, rng,
-             ranked=False, design: Weighting | None = None):
+             ranked=False, design: Basis | None = None):
     """Per carried slice: rates, gap, ratio, p-value, q-value and evidence on the estimate part.
 
     ``masks`` are the carried slices' rows of ``y`` (the outcome as given, not oriented);
@@ -157,8 +157,8 @@ def estimate(carried, masks, y, *, binary, direction, confidence_level, interval
     *evidence* orders the list: the lower limit of the gap in the bad direction at the report's
     level, on these rows the search did not see (the search's own level, far stricter, would favour
     broad slices with small gaps there). Each dict also holds what :func:`at_level` needs to
-    give the estimates at any other level. ``design``: the estimate part's weights and units
-    when the design is not plain (:mod:`.estimate_design`)."""
+    give the estimates at any other level. ``design``: the estimate part's
+    :class:`~.estimate_design.Basis` when the design is not plain."""
     K = len(carried)
     if K == 0:
         return []
@@ -227,7 +227,7 @@ def _weighted(carried, masks, y, *, binary, direction, confidence_level, interva
               ranked, design):
     """:func:`estimate` on effective counts (:mod:`.estimate_design`)."""
     K, cl = len(carried), confidence_level
-    c, fig = effective_basis(masks, y, design, binary)
+    c, fig = effective_basis(masks, design)
     limits = (float(y.min()), float(y.max())) if len(y) and not binary else None
     alt = "greater" if direction == "higher" else "less"
     sign = 1.0 if alt == "greater" else -1.0
@@ -249,7 +249,7 @@ def _weighted(carried, masks, y, *, binary, direction, confidence_level, interva
     evidence = np.where(np.isnan(evidence), -np.inf, evidence)
     boot = [None] * K
     if interval == "bootstrap":
-        rate, gap, boot = unit_bootstrap(masks, y, design, rng, cl, rate, gap, N_RESAMPLES)
+        rate, gap, boot = unit_bootstrap(masks, y, design.wt, rng, cl, rate, gap, N_RESAMPLES)
     p, q = _q_values(p, family, ranked)
     total = float(fig[0, 0] + fig[4, 0])
     return [

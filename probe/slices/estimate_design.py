@@ -79,21 +79,29 @@ class Basis:
 
     def __init__(self, y, wt: Weighting, binary: bool):
         self.y, self.wt, self.binary = y, wt, binary
-        w = wt.weights
+        self._terms = None
+        if wt.units is None:
+            self.total = np.array([float(len(y))] + [float(t.sum()) for t in self._term_list()])
+        elif not binary:
+            self.wy2 = wt.weights * y * y
+
+    def _term_list(self):
+        """w, w y, w^2, w^2 y (and w y^2, w^2 y^2 for a real outcome); with the rows first, the
+        additive terms of :func:`row_effective` and :func:`row_mean_var`."""
+        w, y = self.wt.weights, self.y
         wy, w2 = w * y, w * w
-        if wt.units is None:  # rows, w, wy, w2, w2 y (and w y^2, w2 y^2 for a real outcome)
-            terms = [np.ones(len(y)), w, wy, w2, w2 * y]
-            if not binary:
-                terms += [wy * y, w2 * y * y]
-            self.terms = np.column_stack(terms)
-            self.total = self.terms.sum(axis=0)
-            self.buf = np.empty(len(y))
-        else:
-            self.wy2 = None if binary else wy * y
+        return [w, wy, w2, w2 * y] + ([] if self.binary else [wy * y, w2 * y * y])
 
     def _sums(self, mask):
-        np.copyto(self.buf, mask)  # one matrix-vector product, no index array
-        return self.buf @ self.terms
+        """The terms summed over ``mask``: over its rows, or the total less the other rows."""
+        k = np.count_nonzero(mask)
+        if k == len(mask):
+            return self.total
+        if self._terms is None:  # one contiguous row per term, built on first use
+            self._terms = np.stack([np.ones(len(self.y))] + self._term_list())
+        if k <= len(mask) // 2:
+            return self._terms[:, np.flatnonzero(mask)].sum(axis=1)
+        return self.total - self._terms[:, np.flatnonzero(~mask)].sum(axis=1)
 
     def pair(self, a, b=None):
         """``(c, fig)`` of the rows ``a`` against the rows ``b`` (default: every other row):
@@ -139,12 +147,11 @@ class Basis:
         return c, fig
 
 
-def effective_basis(masks, y, wt: Weighting, binary: bool):
+def effective_basis(masks, basis: Basis):
     """Per slice the pseudo-sums ``c = (n1, s1, sq1, n2, s2, sq2)`` on effective counts (slice,
     rest) and the weighted figures of :meth:`Basis.pair`, arrays over slices."""
     K = len(masks)
     c, fig = np.empty((6, K)), np.empty((8, K))
-    basis = Basis(y, wt, binary)
     for k, mask in enumerate(masks):
         c[:, k], fig[:, k] = basis.pair(mask)
     return tuple(c), fig

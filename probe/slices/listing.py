@@ -21,7 +21,6 @@ from __future__ import annotations
 import numpy as np
 
 from ..stats import two_proportion_pvalue
-from .estimate_design import Basis
 from .pvalues import exact_pvalue, is_ternary, real_pvalue, welch, welch_pvalue
 
 __all__ = ["listed"]
@@ -30,7 +29,7 @@ __all__ = ["listed"]
 def listed(rows, masks, y, *, binary, direction, confidence_level, top, design=None):
     """Indices into ``rows`` (the dicts of :func:`~probe.slices.estimate.estimate`) of the slices
     listed, in order; ``masks`` their rows of the estimate part's outcome ``y``; ``design`` the
-    estimate part's :class:`~probe.slices.estimate_design.Weighting` (None when plain)."""
+    estimate part's :class:`~probe.slices.estimate_design.Basis` (None when plain)."""
     sign = 1.0 if direction == "higher" else -1.0
     order = sorted((k for k in range(len(rows)) if sign * rows[k]["gap"].value > 0),
                    key=lambda k: (-rows[k]["evidence"], rows[k]["p"]))
@@ -59,7 +58,7 @@ class _Worse:
     def __init__(self, y, binary, alternative, design=None):
         self.alt, self.binary, self.design, self.y = alternative, binary, design, y
         if design is not None:
-            self.basis = Basis(y, design, binary)
+            self.basis = design
         elif binary:
             self.events = y == 1
         else:

@@ -12,7 +12,7 @@ from ..encode import Encoding
 from ..errors import PlanError
 from ..options import SliceOptions
 from .bounds import search_level
-from .estimate import N_RESAMPLES, Weighting, carry, estimate, overall_estimate
+from .estimate import N_RESAMPLES, Basis, Weighting, carry, estimate, overall_estimate
 from .findings import CANDIDATES_NOTE, SliceFindings, make_slice
 from .lattice import Lattice
 from .listing import listed
@@ -119,8 +119,9 @@ def run(enc: Encoding, label: str, inp: Inputs) -> SliceFindings:
     del s_codes, s_y, s_w
     e_codes = _Rows(rows.codes, est_rows) if o.split else rows.codes
     e_y = _take([rows.y], est_rows)[0] if o.split else rows.y
-    e_design = None if rows.weights is None else Weighting(
-        *(rows.take(est_rows) if o.split else (rows.weights, rows.units)), rows.clustered)
+    e_design = None if rows.weights is None else Basis(e_y, Weighting(
+        *(rows.take(est_rows) if o.split else (rows.weights, rows.units)), rows.clustered),
+        inp.binary)
     carried, masks = carry(ranked, e_codes, inp.similarity, n_carry)
     family = len(carried) if o.split else n_scored  # fixed before the estimate part is looked at
     ests = estimate(carried, masks, e_y, binary=inp.binary, direction=inp.direction,
@@ -134,8 +135,8 @@ def run(enc: Encoding, label: str, inp: Inputs) -> SliceFindings:
     )
     alpha = 1.0 - inp.confidence_level
     significant = sum(s.q_value <= alpha for s in found)
-    all_design = None if rows.weights is None else Weighting(rows.weights, rows.units,
-                                                             rows.clustered)
+    all_design = None if rows.weights is None else Basis(
+        rows.y, Weighting(rows.weights, rows.units, rows.clustered), inp.binary)
     overall = overall_estimate(rows.y, inp.binary, inp.confidence_level, all_design)
     notes = list(enc.notes)
     if not found:
@@ -158,7 +159,7 @@ def run(enc: Encoding, label: str, inp: Inputs) -> SliceFindings:
         settings["units"] = "clusters" if rows.clustered else (
             "rows" if rows.source is None else "rows (membership copies together)")
         if rows.clustered:
-            settings["clusters_estimated"] = int(len(np.unique(e_design.units)))
+            settings["clusters_estimated"] = int(len(np.unique(e_design.wt.units)))
     return SliceFindings(
         metric=label, direction=inp.direction, overall=overall, family=int(family),
         significant=int(significant), selected=not o.split,
