@@ -103,14 +103,26 @@ class Basis:
             return self._terms[:, np.flatnonzero(mask)].sum(axis=1)
         return self.total - self._terms[:, np.flatnonzero(~mask)].sum(axis=1)
 
-    def pair(self, a, b=None):
-        """``(c, fig)`` of the rows ``a`` against the rows ``b`` (default: every other row):
-        ``c = (n1, s1, sq1, n2, s2, sq2)`` the pseudo-sums on effective counts, ``fig`` = (weight,
-        events, rows, clusters, other weight, other events, n_eff, other n_eff)."""
+    @property
+    def additive(self) -> bool:
+        """The rows are the units: every figure comes from sums of per-row terms
+        (:meth:`sums`, and :meth:`pair` with ``sums``)."""
+        return self.wt.units is None
+
+    def sums(self, mask) -> np.ndarray:
+        """The per-row terms summed over ``mask`` (rows first; additive bases only)."""
+        return self._sums(mask)
+
+    def pair(self, a, b=None, *, sums=None):
+        """``(c, fig)`` of the rows ``a`` against the rows ``b`` (default: every other row), or of
+        the term ``sums`` of two sets of rows (additive bases): ``c = (n1, s1, sq1, n2, s2, sq2)``
+        the pseudo-sums on effective counts, ``fig`` = (weight, events, rows, clusters, other
+        weight, other events, n_eff, other n_eff)."""
         if self.wt.units is None:
-            t1 = self._sums(a)
-            t2 = self.total - t1 if b is None else self._sums(b)
-            t = np.column_stack([t1, t2])
+            if sums is None:
+                t1 = self._sums(a)
+                sums = (t1, self.total - t1 if b is None else self._sums(b))
+            t = np.column_stack(sums)
             rows, W, S, W2, R = t[:5]
             if self.binary:
                 x_eff, n_eff = row_effective(rows, W, S, W2, R)

@@ -35,6 +35,8 @@ def listed(rows, masks, y, *, binary, direction, confidence_level, top, design=N
                    key=lambda k: (-rows[k]["evidence"], rows[k]["p"]))
     cut = (1.0 - confidence_level) / max(len(rows), 1)
     worse = _Worse(y, binary, "greater" if sign > 0 else "less", design)
+    if design is not None and design.additive:
+        return _listed_by_sums(order, masks, design, worse, cut, top)
     out, covered = [], np.zeros(len(y), dtype=bool)
     for k in order:
         if len(out) >= top:
@@ -48,6 +50,30 @@ def listed(rows, masks, y, *, binary, direction, confidence_level, top, design=N
                 continue
         out.append(k)
         covered |= mask
+    return out
+
+
+def _listed_by_sums(order, masks, basis, worse, cut, top):
+    """:func:`listed` from sums of per-row terms (weights with the rows as units): the rows in no
+    listed slice and those of the listed ones are sums by inclusion and exclusion, so only a
+    slice's overlap with the listed rows is summed anew."""
+    out, covered = [], np.zeros(len(masks[0]) if masks else 0, dtype=bool)
+    s_cov = np.zeros_like(basis.total)
+    for k in order:
+        if len(out) >= top:
+            break
+        mask = masks[k]
+        s_mask = basis.sums(mask)
+        inter = mask & covered
+        s_inter = basis.sums(inter) if out else np.zeros_like(s_cov)
+        if out and s_inter[0] > 0:
+            alone = (s_mask - s_inter, basis.total - s_mask - s_cov + s_inter)
+            if (worse.pvalue_sums(*alone) > cut
+                    and worse.pvalue_sums(s_mask, s_cov - s_inter) > cut):
+                continue
+        out.append(k)
+        covered |= mask
+        s_cov = s_cov + s_mask - s_inter
     return out
 
 
@@ -70,12 +96,8 @@ class _Worse:
         if na < 1 or nb < 1:
             return 1.0
         if self.design is not None:
-            c, _ = self.basis.pair(a, b)
-            if self.binary:
-                p = two_proportion_pvalue(c[1], c[0], c[4], c[3], alternative=self.alt)
-            else:
-                p = welch_pvalue(*welch(*c[:3], *c[3:]), alternative=self.alt)
-        elif self.binary:
+            return self._design_p(self.basis.pair(a, b)[0])
+        if self.binary:
             p = exact_pvalue(np.count_nonzero(a & self.events), na,
                              np.count_nonzero(b & self.events), nb, alternative=self.alt)
         else:
@@ -83,3 +105,19 @@ class _Worse:
             p = real_pvalue(*sa, na, *sb, nb, ternary=self.ternary, alternative=self.alt)
         p = float(np.asarray(p).ravel()[0])
         return 1.0 if np.isnan(p) else p
+
+    def _design_p(self, c) -> float:
+        """The score test (0/1) or Welch's (real) on pseudo-sums of effective counts."""
+        if self.binary:
+            p = two_proportion_pvalue(c[1], c[0], c[4], c[3], alternative=self.alt)
+        else:
+            p = welch_pvalue(*welch(*c[:3], *c[3:]), alternative=self.alt)
+        p = float(np.asarray(p).ravel()[0])
+        return 1.0 if np.isnan(p) else p
+
+    def pvalue_sums(self, t1, t2) -> float:
+        """As :meth:`pvalue`, from the term sums of the two sets of rows (additive bases)."""
+        if t1[0] < 0.5 or t2[0] < 0.5:
+            return 1.0
+        c, _ = self.basis.pair(None, sums=(t1, t2))
+        return self._design_p(c)
