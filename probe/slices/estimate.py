@@ -147,7 +147,7 @@ def rank_weights(k: int) -> np.ndarray:
 
 
 def estimate(carried, masks, y, *, binary, direction, confidence_level, interval, family, rng,
-             ranked=False, design: Basis | None = None):
+             ranked=False, design: Basis | None = None, sums=None):
     """Per carried slice: rates, gap, ratio, p-value, q-value and evidence on the estimate part.
 
     ``masks`` are the carried slices' rows of ``y`` (the outcome as given, not oriented);
@@ -158,14 +158,15 @@ def estimate(carried, masks, y, *, binary, direction, confidence_level, interval
     level, on these rows the search did not see (the search's own level, far stricter, would favour
     broad slices with small gaps there). Each dict also holds what :func:`at_level` needs to
     give the estimates at any other level. ``design``: the estimate part's
-    :class:`~.estimate_design.Basis` when the design is not plain."""
+    :class:`~.estimate_design.Basis` when the design is not plain (``sums``: the slices' term
+    sums when counted already, :func:`~.estimate_design.counted_sums`)."""
     K = len(carried)
     if K == 0:
         return []
     if design is not None:
         return _weighted(carried, masks, y, binary=binary, direction=direction,
                          confidence_level=confidence_level, interval=interval, family=family,
-                         rng=rng, ranked=ranked, design=design)
+                         rng=rng, ranked=ranked, design=design, sums=sums)
     cl = confidence_level
     # per slice, with no K x rows float matrix: counts for a 0/1 outcome, else one float row buffer
     n1 = np.array([np.count_nonzero(m) for m in masks], dtype=float)
@@ -224,10 +225,10 @@ def _q_values(p, family, ranked):
 
 
 def _weighted(carried, masks, y, *, binary, direction, confidence_level, interval, family, rng,
-              ranked, design):
+              ranked, design, sums):
     """:func:`estimate` on effective counts (:mod:`.estimate_design`)."""
     K, cl = len(carried), confidence_level
-    c, fig = effective_basis(masks, design)
+    c, fig = effective_basis(masks, design, sums)
     limits = (float(y.min()), float(y.max())) if len(y) and not binary else None
     alt = "greater" if direction == "higher" else "less"
     sign = 1.0 if alt == "greater" else -1.0

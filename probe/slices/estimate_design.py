@@ -30,8 +30,9 @@ import numpy as np
 
 from ..design import effective_counts
 from ..stats import Estimate
+from .counter import SliceCounter
 
-__all__ = ["Basis", "Weighting", "effective_basis", "row_effective", "row_mean_var",
+__all__ = ["Basis", "Weighting", "counted_sums", "effective_basis", "row_effective", "row_mean_var",
            "unit_bootstrap"]
 
 _BOOT_BATCH = 16  # resamples drawn at once (a batch x units matrix of counts)
@@ -51,14 +52,18 @@ def row_effective(rows, W, A, W2, A2):
     """``(x_eff, n_eff)`` of a 0/1 outcome from additive sums (rows, ``sum w``, ``sum w y``,
     ``sum w^2``, ``sum w^2 y``), as :func:`probe.design.effective_counts` computes them with the
     rows as units: ``n_eff = p (1 - p) / v``, ``v = sum w^2 (y - p)^2 / W^2``; Kish's
-    ``W^2 / sum w^2`` where the rate is 0 or 1; capped at the rows."""
+    ``W^2 / sum w^2`` where the rate is 0 or 1; capped at the rows. The weights are positive, so
+    an empty cell (``W = 0``) has no rows and gets 0."""
     with np.errstate(invalid="ignore", divide="ignore"):
-        p = np.clip(np.where(W > 0, A / W, 0.0), 0.0, 1.0)
+        p = np.clip(A / W, 0.0, 1.0)
         spread = p * (1.0 - p)
-        v = np.maximum(A2 * (1.0 - 2.0 * p) + p * p * W2, 0.0) / (W * W)
-        n_eff = np.where((spread > 1e-12 * p * p + 1e-300) & (v > 0), spread / v, W * W / W2)
-    n_eff = np.where(W > 0, np.minimum(np.nan_to_num(n_eff), rows), 0.0)
-    return p * n_eff, n_eff
+        WW = W * W
+        v = A2 * (1.0 - 2.0 * p) + p * p * W2  # W^2 times the variance
+        n_eff = np.where((spread > 1e-12 * p * p + 1e-300) & (v > 0), spread * WW / v, WW / W2)
+        n_eff = np.fmin(n_eff, rows)  # NaN (no rows) -> 0
+        x_eff = p * n_eff
+    x_eff[n_eff == 0] = 0.0
+    return x_eff, n_eff
 
 
 def row_mean_var(W, S, Q, R, W2):
@@ -159,13 +164,34 @@ class Basis:
         return c, fig
 
 
-def effective_basis(masks, basis: Basis):
+def counted_sums(carried, codes, n_levels, y, weights):
+    """The term sums of :class:`Basis` (rows, w, w y, w^2, w^2 y) of every carried slice of a 0/1
+    outcome, counted like the search counts (:class:`~probe.slices.counter.SliceCounter`: a few
+    shared passes over the rows) instead of one pass per slice."""
+    counter = SliceCounter(codes, n_levels, y.astype(np.uint8), True, weights)
+    sets = sorted({entry.cols for entry in carried}, key=lambda cols: (len(cols), cols))
+    stats = {}
+    for d in sorted({len(cols) for cols in sets}):
+        stats.update(counter.count([cols for cols in sets if len(cols) == d]))
+    out = []
+    for entry in carried:
+        key = np.ravel_multi_index(entry.levels, [n_levels[c] for c in entry.cols])
+        n, _, W, A, W2, A2 = (float(a[key]) for a in stats[entry.cols])
+        out.append(np.array([n, W, A, W2, A2]))
+    return out
+
+
+def effective_basis(masks, basis: Basis, sums=None):
     """Per slice the pseudo-sums ``c = (n1, s1, sq1, n2, s2, sq2)`` on effective counts (slice,
-    rest) and the weighted figures of :meth:`Basis.pair`, arrays over slices."""
+    rest) and the weighted figures of :meth:`Basis.pair`, arrays over slices; ``sums``: the
+    slices' term sums when counted already (:func:`counted_sums`)."""
     K = len(masks)
     c, fig = np.empty((6, K)), np.empty((8, K))
     for k, mask in enumerate(masks):
-        c[:, k], fig[:, k] = basis.pair(mask)
+        if sums is None:
+            c[:, k], fig[:, k] = basis.pair(mask)
+        else:
+            c[:, k], fig[:, k] = basis.pair(None, sums=(sums[k], basis.total - sums[k]))
     return tuple(c), fig
 
 

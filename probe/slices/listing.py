@@ -26,17 +26,18 @@ from .pvalues import exact_pvalue, is_ternary, real_pvalue, welch, welch_pvalue
 __all__ = ["listed"]
 
 
-def listed(rows, masks, y, *, binary, direction, confidence_level, top, design=None):
+def listed(rows, masks, y, *, binary, direction, confidence_level, top, design=None, sums=None):
     """Indices into ``rows`` (the dicts of :func:`~probe.slices.estimate.estimate`) of the slices
     listed, in order; ``masks`` their rows of the estimate part's outcome ``y``; ``design`` the
-    estimate part's :class:`~probe.slices.estimate_design.Basis` (None when plain)."""
+    estimate part's :class:`~probe.slices.estimate_design.Basis` (None when plain) and ``sums``
+    the slices' term sums when counted already."""
     sign = 1.0 if direction == "higher" else -1.0
     order = sorted((k for k in range(len(rows)) if sign * rows[k]["gap"].value > 0),
                    key=lambda k: (-rows[k]["evidence"], rows[k]["p"]))
     cut = (1.0 - confidence_level) / max(len(rows), 1)
     worse = _Worse(y, binary, "greater" if sign > 0 else "less", design)
     if design is not None and design.additive:
-        return _listed_by_sums(order, masks, design, worse, cut, top)
+        return _listed_by_sums(order, masks, design, worse, cut, top, sums)
     out, covered = [], np.zeros(len(y), dtype=bool)
     for k in order:
         if len(out) >= top:
@@ -53,7 +54,7 @@ def listed(rows, masks, y, *, binary, direction, confidence_level, top, design=N
     return out
 
 
-def _listed_by_sums(order, masks, basis, worse, cut, top):
+def _listed_by_sums(order, masks, basis, worse, cut, top, sums=None):
     """:func:`listed` from sums of per-row terms (weights with the rows as units): the rows in no
     listed slice and those of the listed ones are sums by inclusion and exclusion, so only a
     slice's overlap with the listed rows is summed anew."""
@@ -63,7 +64,7 @@ def _listed_by_sums(order, masks, basis, worse, cut, top):
         if len(out) >= top:
             break
         mask = masks[k]
-        s_mask = basis.sums(mask)
+        s_mask = basis.sums(mask) if sums is None else sums[k]
         inter = mask & covered
         s_inter = basis.sums(inter) if out else np.zeros_like(s_cov)
         if out and s_inter[0] > 0:

@@ -13,6 +13,7 @@ from ..errors import PlanError
 from ..options import SliceOptions
 from .bounds import search_level
 from .estimate import N_RESAMPLES, Basis, Weighting, carry, estimate, overall_estimate
+from .estimate_design import counted_sums
 from .findings import CANDIDATES_NOTE, SliceFindings, make_slice
 from .lattice import Lattice
 from .listing import listed
@@ -124,11 +125,14 @@ def run(enc: Encoding, label: str, inp: Inputs) -> SliceFindings:
         inp.binary)
     carried, masks = carry(ranked, e_codes, inp.similarity, n_carry)
     family = len(carried) if o.split else n_scored  # fixed before the estimate part is looked at
+    sums = None  # weighted 0/1 with rows as units: the carried slices counted in shared passes
+    if e_design is not None and e_design.additive and inp.binary and carried:
+        sums = counted_sums(carried, e_codes, n_levels, e_y, e_design.wt.weights)
     ests = estimate(carried, masks, e_y, binary=inp.binary, direction=inp.direction,
                     confidence_level=inp.confidence_level, interval=o.interval, family=family,
-                    rng=inp.rng, ranked=o.split, design=e_design)
+                    rng=inp.rng, ranked=o.split, design=e_design, sums=sums)
     worse = listed(ests, masks, e_y, binary=inp.binary, direction=inp.direction,
-                   confidence_level=inp.confidence_level, top=o.top, design=e_design)
+                   confidence_level=inp.confidence_level, top=o.top, design=e_design, sums=sums)
     found = tuple(
         make_slice(rank, carried[k], ests[k], enc, label, inp.confidence_level, inp.binary)
         for rank, k in enumerate(worse, start=1)
