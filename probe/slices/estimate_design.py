@@ -84,29 +84,27 @@ class Basis:
 
     def __init__(self, y, wt: Weighting, binary: bool):
         self.y, self.wt, self.binary = y, wt, binary
-        self._terms = None
         if wt.units is None:
-            self.total = np.array([float(len(y))] + [float(t.sum()) for t in self._term_list()])
+            self.total = self._gathered(slice(None))
         elif not binary:
             self.wy2 = wt.weights * y * y
-
-    def _term_list(self):
-        """w, w y, w^2, w^2 y (and w y^2, w^2 y^2 for a real outcome); with the rows first, the
-        additive terms of :func:`row_effective` and :func:`row_mean_var`."""
-        w, y = self.wt.weights, self.y
-        wy, w2 = w * y, w * w
-        return [w, wy, w2, w2 * y] + ([] if self.binary else [wy * y, w2 * y * y])
 
     def _sums(self, mask):
         """The terms summed over ``mask``: over its rows, or the total less the other rows."""
         k = np.count_nonzero(mask)
         if k == len(mask):
             return self.total
-        if self._terms is None:  # one contiguous row per term, built on first use
-            self._terms = np.stack([np.ones(len(self.y))] + self._term_list())
         if k <= len(mask) // 2:
-            return self._terms[:, np.flatnonzero(mask)].sum(axis=1)
-        return self.total - self._terms[:, np.flatnonzero(~mask)].sum(axis=1)
+            return self._gathered(np.flatnonzero(mask))
+        return self.total - self._gathered(np.flatnonzero(~mask))
+
+    def _gathered(self, idx):
+        """Rows, w, w y, w^2, w^2 y (and w y^2, w^2 y^2 for a real outcome) summed over the rows
+        ``idx``: the additive terms of :func:`row_effective` and :func:`row_mean_var`."""
+        w, y = self.wt.weights[idx], self.y[idx]
+        wy, w2 = w * y, w * w
+        terms = [w, wy, w2, w2 * y] + ([] if self.binary else [wy * y, w2 * y * y])
+        return np.array([float(len(w))] + [float(t.sum()) for t in terms])
 
     @property
     def additive(self) -> bool:
