@@ -146,6 +146,8 @@ class SliceCounter:
             if self.binary:
                 key *= 2
                 key += self.y[rows]
+            if values:  # one conversion of the key for every sum (bincount's own, else)
+                key = key.astype(np.intp)
             weighted_bincount(key, cells, out=hist[0])
             for h, v in zip(hist[1:], values):
                 weighted_bincount(key, cells, v[rows], out=h)
