@@ -16,10 +16,9 @@ import math
 import numpy as np
 from scipy import special
 
-from ..stats import (Estimate, bh_adjust, newcombe_interval, ratio_interval,
-                     two_proportion_pvalue, wilson_interval, z_value)
-from .estimate_design import Basis, Weighting, effective_basis, unit_bootstrap
-from .pvalues import exact_pvalue, is_ternary, real_pvalue, welch, welch_interval, welch_pvalue
+from ..stats import Estimate, bh_adjust, newcombe_interval, ratio_interval, wilson_interval, z_value
+from .estimate_design import Basis, Weighting, design_pvalue, effective_basis, unit_bootstrap
+from .pvalues import exact_pvalue, is_ternary, real_pvalue, welch, welch_interval
 
 __all__ = ["Basis", "N_RESAMPLES", "Weighting", "at_level", "carry", "closed_form", "estimate",
            "overall_estimate", "rate_estimates"]
@@ -239,13 +238,12 @@ def _weighted(carried, masks, y, *, binary, direction, confidence_level, interva
     rate, gap, ratio = closed_form(c, binary, cl, limits)
     rate, gap, ratio = (list(t) for t in zip(*(_designed(*e, wk) for e, wk in
                                                zip(zip(rate, gap, ratio), weighted))))
+    p = design_pvalue(c, binary, alt)
     if binary:
-        p = two_proportion_pvalue(c[1], c[0], c[4], c[3], alternative=alt)
         bad1, bad2 = (c[1], c[4]) if sign > 0 else (c[0] - c[1], c[3] - c[4])
         evidence = newcombe_interval(bad1, c[0], bad2, c[3], confidence_level=cl)[0]
     else:
-        diff, se, df = welch(*c[:3], *c[3:])
-        p = welch_pvalue(diff, se, df, alternative=alt)
+        diff, se, _ = welch(*c[:3], *c[3:])
         evidence = sign * diff - z_value(cl) * se
     evidence = np.where(np.isnan(evidence), -np.inf, evidence)
     boot = [None] * K

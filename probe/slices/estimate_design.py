@@ -29,10 +29,11 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..design import effective_counts
-from ..stats import Estimate
+from ..stats import Estimate, two_proportion_pvalue
 from .counter import SliceCounter
+from .pvalues import welch, welch_pvalue
 
-__all__ = ["Basis", "Weighting", "counted_sums", "effective_basis", "row_effective", "row_mean_var",
+__all__ = ["Basis", "Weighting", "counted_sums", "design_pvalue", "effective_basis", "row_effective", "row_mean_var",
            "unit_bootstrap"]
 
 _BOOT_BATCH = 16  # resamples drawn at once (a batch x units matrix of counts)
@@ -160,6 +161,15 @@ class Basis:
         c = (n_eff[0], s[0], sq[0], n_eff[1], s[1], sq[1])
         fig = (W[0], S[0], rows[0], clusters[0], W[1], S[1], n_eff[0], n_eff[1])
         return c, fig
+
+
+def design_pvalue(c, binary: bool, alternative: str) -> np.ndarray:
+    """The one-sided p-value of the first rows against the second from the pseudo-sums ``c``
+    (:meth:`Basis.pair`): the pooled score z test on the effective counts for a 0/1 outcome,
+    Welch's t for a real one (see the module notes)."""
+    if binary:
+        return two_proportion_pvalue(c[1], c[0], c[4], c[3], alternative=alternative)
+    return welch_pvalue(*welch(*c[:3], *c[3:]), alternative=alternative)
 
 
 def counted_sums(carried, codes, n_levels, y, weights):

@@ -20,8 +20,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..stats import two_proportion_pvalue
-from .pvalues import exact_pvalue, is_ternary, real_pvalue, welch, welch_pvalue
+from .estimate_design import design_pvalue
+from .pvalues import exact_pvalue, is_ternary, real_pvalue
 
 __all__ = ["listed"]
 
@@ -109,11 +109,7 @@ class _Worse:
 
     def _design_p(self, c) -> float:
         """The score test (0/1) or Welch's (real) on pseudo-sums of effective counts."""
-        if self.binary:
-            p = two_proportion_pvalue(c[1], c[0], c[4], c[3], alternative=self.alt)
-        else:
-            p = welch_pvalue(*welch(*c[:3], *c[3:]), alternative=self.alt)
-        p = float(np.asarray(p).ravel()[0])
+        p = float(np.asarray(design_pvalue(c, self.binary, self.alt)).ravel()[0])
         return 1.0 if np.isnan(p) else p
 
     def pvalue_sums(self, t1, t2) -> float:
