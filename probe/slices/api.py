@@ -172,14 +172,9 @@ def search_slices(X: pd.DataFrame, outcome, *, base=None, direction: str = "high
 
 def _search(X, outcome, base, label, direction, opts, confidence_level, rng, encoding, similarity,
             strata, sample_weight, design) -> SliceFindings:
-    n = len(X) if isinstance(X, pd.DataFrame) else 0
-    design = design_iv(n, sample_weight, design)
-    if design.weights is not None and not (design.weights > 0).all():
-        # rows of weight 0 carry nothing: out of the base rows (the base mask is not modified)
-        base = design.weights > 0 if base is None else np.asarray(base) & (design.weights > 0)
     inputs = _search_iv(X, outcome, base, direction, opts, confidence_level, similarity, strata,
-                        rng, design)
-    enc = _encoding(X, opts, encoding, design)
+                        rng, sample_weight, design)
+    enc = _encoding(X, opts, encoding, inputs.design)
     if strata is not None:
         enc = _without_label(enc, np.asarray(strata) == 1)
     return run(enc, label, inputs)
@@ -258,11 +253,12 @@ def _encoding(X, opts: SliceOptions, encoding, design: Design) -> Encoding:
 
 
 def _search_iv(X, outcome, base, direction, opts, confidence_level, similarity, strata,
-               rng, design) -> Inputs:
+               rng, sample_weight, design) -> Inputs:
     """Validate and normalise every input of the search, so the body never re-checks."""
     if not isinstance(X, pd.DataFrame):
         raise DataError(f"`X` must be a pandas DataFrame, got {type(X).__name__}")
     n = len(X)
+    design = design_iv(n, sample_weight, design)
     y = np.asarray(outcome, dtype=float) if np.asarray(outcome).dtype != object else None
     if y is None or y.ndim != 1:
         raise DataError("`outcome` must be a one-dimensional numeric array")
@@ -274,6 +270,9 @@ def _search_iv(X, outcome, base, direction, opts, confidence_level, similarity, 
         base_mask = np.asarray(base)
         if base_mask.dtype != bool or base_mask.shape != (n,):
             raise DataError(f"`base` must be a boolean mask of {n} rows")
+    if design.weights is not None and not (design.weights > 0).all():
+        # rows of weight 0 carry nothing: out of the base rows (a new mask; `base` is not modified)
+        base_mask = base_mask & (design.weights > 0)
     if base_mask.all():  # no index array and no copy of the outcome (it is only read)
         base_idx, yb = None, y
     else:
