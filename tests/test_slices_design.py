@@ -197,3 +197,25 @@ def test_the_weighted_bootstrap_resamples_units():
     s = res.found[0]
     assert s.rate.method == "bootstrap-percentile" and s.rate.low < s.rate.value < s.rate.high
     assert s.rate_at(0.5).high - s.rate_at(0.5).low < s.rate.high - s.rate.low
+
+
+def test_the_command_line_passes_the_design_to_the_slice_search(tmp_path):
+    import io
+    import json
+
+    from rich.console import Console
+
+    from probe.cli import main
+
+    X, y, pred, r = _data(11, n=4000)
+    w = r.choice([1.0, 3.0], len(X))
+    path = tmp_path / "h.csv"
+    X.assign(y=y.astype(int), score=np.where(pred, 0.9, 0.1), w=w).to_csv(path, index=False)
+    out = tmp_path / "r.json"
+    console = Console(file=io.StringIO(), width=120, color_system=None)
+    code = main(["slices", "--model", "column:score", "--data", str(path), "--label", "y",
+                 "--weights", "w", "--depth", "2", "--json", str(out), "--quiet"], console=console)
+    assert code == 0
+    top = json.loads(out.read_text())["slices"]["found"][0]
+    assert top["label"] == "a = x and b = u"
+    assert top["rate"]["n_effective"] > 0 and top["weight"] > top["rows"]
