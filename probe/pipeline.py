@@ -201,7 +201,7 @@ def _run(plan: Plan, command, clock: _Clock, progress) -> dict:
         with clock.step("slices"):
             found.slices = find_slices(ev.frame, ev.y_true, ev.decision(), options=plan.slices,
                                        favorable=ev.favorable, confidence_level=cl, rng=seed,
-                                       encoding=ev.encoding)
+                                       encoding=ev.encoding, design=ev.design)
     rankings: dict = {}
     if plan.proxies is not None:
         with clock.step("proxies"):

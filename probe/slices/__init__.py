@@ -65,6 +65,20 @@ How it works
    same distribution as resampling rows, without a loop per resample. BCa (with the cell-wise
    jackknife) where defined, else the percentile interval; the method is recorded in each estimate.
 
+7. **Design** (``sample_weight=`` or ``design=``, :mod:`probe.design`; :mod:`.sample`,
+   :mod:`.estimate_design`). A plain design (weights 0/1, no clusters, memberships 0/1) takes the
+   unweighted path exactly (rows of weight 0 left out). Otherwise the counts are weighted: the
+   search ranks on weighted rates with effective counts from additive sums (rows as units; the
+   bound allows for the lightest row, so it stays exact), ``min_rows`` counts rows and
+   ``max_share`` the weighted share; the split draws whole clusters (a simple random split of
+   clusters, not stratified by the label); the estimate part's rates, gaps and ratios take the
+   effective counts of :func:`probe.design.effective_counts` (clusters, or a membership row's
+   copies, as units) and record ``n_effective``; the p-value is the pooled score z test on the
+   effective counts (Fisher's exact test is not exact under weights; its level is measured in
+   ``tests/sim/sim_slices.py``, ``weighted_level``); the bootstrap resamples units. An attribute
+   known as membership probabilities is a slice column: its rows are expanded, a copy per group
+   with weight ``w * pi``.
+
 This is a statistical screen, not a legal finding: a slice with a large gap points where to look. The
 four-fifths rule is a rule of thumb; defer to counsel, local law and licensed practice.
 

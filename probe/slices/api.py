@@ -8,12 +8,14 @@ import numpy as np
 import pandas as pd
 
 from ..data import close_names
+from ..design import Design
 from ..encode import Encoding, encode_columns
 from ..errors import DataError, PlanError
 from ..metrics import as_binary, get_metric
 from ..options import SliceOptions, check_option, coerce_option, option_fields
 from ..values import as_rng
 from .findings import SliceFindings
+from .sample import design_iv, membership_column
 from .search import Inputs, run
 
 __all__ = ["find_slices", "search_slices"]
@@ -23,7 +25,8 @@ _MAX_BOOT_VALUES = 1000  # distinct outcome values the cell-wise bootstrap handl
 
 def find_slices(X: pd.DataFrame, y_true, y_pred, *, options: SliceOptions | None = None,
                 favorable=True, confidence_level: float = 0.95, rng=0,
-                encoding: Encoding | None = None, **kwargs) -> SliceFindings:
+                encoding: Encoding | None = None, sample_weight=None,
+                design: Design | None = None, **kwargs) -> SliceFindings:
     """Find the slices of ``X`` where a classifier's error, FPR, FNR or selection rate is worst.
 
     Parameters
@@ -51,6 +54,15 @@ def find_slices(X: pd.DataFrame, y_true, y_pred, *, options: SliceOptions | None
     encoding : Encoding, optional
         ``X`` already encoded (:func:`probe.encode.encode_columns`), used as it is instead of encoding
         again (its columns in ``exclude``, or not in ``columns``, are left out).
+    sample_weight : array_like of float, optional
+        Non-negative row weights (not all zero); the same as ``design=Design(weights=...)``.
+    design : probe.design.Design, optional
+        Row weights, clusters and attributes known as membership probabilities
+        (:mod:`probe.design`); not with ``sample_weight``. Unless the design is plain, rates,
+        shares and the search's scores are weighted, ``min_rows`` counts rows, ``max_share`` caps
+        the weighted share, the split keeps clusters whole, the estimates' intervals and tests
+        use effective counts and record ``n_effective`` (:mod:`probe.slices.estimate_design`).
+        An attribute known as probabilities is a slice column (``race = b``) unless excluded.
     **kwargs
         Fields of :class:`~probe.options.SliceOptions`, replacing those of ``options``
         (``find_slices(X, y, pred, depth=2)``); each is checked by the option's own rule.
@@ -100,7 +112,7 @@ def find_slices(X: pd.DataFrame, y_true, y_pred, *, options: SliceOptions | None
     exclude = opts.exclude + tuple(c for c in dict.fromkeys(auto_exclude) if c not in opts.exclude)
     opts = dataclasses.replace(opts, exclude=exclude)
     return _search(X, outcome, base, metric.name, metric.worse, opts, confidence_level, rng,
-                   encoding, _SIMILARITY, strata)
+                   encoding, _SIMILARITY, strata, sample_weight, design)
 
 
 _SIMILARITY = 0.9  # find_slices reports near-identical slices (Jaccard >= this) once
@@ -109,7 +121,8 @@ _SIMILARITY = 0.9  # find_slices reports near-identical slices (Jaccard >= this)
 def search_slices(X: pd.DataFrame, outcome, *, base=None, direction: str = "higher",
                   label: str = "custom", options: SliceOptions | None = None,
                   confidence_level: float = 0.95, similarity: float | None = _SIMILARITY, rng=0,
-                  encoding: Encoding | None = None, **kwargs) -> SliceFindings:
+                  encoding: Encoding | None = None, sample_weight=None,
+                  design: Design | None = None, **kwargs) -> SliceFindings:
     """The slice search on any per-row outcome over a base mask.
 
     ``outcome`` may be 0/1 (a rate; Wilson / Newcombe intervals, Fisher's exact test) or
@@ -139,6 +152,9 @@ def search_slices(X: pd.DataFrame, outcome, *, base=None, direction: str = "high
     rng : None, int or numpy.random.Generator, default=0
     encoding : Encoding, optional
         As in :func:`find_slices`.
+    sample_weight, design : optional
+        As in :func:`find_slices`; under a design that is not plain a real outcome's test is
+        Welch's on the effective counts (the {-1, 0, 1} exact test is not exact under weights).
     **kwargs
         Fields of :class:`~probe.options.SliceOptions` but ``metric``.
 
@@ -151,14 +167,14 @@ def search_slices(X: pd.DataFrame, outcome, *, base=None, direction: str = "high
                         "with `label`")
     opts = _slice_options(options, kwargs)
     return _search(X, outcome, base, label, direction, opts, confidence_level, rng, encoding,
-                   similarity, None)
+                   similarity, None, sample_weight, design)
 
 
 def _search(X, outcome, base, label, direction, opts, confidence_level, rng, encoding, similarity,
-            strata) -> SliceFindings:
+            strata, sample_weight, design) -> SliceFindings:
     inputs = _search_iv(X, outcome, base, direction, opts, confidence_level, similarity, strata,
-                        rng)
-    enc = _encoding(X, opts, encoding)
+                        rng, sample_weight, design)
+    enc = _encoding(X, opts, encoding, inputs.design)
     if strata is not None:
         enc = _without_label(enc, np.asarray(strata) == 1)
     return run(enc, label, inputs)
@@ -168,7 +184,7 @@ def _without_label(enc: Encoding, y: np.ndarray) -> Encoding:
     """``enc`` without the columns that hold the label: two levels that match ``y`` (or its
     opposite) on every row, whatever the label's values are called. A slice on the label would
     only restate the metric's definition (every error of a 0/1 label among its positives)."""
-    copies = [c.name for c in enc.columns if c.n_levels == 2
+    copies = [c.name for c in enc.columns if c.n_levels == 2 and c.kind != "membership"
               and ((c.codes == 1) == y).all() | ((c.codes == 1) == ~y).all()]
     if not copies:
         return enc
@@ -208,10 +224,16 @@ def _column(X, name, what):
     return X[name].to_numpy()
 
 
-def _encoding(X, opts: SliceOptions, encoding) -> Encoding:
-    """The slice columns: ``encoding`` restricted to the options' columns, else ``X`` encoded."""
+def _encoding(X, opts: SliceOptions, encoding, design: Design) -> Encoding:
+    """The slice columns: ``encoding`` restricted to the options' columns, else ``X`` encoded;
+    then the attributes known as membership probabilities (:func:`.sample.membership_column`)."""
+    members = [m for a, m in design.membership.items() if a not in opts.exclude
+               and (opts.columns is None or a in opts.columns)]
     if encoding is None:
-        enc = encode_columns(X, columns=opts.columns, exclude=opts.exclude, bins=opts.bins)
+        columns = None if opts.columns is None else [c for c in opts.columns
+                                                     if c not in design.membership]
+        enc = encode_columns(X, columns=columns, exclude=opts.exclude, bins=opts.bins) \
+            if columns is None or columns else Encoding((), len(X), ())
     else:
         if not isinstance(encoding, Encoding):
             raise DataError(f"`encoding` must be an Encoding of `X` (probe.encode.encode_columns), "
@@ -221,6 +243,9 @@ def _encoding(X, opts: SliceOptions, encoding) -> Encoding:
         keep = tuple(c for c in encoding.columns if c.name not in opts.exclude
                      and (opts.columns is None or c.name in opts.columns))
         enc = Encoding(keep, encoding.n_rows, encoding.notes)
+    if members:
+        enc = Encoding(enc.columns + tuple(membership_column(m) for m in members), enc.n_rows,
+                       enc.notes)
     if not enc.columns:
         raise DataError("no column is left to slice on"
                         + (f" ({'; '.join(enc.notes)})" if enc.notes else ""))
@@ -228,11 +253,12 @@ def _encoding(X, opts: SliceOptions, encoding) -> Encoding:
 
 
 def _search_iv(X, outcome, base, direction, opts, confidence_level, similarity, strata,
-               rng) -> Inputs:
+               rng, sample_weight, design) -> Inputs:
     """Validate and normalise every input of the search, so the body never re-checks."""
     if not isinstance(X, pd.DataFrame):
         raise DataError(f"`X` must be a pandas DataFrame, got {type(X).__name__}")
     n = len(X)
+    design = design_iv(n, sample_weight, design)
     y = np.asarray(outcome, dtype=float) if np.asarray(outcome).dtype != object else None
     if y is None or y.ndim != 1:
         raise DataError("`outcome` must be a one-dimensional numeric array")
@@ -244,6 +270,9 @@ def _search_iv(X, outcome, base, direction, opts, confidence_level, similarity, 
         base_mask = np.asarray(base)
         if base_mask.dtype != bool or base_mask.shape != (n,):
             raise DataError(f"`base` must be a boolean mask of {n} rows")
+    if design.weights is not None and not (design.weights > 0).all():
+        # rows of weight 0 carry nothing: out of the base rows (a new mask; `base` is not modified)
+        base_mask = base_mask & (design.weights > 0)
     if base_mask.all():  # no index array and no copy of the outcome (it is only read)
         base_idx, yb = None, y
     else:
@@ -274,7 +303,7 @@ def _search_iv(X, outcome, base, direction, opts, confidence_level, similarity, 
     if strata is not None:
         st = _group_codes(strata if base_idx is None else strata[base_idx])
     return Inputs(yb, base_idx, binary, direction, st, similarity, float(confidence_level), opts,
-                  as_rng(rng))
+                  as_rng(rng), design)
 
 
 def _group_codes(values):

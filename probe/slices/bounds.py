@@ -19,8 +19,11 @@ from __future__ import annotations
 import numpy as np
 
 from ..stats import newcombe_interval, wilson_interval, z_value
+from .estimate_design import row_effective, row_mean_var
 
 __all__ = ["Scorer", "lattice_size", "search_level"]
+
+_GRID = 6  # pieces of the refinements' sizes in the weighted bound
 
 
 def lattice_size(n_levels, depth) -> int:
@@ -54,11 +57,15 @@ class Scorer:
     score_level : float
         The scores' level (:func:`search_level`).
     max_share : float
-        The largest share of the rows a scored slice may hold.
+        The largest share of the rows (of the weight, with weights) a scored slice may hold.
+    weights : ndarray, optional
+        Row weights, all positive (None: the plain counts).
     """
 
-    def __init__(self, y, binary, min_rows, confidence_level, score_level, max_share):
+    def __init__(self, y, binary, min_rows, confidence_level, score_level, max_share,
+                 weights=None):
         self.binary = binary
+        self.weighted = weights is not None
         self.min_rows = min_rows
         self.confidence_level = confidence_level
         self.score_level = score_level
@@ -70,6 +77,22 @@ class Scorer:
         if not binary:
             self.total_sq = float((y * y).sum())
             self.y_max = float(y.max()) if self.N else 0.0
+        if self.weighted:
+            w = np.asarray(weights, dtype=float)
+            w2, wy = w * w, w * y
+            # the totals of the counter's weighted sums (its class notes), in its order
+            self.totals = ((float(w.sum()), float(wy.sum()), float(w2.sum()),
+                            float((w2 * y).sum())) if binary else
+                           (float(w.sum()), float(wy.sum()), float((w2 * y * y).sum()),
+                            float((w2 * y).sum()), float(w2.sum())))
+            self.max_weight = max_share * self.totals[0]
+            self.w_min = float(w.min()) if len(w) else 1.0
+
+    def capped(self, st) -> np.ndarray:
+        """Per slice: over the share cap (of the rows, or of the weight with weights)."""
+        if not self.weighted:
+            return st[0] > self.max_rows
+        return (st[2] if self.binary else st[1]) > self.max_weight
 
     def window(self, stats, need_bound):
         """Scores (and refinement bounds) of the supported slices of many column sets in one call.
@@ -93,7 +116,16 @@ class Scorer:
         sup = (n >= self.min_rows) & (n < self.N)
         score = np.full(len(n), -np.inf)
         bound = np.full(len(n), -np.inf) if need_bound else None
-        if sup.any():
+        capped = n > self.max_rows
+        if self.weighted:
+            cols = [np.concatenate([st[i] for st in stats]) for i in range(len(stats[0]))]
+            capped = self.capped(cols)
+            if sup.any():
+                sub = [c[sup] for c in cols]
+                score[sup] = self._weighted_score(sub)
+                if need_bound:
+                    bound[sup] = self._weighted_bound(sub)
+        elif sup.any():
             ns = n[sup]
             xs = np.concatenate([st[1] for st in stats])[sup]
             if self.binary:
@@ -106,7 +138,7 @@ class Scorer:
                 if need_bound:
                     pos = np.concatenate([st[3] for st in stats])[sup]
                     bound[sup] = self._real_bound(pos, ns)
-        score[np.isnan(score) | (n > self.max_rows)] = -np.inf
+        score[np.isnan(score) | capped] = -np.inf
         if need_bound:
             bound[np.isnan(bound)] = -np.inf
         cuts = np.cumsum([len(st[0]) for st in stats])[:-1]
@@ -115,7 +147,12 @@ class Scorer:
         return list(zip(sups, scores)), bounds
 
     def gap(self, st):
-        """The point gap of each slice's rate to the rest's."""
+        """The point gap of each slice's rate to the rest's (weighted with weights)."""
+        if self.weighted:
+            W, S = (st[2], st[3]) if self.binary else (st[1], st[2])
+            TW, TS = self.totals[0], self.totals[1]
+            with np.errstate(invalid="ignore", divide="ignore"):
+                return S / W - (TS - S) / (TW - W)
         n, x = st[0], st[1]
         with np.errstate(invalid="ignore", divide="ignore"):
             return x / n - (self.total - x) / (self.N - n)
@@ -129,7 +166,10 @@ class Scorer:
         rn, rx = parent_st[0][pk] - n, parent_st[1][pk] - x
         empty = (n < 2) | (rn < 2)
         with np.errstate(invalid="ignore", divide="ignore"):
-            if self.binary:
+            if self.weighted:
+                rest = [np.maximum(p[pk] - a, 0.0) for p, a in zip(parent_st, st)]
+                low = self._weighted_limit(st, rest, self.confidence_level)
+            elif self.binary:
                 low, _ = newcombe_interval(x, np.maximum(n, 1), np.clip(rx, 0, None),
                                            np.maximum(rn, 1),
                                            confidence_level=self.confidence_level)
@@ -188,4 +228,79 @@ class Scorer:
         num = self.total - pos
         rest = np.where(num >= 0, num / np.maximum(self.N - self.min_rows, 1),
                         num / np.maximum(self.N - n, 1))
+        return top - rest
+
+    # -- under row weights: effective counts from the additive sums (rows as units) --------------
+
+    def _weighted_limit(self, st, rest, level):
+        """Lower limit of (slice rate - rest rate) at ``level``: Newcombe on the effective counts of
+        a 0/1 outcome, Wald from the weighted variances otherwise."""
+        if self.binary:
+            x1, n1 = row_effective(st[0], *st[2:])
+            x2, n2 = row_effective(rest[0], *rest[2:])
+            return newcombe_interval(np.minimum(x1, n1), np.maximum(n1, 1e-300),
+                                     np.minimum(x2, n2), np.maximum(n2, 1e-300),
+                                     confidence_level=level)[0]
+        (m1, v1), (m2, v2) = row_mean_var(*st[1:6]), row_mean_var(*rest[1:6])
+        return (m1 - m2) - z_value(level) * np.sqrt(v1 + v2)
+
+    def _rest(self, st):
+        """The rest's sums: the totals minus the slice's (rows first)."""
+        t = self.totals
+        rest = [self.N - st[0]]
+        if self.binary:
+            rest += [self.total - st[1], t[0] - st[2], t[1] - st[3], t[2] - st[4], t[3] - st[5]]
+        else:
+            rest += [t[i] - st[i + 1] for i in range(5)]
+        return [np.maximum(r, 0.0) for r in rest]
+
+    def _weighted_score(self, st):
+        """The weighted score at the search level (see the module notes)."""
+        return self._weighted_limit(st, self._rest(st), self.score_level)
+
+    def _weighted_rate_bound(self, st):
+        """At least Wilson's lower limit (search level) of any refinement's weighted rate on its
+        effective counts. A refinement with ``n'`` rows has rate at most
+        ``P(n') = a / (a + (n' - e)+ w_min)``, falling with ``n'`` (1 up to ``n' = e``), and at most
+        ``n'`` effective trials; the limit grows with the rate and the trials, so over
+        ``n' in [a_j, a_j+1]`` it is at most ``L(P(a_j), a_j+1)``: the maximum over a geometric
+        grid of ``n'`` from ``clip(e, min_rows, n)`` to ``n`` (with ``L(1, min(e, n))`` for the pure
+        refinements below ``e``)."""
+        n, e, A = st[0], st[1], st[3]
+        m, z_level = self.min_rows, self.score_level
+
+        def limit(p, trials):
+            return wilson_interval(p * trials, trials, confidence_level=z_level)[0]
+
+        pure = np.minimum(e, n)
+        best = np.where(e >= m, limit(np.ones_like(n), np.maximum(pure, 1.0)), -np.inf)
+        n0 = np.clip(e, m, n)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            grid = [n0 * (n / n0) ** (j / _GRID) for j in range(_GRID + 1)]
+            for lo, hi in zip(grid, grid[1:] or grid):
+                short = np.maximum(lo - e, 0.0) * self.w_min
+                p = np.where(A + short > 0, A / (A + short), 0.0)
+                best = np.maximum(best, limit(np.clip(p, 0.0, 1.0), hi))
+        return best
+
+    def _weighted_rest_bound(self, st):
+        """At most the rest's weighted rate beside any refinement (see the module notes)."""
+        W, A = st[2], st[3]
+        TW, TA = self.totals[0], self.totals[1]
+        w_least = np.minimum(np.maximum(A, self.min_rows * self.w_min), W)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            return np.where(TW - w_least > 0, (TA - A) / (TW - w_least), 0.0)
+
+    def _weighted_bound(self, st):
+        """An upper bound on the weighted score of any refinement (the module notes argue it)."""
+        m, w_min = self.min_rows, self.w_min
+        TW, TA = self.totals[0], self.totals[1]
+        if self.binary:
+            return self._weighted_rate_bound(st) - self._weighted_rest_bound(st)
+        W, pos = st[1], st[6]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            top = np.minimum(self.y_max, pos / (m * w_min))
+            num = TA - pos
+            rest = np.where(num >= 0, num / np.maximum(TW - m * w_min, 1e-300),
+                            num / np.maximum(TW - W, 1e-300))
         return top - rest

@@ -33,6 +33,13 @@ class SliceCounter:
     every column set is counted on its own, in row order, so two slices holding the same rows get
     bitwise the same sums (a refinement that keeps every row of its parent never beats it).
 
+    With row ``weights`` (a design that is not plain, :mod:`probe.design`) the same pass also sums
+    the weights and their squares: per slice, for a 0/1 outcome, ``(rows, event rows, sum w,
+    sum w y, sum w^2, sum w^2 y)``, the additive sums the weighted rate and its effective counts
+    (rows as units) are computed from; for a real outcome ``(rows, sum w, sum w y, sum w^2 y^2,
+    sum w^2 y, sum w^2, sum w y+)``, counted a column set at a time. The weighted sums of a 0/1
+    outcome are marginalised from the block like the counts (exact up to rounding).
+
     Parameters
     ----------
     codes : sequence of 1-D integer arrays
@@ -41,9 +48,11 @@ class SliceCounter:
     y : ndarray
         The outcome over those rows (0/1 when ``binary``).
     binary : bool
+    weights : ndarray, optional
+        Row weights (None: every row weighs 1, the plain counts).
     """
 
-    def __init__(self, codes, n_levels, y, binary):
+    def __init__(self, codes, n_levels, y, binary, weights=None):
         self.codes = codes
         self.n_levels = n_levels
         self.binary = binary
@@ -51,11 +60,17 @@ class SliceCounter:
         if binary:
             self.y = y.astype(np.uint8)
             self.blocks = True
+            self.values = () if weights is None else (weights, weights * weights)
+        elif weights is None:
+            self.y = y
+            y_sq = y * y
+            self.values = (y, y_sq, np.maximum(y, 0.0))
+            self.blocks = bool(np.all(y == np.round(y))) and float(y_sq.sum()) < 2.0**52
         else:
             self.y = y
-            self.y_sq = y * y
-            self.y_pos = np.maximum(y, 0.0)
-            self.blocks = bool(np.all(y == np.round(y))) and float(self.y_sq.sum()) < 2.0**52
+            wy, w2 = weights * y, weights * weights
+            self.values = (weights, wy, w2 * y * y, w2 * y, w2, np.maximum(wy, 0.0))
+            self.blocks = False
         self.passes = 0  # passes over the rows (for the benchmarks)
 
     def cells(self, cols):
@@ -65,7 +80,8 @@ class SliceCounter:
     def count(self, sets):
         """``{cols: stats}`` for every column set in ``sets`` (all of one size); ``stats`` is
         ``(n, x)`` for a 0/1 outcome, else ``(n, sum, sum of squares, sum of positive parts)``,
-        float arrays over the set's slices in key order."""
+        float arrays over the set's slices in key order (with weights, the sums in the class
+        notes)."""
         out = {}
         if not sets:
             return out
@@ -117,7 +133,7 @@ class SliceCounter:
         dtype = np.uint16 if cells <= 1 << 16 else np.uint32 if cells <= 1 << 32 else np.int64
         N = len(self.y)
         buf = np.empty(min(N, _CHUNK_ROWS), dtype=dtype)
-        values = () if self.binary else (self.y, self.y_sq, self.y_pos)
+        values = self.values
         hist = [np.zeros(cells, dtype=np.int64 if i == 0 else float)
                 for i in range(1 + len(values))]
         for start in range(0, N, _CHUNK_ROWS):
@@ -130,20 +146,25 @@ class SliceCounter:
             if self.binary:
                 key *= 2
                 key += self.y[rows]
+            if values:  # one conversion of the key for every sum (bincount's own, else)
+                key = key.astype(np.intp)
             weighted_bincount(key, cells, out=hist[0])
             for h, v in zip(hist[1:], values):
                 weighted_bincount(key, cells, v[rows], out=h)
-        return hist[0] if self.binary else tuple(hist)
+        return tuple(hist)
 
     def _marginal(self, hist, block, cols):
         shape = [self.n_levels[c] for c in block]
         axes = tuple(i for i, c in enumerate(block) if c not in cols)
         if self.binary:
-            h = hist.reshape(shape + [2])
-            if axes:
-                h = h.sum(axis=axes)
-            h = h.reshape(-1, 2)
-            return h.sum(axis=1).astype(float), h[:, 1].astype(float)
+            parts = []
+            for arr in hist:  # (rows, events) of the counts, then of each weighted sum
+                h = arr.reshape(shape + [2])
+                if axes:
+                    h = h.sum(axis=axes)
+                h = h.reshape(-1, 2)
+                parts += [h.sum(axis=1).astype(float), h[:, 1].astype(float)]
+            return tuple(parts)
         parts = []
         for arr in hist:
             h = arr.reshape(shape)

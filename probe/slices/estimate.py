@@ -4,7 +4,9 @@ Everything here is computed on the estimate part only (all rows without a split)
 Newcombe gaps and MOVER-R ratios for a 0/1 outcome, Wald rates and Welch gaps for a real-valued
 outcome, the one-sided p-value (:mod:`.pvalues`: exact for 0/1 and {-1, 0, 1}, Welch otherwise),
 Benjamini-Hochberg q-values over the ``family`` of hypotheses, and, on request, a bootstrap of all
-carried slices at once.
+carried slices at once. Under a design that is not plain the counts are effective counts, the rates
+weighted, the test a score test and the bootstrap one of units (:mod:`.estimate_design`); every
+estimate then records its ``n_effective`` (the smaller of the two for a gap or a ratio).
 """
 
 from __future__ import annotations
@@ -15,9 +17,11 @@ import numpy as np
 from scipy import special
 
 from ..stats import Estimate, bh_adjust, newcombe_interval, ratio_interval, wilson_interval, z_value
+from .estimate_design import Basis, Weighting, design_pvalue, effective_basis, unit_bootstrap
 from .pvalues import exact_pvalue, is_ternary, real_pvalue, welch, welch_interval
 
-__all__ = ["N_RESAMPLES", "at_level", "carry", "closed_form", "estimate", "rate_estimates"]
+__all__ = ["Basis", "N_RESAMPLES", "Weighting", "at_level", "carry", "closed_form", "estimate",
+           "overall_estimate", "rate_estimates"]
 
 N_RESAMPLES = 2000  # bootstrap resamples of the carried slices
 
@@ -75,6 +79,33 @@ def rate_estimates(s, n, sq, binary, cl, limits=None):
     return [Estimate(float(a), float(b), float(c), method) for a, b, c in zip(value, low, high)]
 
 
+def overall_estimate(y, binary, cl, design: Basis | None = None) -> Estimate:
+    """The rate over all the base rows: on the counts, or weighted on effective counts."""
+    limits = (float(y.min()), float(y.max())) if len(y) else None
+    if design is None:
+        return rate_estimates(np.array([y.sum()]), np.array([float(len(y))]),
+                              np.array([(y * y).sum()]), binary, cl, limits)[0]
+    c, fig = effective_basis([np.ones(len(y), dtype=bool)], design)
+    rate = rate_estimates(c[1], c[0], c[2], binary, cl, limits)[0]
+    return Estimate(float(fig[1, 0] / fig[0, 0]), rate.low, rate.high, rate.method,
+                    float(fig[6, 0]))
+
+
+def _designed(rate, gap, ratio, weighted):
+    """The estimates with the weighted point values and their ``n_effective`` (unchanged when
+    ``weighted`` is None: a plain design)."""
+    if weighted is None:
+        return rate, gap, ratio
+    r1, r2, n1, n2 = weighted
+    two = min(n1, n2)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        ratio_value = r1 / r2 if r2 > 0 else math.nan
+    return (Estimate(r1, rate.low, rate.high, rate.method, n1),
+            Estimate(r1 - r2, gap.low, gap.high, gap.method, two),
+            Estimate(ratio_value if ratio.method != "none" else math.nan, ratio.low, ratio.high,
+                     ratio.method, two if ratio.method != "none" else None))
+
+
 def closed_form(c, binary, cl, limits):
     """Rate, gap and ratio estimates at level ``cl`` from the counts ``c = (n1, s1, sq1, n2, s2,
     sq2)`` (arrays over slices): Wilson, Newcombe and MOVER-R for a 0/1 outcome; Wald rate and
@@ -115,7 +146,7 @@ def rank_weights(k: int) -> np.ndarray:
 
 
 def estimate(carried, masks, y, *, binary, direction, confidence_level, interval, family, rng,
-             ranked=False):
+             ranked=False, design: Basis | None = None, sums=None):
     """Per carried slice: rates, gap, ratio, p-value, q-value and evidence on the estimate part.
 
     ``masks`` are the carried slices' rows of ``y`` (the outcome as given, not oriented);
@@ -125,10 +156,16 @@ def estimate(carried, masks, y, *, binary, direction, confidence_level, interval
     *evidence* orders the list: the lower limit of the gap in the bad direction at the report's
     level, on these rows the search did not see (the search's own level, far stricter, would favour
     broad slices with small gaps there). Each dict also holds what :func:`at_level` needs to
-    give the estimates at any other level."""
+    give the estimates at any other level. ``design``: the estimate part's
+    :class:`~.estimate_design.Basis` when the design is not plain (``sums``: the slices' term
+    sums when counted already, :func:`~.estimate_design.counted_sums`)."""
     K = len(carried)
     if K == 0:
         return []
+    if design is not None:
+        return _weighted(carried, masks, y, binary=binary, direction=direction,
+                         confidence_level=confidence_level, interval=interval, family=family,
+                         rng=rng, ranked=ranked, design=design, sums=sums)
     cl = confidence_level
     # per slice, with no K x rows float matrix: counts for a 0/1 outcome, else one float row buffer
     n1 = np.array([np.count_nonzero(m) for m in masks], dtype=float)
@@ -164,18 +201,63 @@ def estimate(carried, masks, y, *, binary, direction, confidence_level, interval
     boot = [None] * K
     if interval == "bootstrap":
         rate, gap, boot = _bootstrap_estimates(masks, y, rng, cl, rate, gap)
-    p = np.where(np.isnan(p), 1.0, p)
-    # BH over `family` hypotheses; those not carried are set aside with p = 1 (conservative: the
-    # adjusted values only grow with any p-value)
-    padded = np.concatenate([p, np.ones(max(int(family) - K, 0))])
-    if ranked:
-        padded = np.minimum(padded / rank_weights(len(padded)), 1.0)
-    q = np.minimum(bh_adjust(padded)[:K], 1.0)
+    p, q = _q_values(p, family, ranked)
     return [
         {"rows": int(n1[k]), "share": n1[k] / N if N else math.nan, "events": float(s1[k]),
          "rate": rate[k], "gap": gap[k], "ratio": ratio[k], "p": float(p[k]), "q": float(q[k]),
          "rest_rate": c[4][k] / c[3][k] if c[3][k] else math.nan, "evidence": float(evidence[k]),
-         "basis": (tuple(float(v[k]) for v in c), limits, boot[k])}
+         "basis": (tuple(float(v[k]) for v in c), limits, boot[k], None)}
+        for k in range(K)
+    ]
+
+
+def _q_values(p, family, ranked):
+    """The p-values (NaN as 1) and their q-values: BH over ``family`` hypotheses, those not
+    carried set aside with p = 1 (conservative: the adjusted values only grow with any p-value),
+    weighted by the search part's rank when ``ranked``."""
+    K = len(p)
+    p = np.where(np.isnan(p), 1.0, p)
+    padded = np.concatenate([p, np.ones(max(int(family) - K, 0))])
+    if ranked:
+        padded = np.minimum(padded / rank_weights(len(padded)), 1.0)
+    return p, np.minimum(bh_adjust(padded)[:K], 1.0)
+
+
+def _weighted(carried, masks, y, *, binary, direction, confidence_level, interval, family, rng,
+              ranked, design, sums):
+    """:func:`estimate` on effective counts (:mod:`.estimate_design`)."""
+    K, cl = len(carried), confidence_level
+    c, fig = effective_basis(masks, design, sums)
+    limits = (float(y.min()), float(y.max())) if len(y) and not binary else None
+    alt = "greater" if direction == "higher" else "less"
+    sign = 1.0 if alt == "greater" else -1.0
+    with np.errstate(invalid="ignore", divide="ignore"):
+        r1, r2 = fig[1] / fig[0], fig[5] / fig[4]
+    weighted = [(float(r1[k]), float(r2[k]), float(fig[6, k]), float(fig[7, k]))
+                for k in range(K)]
+    rate, gap, ratio = closed_form(c, binary, cl, limits)
+    rate, gap, ratio = (list(t) for t in zip(*(_designed(*e, wk) for e, wk in
+                                               zip(zip(rate, gap, ratio), weighted))))
+    p = design_pvalue(c, binary, alt)
+    if binary:
+        bad1, bad2 = (c[1], c[4]) if sign > 0 else (c[0] - c[1], c[3] - c[4])
+        evidence = newcombe_interval(bad1, c[0], bad2, c[3], confidence_level=cl)[0]
+    else:
+        diff, se, _ = welch(*c[:3], *c[3:])
+        evidence = sign * diff - z_value(cl) * se
+    evidence = np.where(np.isnan(evidence), -np.inf, evidence)
+    boot = [None] * K
+    if interval == "bootstrap":
+        rate, gap, boot = unit_bootstrap(masks, y, design.wt, rng, cl, rate, gap, N_RESAMPLES)
+    p, q = _q_values(p, family, ranked)
+    total = float(fig[0, 0] + fig[4, 0])
+    return [
+        {"rows": int(fig[2, k]), "share": fig[0, k] / total, "events": float(fig[1, k]),
+         "weight": float(fig[0, k]),
+         "clusters": None if np.isnan(fig[3, k]) else int(fig[3, k]),
+         "rate": rate[k], "gap": gap[k], "ratio": ratio[k], "p": float(p[k]), "q": float(q[k]),
+         "rest_rate": float(r2[k]), "evidence": float(evidence[k]),
+         "basis": (tuple(float(v[k]) for v in c), limits, boot[k], weighted[k])}
         for k in range(K)
     ]
 
@@ -183,12 +265,13 @@ def estimate(carried, masks, y, *, binary, direction, confidence_level, interval
 def at_level(basis, binary, level):
     """The rate and gap of one slice at confidence ``level`` from its ``basis`` (counts, the
     outcome's limits, and its bootstrap draws or None), by the method used at the report's level."""
-    counts, limits, boot = basis
-    rate, gap, _ = closed_form(tuple(np.array([v]) for v in counts), binary, level, limits)
-    rate, gap = rate[0], gap[0]
+    counts, limits, boot, weighted = basis
+    rate, gap, ratio = closed_form(tuple(np.array([v]) for v in counts), binary, level, limits)
+    rate, gap, _ = _designed(rate[0], gap[0], ratio[0], weighted)
     if boot is not None:
         alpha = (1 - level) / 2
-        rate, gap = (prior if b is None else Estimate(prior.value, *_boot_interval(*b, alpha))
+        rate, gap = (prior if b is None else Estimate(prior.value, *_boot_interval(*b, alpha),
+                                                      prior.n_effective)
                      for prior, b in zip((rate, gap), boot))
     return rate, gap
 
@@ -256,6 +339,9 @@ def _boot_interval(dist, obs, jack_values, weights, alpha):
     if len(dist) == 0 or not np.isfinite(obs):
         return math.nan, math.nan, "bootstrap-percentile"
     lo_q, hi_q, method = alpha, 1 - alpha, "bootstrap-percentile"
+    if jack_values is None:  # resampled units (estimate_design): percentile only
+        low, high = np.quantile(dist, [lo_q, hi_q])
+        return float(low), float(high), method
     below = np.mean(dist < obs) + 0.5 * np.mean(dist == obs)
     w = np.where(weights > 0, weights, 0.0)
     jv = np.where(w > 0, jack_values, 0.0)

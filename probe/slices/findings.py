@@ -55,6 +55,12 @@ class Slice:
         at the search level (Bonferroni over the slices the lattice can hold).
     search_rows : int
         Base rows of the search part in the slice.
+    weight : float or None
+        The weighted rows of the estimate part in the slice (None for a plain design); ``rows``
+        then counts its rows of positive weight (a row of uncertain membership in the slice's
+        group counts once) and ``share``, ``events`` and ``rate`` are weighted.
+    clusters : int or None
+        Clusters with a row in the slice on the estimate part (None without clusters).
     sentence : str
         The finding in one plain sentence.
     confidence_level : float
@@ -77,6 +83,8 @@ class Slice:
     score: float
     search_rows: int
     sentence: str
+    weight: float | None = None
+    clusters: int | None = None
     confidence_level: float = field(default=0.95, repr=False)
     basis: Any = field(default=None, repr=False, compare=False)
     binary: bool = field(default=True, repr=False)
@@ -112,6 +120,8 @@ class Slice:
             "q_value": json_number(self.q_value),
             "score": json_number(self.score),
             "search_rows": self.search_rows,
+            **({} if self.weight is None else {"weight": json_number(self.weight)}),
+            **({} if self.clusters is None else {"clusters": self.clusters}),
             "sentence": self.sentence,
         }
 
@@ -218,6 +228,7 @@ def make_slice(rank, cand, est, enc: Encoding, metric, confidence_level, binary)
         events=est["events"], rate=est["rate"], gap=est["gap"], effect_ratio=est["ratio"],
         p_value=est["p"], q_value=est["q"], score=score, search_rows=search_rows,
         sentence=_sentence(label, metric, est, confidence_level, binary),
+        weight=est.get("weight"), clusters=est.get("clusters"),
         confidence_level=confidence_level, basis=est["basis"], binary=binary,
     )
 

@@ -69,6 +69,9 @@ class Lattice:
     prune : bool, default=True
         Skip slices whose bound misses the cut. ``False`` scores every supported slice of every set
         visited (the no-split multiplicity counts them all, so it must not depend on ``pool``).
+    weights : ndarray, optional
+        Positive row weights (a design that is not plain): weighted rates and effective counts
+        (:mod:`~probe.slices.bounds`); None for the plain counts.
 
     Examples
     --------
@@ -84,14 +87,15 @@ class Lattice:
     """
 
     def __init__(self, codes, n_levels, y, binary, *, depth, min_rows, pool, confidence_level,
-                 score_level, max_share, prune=True):
+                 score_level, max_share, prune=True, weights=None):
         self.n_levels = n_levels
         self.n_cols = len(codes)
         self.depth = depth
         self.pool = pool
         self.prune = prune
-        self.counter = SliceCounter(codes, n_levels, y, binary)
-        self.scorer = Scorer(y, binary, min_rows, confidence_level, score_level, max_share)
+        self.counter = SliceCounter(codes, n_levels, y, binary, weights)
+        self.scorer = Scorer(y, binary, min_rows, confidence_level, score_level, max_share,
+                             weights)
         self.visited = {}  # cols -> (score, bound, candidate, stats), arrays over the set's keys
         self.best = []  # sorted (rank key, Candidate), best first, at most `pool`
         self.n_scored = 0  # supported slices scored (within the share cap)
@@ -172,7 +176,7 @@ class Lattice:
                 return
         else:
             cand = np.ones(size, dtype=bool)
-        self.n_scored += int((supported & (st[0] <= self.scorer.max_rows)).sum())
+        self.n_scored += int((supported & ~self.scorer.capped(st)).sum())
         ok = supported & cand
         self.n_candidates += int(ok.sum())
         score = np.where(ok, score_all, -np.inf)

@@ -7,14 +7,17 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..design import Design
 from ..encode import Encoding
 from ..errors import PlanError
 from ..options import SliceOptions
 from .bounds import search_level
-from .estimate import N_RESAMPLES, carry, estimate, rate_estimates
+from .estimate import N_RESAMPLES, Basis, Weighting, carry, estimate, overall_estimate
+from .estimate_design import counted_sums
 from .findings import CANDIDATES_NOTE, SliceFindings, make_slice
 from .lattice import Lattice
 from .listing import listed
+from .sample import sample_rows, split_mask
 
 __all__ = ["Inputs", "run", "ESTIMATE_SHARE", "carried_pool"]
 
@@ -49,6 +52,8 @@ class Inputs:
     confidence_level : float
     options : SliceOptions
     rng : numpy.random.Generator
+    design : Design
+        Weights, clusters and membership over the rows of ``X`` (:mod:`.sample`).
     """
 
     y: np.ndarray
@@ -60,6 +65,7 @@ class Inputs:
     confidence_level: float
     options: SliceOptions
     rng: np.random.Generator
+    design: Design
 
 
 def run(enc: Encoding, label: str, inp: Inputs) -> SliceFindings:
@@ -71,15 +77,22 @@ def run(enc: Encoding, label: str, inp: Inputs) -> SliceFindings:
         codes = _take(codes, inp.base_idx)
     n_levels = [c.n_levels for c in enc.columns]
     n_base = len(inp.y)
+    rows = sample_rows(enc, codes, inp.y, inp.design, inp.base_idx)
+    del codes
+    cluster = rows.units if rows.clustered else None
     if o.split:
-        est_mask = _split_mask(inp)
+        base_est = split_mask(n_base, inp.strata, None if cluster is None else _per_base(
+            cluster, rows.source, n_base), ESTIMATE_SHARE, inp.rng)
+        est_mask = base_est if rows.source is None else base_est[rows.source]
         est_rows, search_rows = np.flatnonzero(est_mask), np.flatnonzero(~est_mask)
-        *s_codes, s_y = _take(codes + [inp.y], search_rows)
+        *s_codes, s_y = _take(rows.codes + [rows.y], search_rows)
+        s_w = rows.take(search_rows)[0]
+        n_search = int(n_base - base_est.sum())
         del search_rows
     else:
-        est_mask = np.ones(n_base, dtype=bool)
-        s_codes, s_y = codes, inp.y
-    n_search = len(s_y)
+        base_est, est_mask = np.ones(n_base, dtype=bool), np.ones(len(rows.y), dtype=bool)
+        s_codes, s_y, s_w = rows.codes, rows.y, rows.weights
+        n_search = n_base
     min_rows = o.min_rows if o.min_rows is not None else max(30, math.ceil(0.005 * n_search))
     if n_search < min_rows:
         raise PlanError(
@@ -102,28 +115,33 @@ def run(enc: Encoding, label: str, inp: Inputs) -> SliceFindings:
     ranked, n_scored, n_candidates = Lattice(
         s_codes, n_levels, s_y, inp.binary, depth=o.depth, min_rows=min_rows, pool=pool,
         confidence_level=inp.confidence_level, score_level=level, max_share=o.max_share,
-        prune=o.split,
+        prune=o.split, weights=s_w,
     ).run()
-    del s_codes, s_y
-    e_codes = _Rows(codes, est_rows) if o.split else codes
-    e_y = _take([inp.y], est_rows)[0] if o.split else inp.y
+    del s_codes, s_y, s_w
+    e_codes = _Rows(rows.codes, est_rows) if o.split else rows.codes
+    e_y = _take([rows.y], est_rows)[0] if o.split else rows.y
+    e_design = None if rows.weights is None else Basis(e_y, Weighting(
+        *(rows.take(est_rows) if o.split else (rows.weights, rows.units)), rows.clustered),
+        inp.binary)
     carried, masks = carry(ranked, e_codes, inp.similarity, n_carry)
     family = len(carried) if o.split else n_scored  # fixed before the estimate part is looked at
-    rows = estimate(carried, masks, e_y, binary=inp.binary, direction=inp.direction,
-                    confidence_level=inp.confidence_level,
-                    interval=o.interval, family=family, rng=inp.rng, ranked=o.split)
-    worse = listed(rows, masks, e_y, binary=inp.binary, direction=inp.direction,
-                   confidence_level=inp.confidence_level, top=o.top)
+    sums = None  # weighted 0/1 with rows as units: the carried slices counted in shared passes
+    if e_design is not None and e_design.additive and inp.binary and carried:
+        sums = counted_sums(carried, e_codes, n_levels, e_y, e_design.wt.weights)
+    ests = estimate(carried, masks, e_y, binary=inp.binary, direction=inp.direction,
+                    confidence_level=inp.confidence_level, interval=o.interval, family=family,
+                    rng=inp.rng, ranked=o.split, design=e_design, sums=sums)
+    worse = listed(ests, masks, e_y, binary=inp.binary, direction=inp.direction,
+                   confidence_level=inp.confidence_level, top=o.top, design=e_design, sums=sums)
     found = tuple(
-        make_slice(rank, carried[k], rows[k], enc, label, inp.confidence_level, inp.binary)
+        make_slice(rank, carried[k], ests[k], enc, label, inp.confidence_level, inp.binary)
         for rank, k in enumerate(worse, start=1)
     )
     alpha = 1.0 - inp.confidence_level
     significant = sum(s.q_value <= alpha for s in found)
-    y = inp.y
-    overall = rate_estimates(np.array([y.sum()]), np.array([float(n_base)]),
-                             np.array([(y * y).sum()]), inp.binary, inp.confidence_level,
-                             (float(y.min()), float(y.max())) if len(y) else None)
+    all_design = None if rows.weights is None else Basis(
+        rows.y, Weighting(rows.weights, rows.units, rows.clustered), inp.binary)
+    overall = overall_estimate(rows.y, inp.binary, inp.confidence_level, all_design)
     notes = list(enc.notes)
     if not found:
         notes.append(f"no slice with at least {min_rows} rows is worse than the rest")
@@ -141,27 +159,26 @@ def run(enc: Encoding, label: str, inp: Inputs) -> SliceFindings:
         "multiplicity": "slices carried to the estimate part" if o.split
         else "every slice scored during the search",
     }
+    if e_design is not None:  # a plain design adds no key
+        settings["units"] = "clusters" if rows.clustered else (
+            "rows" if rows.source is None else "rows (membership copies together)")
+        if rows.clustered:
+            settings["clusters_estimated"] = int(len(np.unique(e_design.wt.units)))
     return SliceFindings(
-        metric=label, direction=inp.direction, overall=overall[0], family=int(family),
+        metric=label, direction=inp.direction, overall=overall, family=int(family),
         significant=int(significant), selected=not o.split,
-        search_rows=n_search, estimate_rows=int(est_mask.sum()), base_rows=n_base, found=found,
+        search_rows=n_search, estimate_rows=int(base_est.sum()), base_rows=n_base, found=found,
         notes=tuple(notes), settings=settings,
     )
 
 
-def _split_mask(inp: Inputs) -> np.ndarray:
-    """Seeded stratified split of the base rows: True = estimate part."""
-    n = len(inp.y)
-    est = np.zeros(n, dtype=bool)
-    if inp.strata is None:  # a simple random split: the draw of one stratum holding every row
-        est[inp.rng.permutation(n)[: int(round(ESTIMATE_SHARE * n))]] = True
-        return est
-    strata = inp.strata
-    for stratum in range(int(strata.max()) + 1 if len(strata) else 0):
-        rows = np.flatnonzero(strata == stratum)
-        take = int(round(ESTIMATE_SHARE * len(rows)))
-        est[rows[inp.rng.permutation(len(rows))[:take]]] = True
-    return est
+def _per_base(values, source, n_base):
+    """Per base row, the value of its copies (copies of one row share their unit)."""
+    if source is None:
+        return values
+    out = np.empty(n_base, dtype=values.dtype)
+    out[source] = values
+    return out
 
 
 def _take(arrays, rows):

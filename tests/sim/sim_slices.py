@@ -33,6 +33,13 @@ with the planted rows.
   draws beside it (it is anti-conservative there, which is why it is not used).
 * ``welch_level``: Welch's one-sided test, used for other real-valued outcomes, on skewed continuous
   nulls (Beta(0.5, 5), lognormal), a fixed 1 % or 5 % slice of 20,000 rows.
+* ``weighted_level``: the test the estimate part uses under a design that is not plain (the pooled
+  score z test on effective counts, :func:`probe.slices.estimate_design.design_pvalue`), a fixed
+  slice against the rest on a null 0/1 outcome (15 %), 20,000 rows: (a) log-normal weights
+  (sigma 1, Kish design effect about 2.7), rows as units, a 1 % or 5 % slice; (b) clusters of 1 to
+  10 rows with intra-cluster correlation 0.3 (cluster rates Beta(0.35, 1.98)), log-normal weights
+  (sigma 0.5), the slice whole clusters (about 5 % of the rows), with the clusters as units and,
+  beside it, with the rows as units (the naive test, which does not hold its level there).
 """
 
 from __future__ import annotations
@@ -44,6 +51,7 @@ from harness import proportion
 
 from probe.compare import compare_models
 from probe.slices import find_slices
+from probe.slices.estimate_design import Basis, Weighting, design_pvalue, effective_basis
 from probe.slices.pvalues import ternary_pvalue, welch, welch_pvalue
 
 __all__ = ["SIMS"]
@@ -233,6 +241,48 @@ def _welch_level(runs=20_000, seed=0, n=20_000):
     return figures
 
 
+def _weighted_p(y, mask, w, units):
+    """The estimate part's one-sided p-value of ``mask`` against the rest under a design."""
+    wt = Weighting(w, units, units is not None)
+    c, _ = effective_basis([mask], Basis(y, wt, True))
+    return float(design_pvalue(c, True, "greater")[0])
+
+
+def _weighted_level(runs=2_000, seed=0, n=20_000):
+    """The weighted test's level on null data: unequal weights, then clusters (see the notes)."""
+    figures = []
+    for share in (0.01, 0.05):
+        rng = np.random.default_rng(seed)
+        k, hits = int(share * n), 0
+        mask = np.arange(n) < k
+        for _ in range(runs):
+            y = (rng.random(n) < 0.15).astype(float)
+            w = rng.lognormal(0.0, 1.0, n)
+            hits += _weighted_p(y, mask, w, None) <= ALPHA
+        figures.append(proportion(
+            f"weighted score test, log-normal weights (Kish deff ~2.7), rows as units, a fixed "
+            f"{share:.0%} slice of {n:,} rows: p <= 0.05", hits, runs, "<= 0.05",
+            f"{seed} (one stream)"))
+    rng = np.random.default_rng(seed + 1)
+    hits = {"clusters": 0, "rows": 0}
+    for _ in range(runs):
+        size = rng.integers(1, 11, n)  # more clusters than needed; cut at n rows
+        cluster = np.repeat(np.arange(n), size)[:n]
+        rate = rng.beta(0.35, 1.98, n)  # mean 0.15, ICC 0.3 = 1 / (a + b + 1)
+        y = (rng.random(n) < rate[cluster]).astype(float)
+        w = rng.lognormal(0.0, 0.5, n)
+        mask = cluster < np.quantile(cluster, 0.05)  # whole clusters, about 5 % of the rows
+        hits["clusters"] += _weighted_p(y, mask, w, cluster) <= ALPHA
+        hits["rows"] += _weighted_p(y, mask, w, None) <= ALPHA
+    figures.append(proportion(
+        "weighted score test, clusters of 1-10 rows (ICC 0.3), clusters as units, a 5 % slice of "
+        f"whole clusters: p <= 0.05", hits["clusters"], runs, "<= 0.05", f"{seed + 1}"))
+    figures.append(proportion(
+        "  the same with rows as units (naive, not used with clusters): p <= 0.05", hits["rows"],
+        runs, "<= 1", f"{seed + 1}"))
+    return figures
+
+
 SIMS = {
     "null_split_20000": _null(20_000, True),
     "null_split_2000": _null(2_000, True),
@@ -244,4 +294,5 @@ SIMS = {
     "compare": _compare,
     "ternary_level": _ternary_level,
     "welch_level": _welch_level,
+    "weighted_level": _weighted_level,
 }
