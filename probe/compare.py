@@ -299,6 +299,7 @@ def compare_models(
     found = search_slices(
         X, worse, base=mask, options=options, confidence_level=confidence_level, rng=rng,
         label=f"paired {metric} difference (candidate worse > 0)", encoding=encoding,
+        design=design,
     )
     same = outcomes["selection"][0] == outcomes["selection"][1]
     agreement = float(np.mean(same) if live is None else np.average(same, weights=design.weights))

@@ -286,8 +286,8 @@ def effective_counts(key: np.ndarray, n_cells: int, y: np.ndarray, weights=None,
     m = np.bincount(cell_of[live], minlength=n_cells).astype(np.float64)
     if clustered:
         S = S * np.where(m > 1, m / np.maximum(m - 1, 1), np.nan)
-    kish = W ** 2 / np.bincount(cell_of, weights=U * U, minlength=n_cells)
     with np.errstate(invalid="ignore", divide="ignore"):
+        kish = W ** 2 / np.bincount(cell_of, weights=U * U, minlength=n_cells)
         v = S / W ** 2
         varies = spread > 1e-12 * p * p + 1e-300  # not a constant outcome (a rate of 0 or 1)
         n_eff = np.where(varies & (v > 0), spread / v, kish)

@@ -50,13 +50,8 @@ def read_design(frame: pd.DataFrame, *, weights: str | None = None, cluster: str
     w = None
     if weights:
         check_columns(frame, [weights], "weights", where)
-        w = _numbers(frame, weights, "weights", where)
-        neg = np.flatnonzero(w < 0)
-        if len(neg):
-            raise DataError(f"weights column `{weights}` in {where} has {len(neg)} negative "
-                            f"values ({rows_text(neg)}); weights must be 0 or more")
-        if not (w > 0).any():
-            raise DataError(f"weights column `{weights}` in {where} is zero on every row")
+        w = _checked_weights(_numbers(frame, weights, "weights", where),
+                             f"weights column `{weights}` in {where}")
     codes = None
     if cluster:
         check_columns(frame, [cluster], "cluster", where)
@@ -71,6 +66,17 @@ def read_design(frame: pd.DataFrame, *, weights: str | None = None, cluster: str
         members[attribute] = _membership(frame, attribute, groups, where)
     return Design(w, codes, members, weights_column=weights or None,
                   cluster_column=cluster or None)
+
+
+def _checked_weights(w: np.ndarray, what: str) -> np.ndarray:
+    """Finite weights (checked by the caller) that are 0 or more and not all zero."""
+    neg = np.flatnonzero(w < 0)
+    if len(neg):
+        raise DataError(f"{what} has {len(neg)} negative values ({rows_text(neg)}); weights must "
+                        "be 0 or more")
+    if not (w > 0).any():
+        raise DataError(f"{what} is zero on every row")
+    return w
 
 
 def _membership(frame, attribute, groups, where) -> Membership:
@@ -104,18 +110,27 @@ def resolve_design(sample_weight, design: Design | None, n_rows: int) -> Design:
     if design is not None and not isinstance(design, Design):
         raise PlanError(f"`design` must be a probe.Design, got {type(design).__name__}")
     if sample_weight is not None:
-        try:
-            w = np.asarray(sample_weight, dtype=np.float64).reshape(-1)
-        except (TypeError, ValueError):
-            raise DataError("`sample_weight` must hold numbers, one per row") from None
-        frame = pd.DataFrame({"sample_weight": w}) if len(w) == n_rows else None
-        if frame is None:
+        w = np.asarray(sample_weight)
+        if w.ndim != 1 or w.dtype == bool or w.dtype.kind not in "iuf":
+            raise DataError("`sample_weight` must hold numbers, one per row")
+        w = w.astype(np.float64)
+        if len(w) != n_rows:
             raise DataError(f"`sample_weight` has {len(w)} values for {n_rows} rows")
-        return read_design(frame, weights="sample_weight", where="`sample_weight`")
+        bad = np.flatnonzero(~np.isfinite(w))
+        if len(bad):
+            raise DataError(f"`sample_weight` has {len(bad)} missing or infinite values "
+                            f"({rows_text(bad)})")
+        return Design(weights=_checked_weights(w, "`sample_weight`"))
     design = design or Design()
-    for name, a in (("weights", design.weights), ("cluster", design.cluster)):
+    for name, a in (("weights", design.weights), ("clusters", design.cluster)):
         if a is not None and len(a) != n_rows:
             raise DataError(f"the design's {name} have {len(a)} values for {n_rows} rows")
+    if design.weights is not None:
+        bad = np.flatnonzero(~np.isfinite(design.weights))
+        if len(bad):
+            raise DataError(f"the design's weights have {len(bad)} missing or infinite values "
+                            f"({rows_text(bad)})")
+        _checked_weights(design.weights, "the design's weights")
     for m in design.membership.values():
         if len(m.probs) != n_rows:
             raise DataError(f"the membership probabilities of `{m.attribute}` have "

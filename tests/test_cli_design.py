@@ -145,7 +145,7 @@ def test_unit_weights_and_no_clusters_equal_the_plain_run_in_every_section(tmp_p
             f'[data]\npath = "h.csv"\nlabel = "y"\nprotected = ["group"]\n'
             f'features = ["group", "income", "region"]\n{extra}'
             '[model]\nspec = "py:scorer.py:score"\nisolate = false\n'
-            '[slices]\ndepth = 2\n[flips]\nmodes = ["direct", "transport", "twins"]\n'
+            '[slices]\ndepth = 2\nexclude = ["ones"]\n[flips]\nmodes = ["direct", "transport", "twins"]\n'
             '[compare]\nbaseline = "py:scorer.py:older"\n'
             f'[report]\nout = "{name}"\nformats = ["json"]\n')
         assert main(["run", str(tmp_path / f"{name}.toml")], console=_console()) in (0, 1)

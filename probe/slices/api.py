@@ -8,6 +8,7 @@ import numpy as np
 import pandas as pd
 
 from ..data import close_names
+from ..design_data import resolve_design
 from ..design import Design
 from ..encode import Encoding, encode_columns
 from ..errors import DataError, PlanError
@@ -15,7 +16,7 @@ from ..metrics import as_binary, get_metric
 from ..options import SliceOptions, check_option, coerce_option, option_fields
 from ..values import as_rng
 from .findings import SliceFindings
-from .sample import design_iv, membership_column
+from .sample import membership_column
 from .search import Inputs, run
 
 __all__ = ["find_slices", "search_slices"]
@@ -258,7 +259,7 @@ def _search_iv(X, outcome, base, direction, opts, confidence_level, similarity, 
     if not isinstance(X, pd.DataFrame):
         raise DataError(f"`X` must be a pandas DataFrame, got {type(X).__name__}")
     n = len(X)
-    design = design_iv(n, sample_weight, design)
+    design = resolve_design(sample_weight, design, n)
     y = np.asarray(outcome, dtype=float) if np.asarray(outcome).dtype != object else None
     if y is None or y.ndim != 1:
         raise DataError("`outcome` must be a one-dimensional numeric array")

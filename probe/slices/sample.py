@@ -24,48 +24,8 @@ import numpy as np
 
 from ..design import Design, Membership, expand_rows
 from ..encode import EncodedColumn, Encoding
-from ..errors import DataError
 
-__all__ = ["Sample", "design_iv", "membership_column", "sample_rows", "split_mask"]
-
-
-def design_iv(n: int, sample_weight, design) -> Design:
-    """The search's :class:`Design` from ``sample_weight`` or ``design`` (not both), checked."""
-    if sample_weight is not None and design is not None:
-        raise DataError("give `sample_weight` or `design`, not both (put the weights in the "
-                        "design: Design(weights=..., cluster=...))")
-    if design is not None and not isinstance(design, Design):
-        raise DataError(f"`design` must be a probe.design.Design, got {type(design).__name__}")
-    if sample_weight is not None:
-        design = Design(weights=_weights(sample_weight, n))
-    design = design or Design()
-    if design.weights is not None:
-        _weights(design.weights, n)
-    if design.cluster is not None and len(design.cluster) != n:
-        raise DataError(f"the design's clusters have {len(design.cluster)} values but `X` has "
-                        f"{n} rows")
-    for m in design.membership.values():
-        if len(m.probs) != n:
-            raise DataError(f"the membership probabilities of `{m.attribute}` have "
-                            f"{len(m.probs)} rows but `X` has {n}")
-    return design
-
-
-def _weights(values, n) -> np.ndarray:
-    w = np.asarray(values)
-    if w.dtype == object or w.dtype.kind not in "biuf" or w.ndim != 1:
-        raise DataError("`sample_weight` must be a one-dimensional numeric array")
-    w = w.astype(np.float64)
-    if len(w) != n:
-        raise DataError(f"`sample_weight` has {len(w)} values but `X` has {n} rows")
-    bad = ~np.isfinite(w) | (w < 0)
-    if bad.any():
-        first = int(np.flatnonzero(bad)[0])
-        raise DataError(f"`sample_weight` must be finite and non-negative: {int(bad.sum())} "
-                        f"values are not (first at row {first}: {w[first]!r})")
-    if not (w > 0).any():
-        raise DataError("`sample_weight` is zero on every row")
-    return w
+__all__ = ["Sample", "membership_column", "sample_rows", "split_mask"]
 
 
 def membership_column(m: Membership) -> EncodedColumn:
