@@ -201,7 +201,8 @@ def _run(plan: Plan, command, clock: _Clock, progress) -> dict:
         with clock.step("slices"):
             found.slices = find_slices(ev.frame, ev.y_true, ev.decision(), options=plan.slices,
                                        favorable=ev.favorable, confidence_level=cl, rng=seed,
-                                       encoding=ev.encoding, design=ev.design)
+                                       encoding=ev.encoding,
+                design=replace(ev.design, membership={}))  # paired rows: no groups to weigh
     rankings: dict = {}
     if plan.proxies is not None:
         with clock.step("proxies"):
@@ -220,7 +221,8 @@ def _run(plan: Plan, command, clock: _Clock, progress) -> dict:
                 ev.frame, ev.y_true, ev.decision(), ev.decision("baseline"),
                 metric=plan.compare.metric, favorable=ev.favorable, options=search,
                 confidence_level=cl, rng=seed,
-                encoding=ev.encoding, design=ev.design)
+                encoding=ev.encoding,
+                design=replace(ev.design, membership={}))  # paired rows: no groups to weigh
             found.baseline = ev.model("baseline").describe()
     with clock.step("verdict"):
         measured = measure(groups=found.groups, slices=found.slices, flips=found.flips,
