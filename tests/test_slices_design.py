@@ -5,7 +5,7 @@ import pandas as pd
 import pytest
 from statsmodels.stats.weightstats import DescrStatsW
 
-from probe.design import Design, Membership, effective_counts
+from probe.design import Design, Membership
 from probe.encode import encode_columns
 from probe.errors import DataError, PlanError
 from probe.slices import find_slices, search_slices
@@ -178,14 +178,16 @@ def test_the_weighted_bound_prunes_exactly_and_the_score_uses_effective_counts(s
     assert [c.score for c in pruned] == pytest.approx([c.score for c in full], rel=1e-12)
     # the bound did prune (less than without weights: it allows for the lightest row)
     assert runs[1][2] < 0.97 * runs[0][2]
-    # the top score is Newcombe's lower limit on probe.design.effective_counts (rows as units)
+    # the top score is Newcombe's lower limit on the weighted rates, each over its rows divided
+    # by the table's Kish design effect (the search ranks on it; brute force here)
     top = full[0]
     mask = np.ones(len(X), dtype=bool)
     for c, lv in zip(top.cols, top.levels):
         mask &= codes[c] == lv
-    eff = effective_counts(mask.astype(np.int64) ^ 1, 2, err, w)
-    low, _ = newcombe_interval(eff.x_eff[0], eff.n_eff[0], eff.x_eff[1], eff.n_eff[1],
-                               confidence_level=level)
+    deff = n * (w * w).sum() / w.sum() ** 2
+    p_in, p_out = (np.average(err[m], weights=w[m]) for m in (mask, ~mask))
+    n_in, n_out = mask.sum() / deff, (~mask).sum() / deff
+    low, _ = newcombe_interval(p_in * n_in, n_in, p_out * n_out, n_out, confidence_level=level)
     assert top.score == pytest.approx(float(low), rel=1e-9)
 
 

@@ -68,8 +68,9 @@ How it works
 7. **Design** (``sample_weight=`` or ``design=``, :mod:`probe.design`; :mod:`.sample`,
    :mod:`.estimate_design`). A plain design (weights 0/1, no clusters, memberships 0/1) takes the
    unweighted path exactly (rows of weight 0 left out). Otherwise the counts are weighted: the
-   search ranks on weighted rates with effective counts from additive sums (rows as units; the
-   bound allows for the lightest row, so it stays exact), ``min_rows`` counts rows and
+   search ranks on weighted rates with effective counts (for a 0/1 outcome each slice's rows over
+   the table's Kish design effect, from additive sums; the bound allows for the lightest row, so
+   it stays exact), ``min_rows`` counts rows and
    ``max_share`` the weighted share; the split draws whole clusters (a simple random split of
    clusters, not stratified by the label); the estimate part's rates, gaps and ratios take the
    effective counts of :func:`probe.design.effective_counts` (clusters, or a membership row's

@@ -93,7 +93,8 @@ class Lattice:
         self.depth = depth
         self.pool = pool
         self.prune = prune
-        self.counter = SliceCounter(codes, n_levels, y, binary, weights)
+        # a 0/1 outcome's search ranks on the table's design effect (the Scorer's notes): no w^2
+        self.counter = SliceCounter(codes, n_levels, y, binary, weights, squares=not binary)
         self.scorer = Scorer(y, binary, min_rows, confidence_level, score_level, max_share,
                              weights)
         self.visited = {}  # cols -> (score, bound, candidate, stats), arrays over the set's keys
