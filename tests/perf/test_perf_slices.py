@@ -78,12 +78,14 @@ def _naive(frame, outcome, depth, min_rows):
             "rows": rows}
 
 
-def _best_of(k, fn):
+def _best_of(k, fn, clock=time.perf_counter):
+    """The least time of ``k`` runs by ``clock`` (``time.process_time``: the process's CPU time,
+    for a machine busy with other work; the search runs on one thread)."""
     best = np.inf
     for _ in range(k):
-        start = time.perf_counter()
+        start = clock()
         out = fn()
-        best = min(best, time.perf_counter() - start)
+        best = min(best, clock() - start)
     return best, out
 
 
@@ -154,17 +156,6 @@ def test_perf_ten_million_rows_depth_two_is_linear():
     assert ratio <= 14  # linear in the rows, within timing noise
 
 
-def _cpu_best_of(k, fn):
-    """The least CPU time of ``k`` runs (the process's, not the wall clock: the machine may be
-    busy with other work, and the search runs on one thread)."""
-    best = np.inf
-    for _ in range(k):
-        start = time.process_time()
-        out = fn()
-        best = min(best, time.process_time() - start)
-    return best, out
-
-
 def test_perf_weighted_search_costs_at_most_a_third_more():
     # continuous weights (a reweighting to a population: log-normal, Kish design effect 1.6); the
     # runs alternate so a busy spell of the machine hits both
@@ -173,8 +164,10 @@ def test_perf_weighted_search_costs_at_most_a_third_more():
     w = np.random.default_rng(1).lognormal(0.0, 0.7, n)
     plain, weighted = [], []
     for _ in range(3):
-        plain.append(_cpu_best_of(2, lambda: search_slices(frame, outcome, depth=3))[0])
-        t, res = _cpu_best_of(2, lambda: search_slices(frame, outcome, depth=3, sample_weight=w))
+        plain.append(_best_of(2, lambda: search_slices(frame, outcome, depth=3),
+                              time.process_time)[0])
+        t, res = _best_of(2, lambda: search_slices(frame, outcome, depth=3, sample_weight=w),
+                          time.process_time)
         weighted.append(t)
     ratio = min(weighted) / min(plain)
     print(f"\n1M rows, depth 3, CPU time: unweighted {min(plain):.3f} s, weighted "
