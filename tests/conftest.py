@@ -9,7 +9,15 @@ import os
 for _var in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
     os.environ.setdefault(_var, "1")  # read by native libraries when they load (and by children)
 
+import signal  # noqa: E402
+
 import pytest  # noqa: E402
+
+# A shell without job control starts a background command (`cmd &`) with SIGINT ignored, and
+# children inherit that; the tests that interrupt a run (in this process or in a child) need the
+# usual disposition, which the run's own code rightly leaves alone when its caller chose to ignore.
+if signal.getsignal(signal.SIGINT) is signal.SIG_IGN:
+    signal.signal(signal.SIGINT, signal.default_int_handler)
 
 
 @pytest.fixture(scope="session")
