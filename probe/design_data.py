@@ -15,7 +15,7 @@ from .data import check_columns, is_numeric, rows_text
 from .design import Design, Membership
 from .errors import DataError, PlanError
 
-__all__ = ["MEMBERSHIP_TOLERANCE", "read_design", "resolve_design"]
+__all__ = ["MEMBERSHIP_TOLERANCE", "parse_membership", "read_design", "resolve_design"]
 
 #: How far a row's membership probabilities may sum from 1 (probabilities printed to three
 #: decimals); within it they are rescaled to sum to 1 exactly, beyond it the row is refused.
@@ -33,6 +33,27 @@ def _numbers(frame: pd.DataFrame, column: str, role: str, where: str) -> np.ndar
         raise DataError(f"{role} column `{column}` in {where} has {len(bad)} missing or infinite "
                         f"values ({rows_text(bad)}); every row needs one")
     return values
+
+
+def parse_membership(value) -> dict:
+    """``[data.membership]`` as ``{attribute: {group: column}}``, checked for shape."""
+    if value is None:
+        return {}
+    if not isinstance(value, dict):
+        raise PlanError("`data.membership` must be a table: attribute = { group = \"column\", ... }")
+    out = {}
+    for attribute, groups in value.items():
+        where = f"`data.membership.{attribute}`"
+        if not isinstance(groups, dict) or len(groups) < 2:
+            raise PlanError(f"{where} must map two or more groups to their probability columns, "
+                            f"e.g. {{ a = \"p_a\", b = \"p_b\" }}")
+        for group, column in groups.items():
+            if not isinstance(column, str) or not column:
+                raise PlanError(f"{where}.{group} must name a column, got {column!r}")
+        if len(set(groups.values())) != len(groups):
+            raise PlanError(f"{where} names one column for two groups")
+        out[str(attribute)] = {str(g): c for g, c in groups.items()}
+    return out
 
 
 def read_design(frame: pd.DataFrame, *, weights: str | None = None, cluster: str | None = None,

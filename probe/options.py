@@ -205,9 +205,10 @@ class DataOptions(_Checked):
     def __post_init__(self):
         super().__post_init__()
         from .bins import parse_bins
+        from .design_data import parse_membership
 
         object.__setattr__(self, "bins", parse_bins(self.bins))
-        object.__setattr__(self, "membership", _membership(self.membership))
+        object.__setattr__(self, "membership", parse_membership(self.membership))
         for name in ("weights", "cluster"):
             value = getattr(self, name)
             if value is not None and (not isinstance(value, str) or not value):
@@ -223,27 +224,6 @@ class DataOptions(_Checked):
         """``reference_groups`` as ``{attribute: level}`` (an intersection as ``"a & b": "x & y"``)."""
         return {a.strip(): level.strip()
                 for a, _, level in (e.partition("=") for e in self.reference_groups)}
-
-
-def _membership(value) -> dict:
-    """``[data.membership]`` as ``{attribute: {group: column}}``, checked for shape."""
-    if value is None:
-        return {}
-    if not isinstance(value, dict):
-        raise PlanError("`data.membership` must be a table: attribute = { group = \"column\", ... }")
-    out = {}
-    for attribute, groups in value.items():
-        where = f"`data.membership.{attribute}`"
-        if not isinstance(groups, dict) or len(groups) < 2:
-            raise PlanError(f"{where} must map two or more groups to their probability columns, "
-                            f"e.g. {{ a = \"p_a\", b = \"p_b\" }}")
-        for group, column in groups.items():
-            if not isinstance(column, str) or not column:
-                raise PlanError(f"{where}.{group} must name a column, got {column!r}")
-        if len(set(groups.values())) != len(groups):
-            raise PlanError(f"{where} names one column for two groups")
-        out[str(attribute)] = {str(g): c for g, c in groups.items()}
-    return out
 
 
 @dataclass(frozen=True)

@@ -10,11 +10,11 @@ from statsmodels.stats.proportion import (
     proportions_ztest,
 )
 
+from probe.bootstrap import bootstrap, jackknife_values
 from probe.errors import DegenerateWarning
 from probe.stats import (
     Estimate,
     bh_adjust,
-    bootstrap,
     impact_ratio,
     mcnemar_pvalue,
     newcombe,
@@ -180,7 +180,6 @@ def _corr(x, y, axis=-1):
 
 
 def test_bootstrap_law_school_against_published_and_scipy():
-    from probe.stats import jackknife_values
 
     theta = jackknife_values([LSAT, GPA], _corr)
     d = theta.mean() - theta
