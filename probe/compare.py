@@ -22,7 +22,8 @@ is not exact under weights; its score form on the effective counts,
 ``z = (b_eff - c_eff) / sqrt(b_eff + c_eff)`` (``"mcnemar-score-effective"``), is reported
 instead. Every estimate records ``n_effective`` (the difference: that of ``d``), and each metric
 its weighted total (``weight``) and, with clusters, their number (``clusters``). The worse-slice
-search is not weighted here.
+search runs under the same design (:func:`probe.slices.search_slices`). Membership
+probabilities are refused: the comparison pairs rows, it has no groups to weigh.
 """
 
 from __future__ import annotations

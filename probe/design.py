@@ -20,7 +20,9 @@ as the independent units: the clusters when given, else the rows)::
 
     v = f * sum_u z_u^2 / W^2,   z_u = sum_{i in u} w_i (y_i - p),   f = m / (m - 1) with clusters
 
-(``m`` the clusters in the cell; ``f = 1`` with rows as units, so that the unit-weight case is the
+(``m`` the clusters in the cell, the usual small-sample factor taken per cell: slightly wider than
+with the whole sample's cluster count, and with clusters of one row each it gives ``n_eff = n - 1``
+where rows as units give ``n``; ``f = 1`` with rows as units, so that the unit-weight case is the
 binomial variance). The effective sample size is ``n_eff = s^2 / v`` with ``s^2`` the weighted
 variance of ``y`` in the cell (``p (1 - p)`` for a 0/1 outcome): the number of independent rows
 that would give the same precision (Korn & Graubard 1998). Where the rate is 0 or 1 the variance
@@ -135,7 +137,8 @@ class Design:
     weights : ndarray of float64 or None
         Non-negative row weights, not all zero; None means every row weighs 1.
     cluster : ndarray of int64 or None
-        Each row's cluster, coded ``0 .. n_clusters - 1``; None means every row is its own.
+        Each row's cluster: any ids are coded ``0 .. n_clusters - 1`` in sorted order (a missing
+        id becomes -1, which the analyses refuse); None means every row is its own.
     membership : mapping of str to Membership
         The attributes known as probabilities.
     weights_column, cluster_column : str or None
@@ -152,18 +155,25 @@ class Design:
         if self.weights is not None:
             object.__setattr__(self, "weights",
                                _read_only(np.asarray(self.weights, dtype=np.float64)))
-        if self.cluster is not None:
-            object.__setattr__(self, "cluster", _read_only(np.asarray(self.cluster, np.int64)))
+        if self.cluster is not None:  # any ids, coded 0 .. n_clusters - 1 (-1: missing)
+            import pandas as pd
+
+            codes = pd.factorize(np.asarray(self.cluster).reshape(-1), sort=True)[0]
+            object.__setattr__(self, "cluster", _read_only(codes.astype(np.int64)))
 
     @property
     def n_clusters(self) -> int | None:
-        return None if self.cluster is None else int(self.cluster.max()) + 1 if len(
-            self.cluster) else 0
+        return None if self.cluster is None else int(self.cluster.max(initial=-1)) + 1
 
     @property
     def given(self) -> bool:
         """Whether any weights, clusters or membership probabilities were given."""
         return self.weights is not None or self.cluster is not None or bool(self.membership)
+
+    @property
+    def estimated(self) -> tuple:
+        """The attributes whose memberships are fractional (estimated, not recorded)."""
+        return tuple(a for a, m in self.membership.items() if not _zero_one(m.probs))
 
     @property
     def plain(self) -> bool:

@@ -108,6 +108,16 @@ def _membership(frame, attribute, groups, where) -> Membership:
     check_columns(frame, columns, f"membership (`{attribute}`)", where)
     probs = np.column_stack([_numbers(frame, c, f"membership (`{attribute}`)", where)
                              for c in columns])
+    return Membership(attribute, tuple(groups), tuple(columns), _checked_probs(attribute, columns,
+                                                                               probs, where))
+
+
+def _checked_probs(attribute, columns, probs, where) -> np.ndarray:
+    """Probabilities in [0, 1] whose rows sum to 1 (within the tolerance; then rescaled)."""
+    bad = np.flatnonzero(~np.isfinite(probs).all(axis=1))
+    if len(bad):
+        raise DataError(f"membership probabilities of `{attribute}` in {where} have missing or "
+                        f"infinite values on {len(bad)} rows ({rows_text(bad)})")
     for j, c in enumerate(columns):
         out = np.flatnonzero((probs[:, j] < 0) | (probs[:, j] > 1))
         if len(out):
@@ -119,7 +129,7 @@ def _membership(frame, attribute, groups, where) -> Membership:
         raise DataError(f"membership probabilities of `{attribute}` ({', '.join(columns)}) in "
                         f"{where} do not sum to 1 on {len(off)} rows ({rows_text(off)}; the first "
                         f"sums to {total[off[0]]:.6g})")
-    return Membership(attribute, tuple(groups), tuple(columns), probs / total[:, None])
+    return probs / total[:, None]
 
 
 def resolve_design(sample_weight, design: Design | None, n_rows: int) -> Design:
@@ -146,6 +156,11 @@ def resolve_design(sample_weight, design: Design | None, n_rows: int) -> Design:
     for name, a in (("weights", design.weights), ("clusters", design.cluster)):
         if a is not None and len(a) != n_rows:
             raise DataError(f"the design's {name} have {len(a)} values for {n_rows} rows")
+    if design.cluster is not None:
+        missing = np.flatnonzero(design.cluster < 0)
+        if len(missing):
+            raise DataError(f"the design's clusters have {len(missing)} missing values "
+                            f"({rows_text(missing)}); give every row its cluster")
     if design.weights is not None:
         bad = np.flatnonzero(~np.isfinite(design.weights))
         if len(bad):
@@ -153,7 +168,9 @@ def resolve_design(sample_weight, design: Design | None, n_rows: int) -> Design:
                             f"({rows_text(bad)})")
         _checked_weights(design.weights, "the design's weights")
     for m in design.membership.values():
-        if len(m.probs) != n_rows:
-            raise DataError(f"the membership probabilities of `{m.attribute}` have "
-                            f"{len(m.probs)} rows for {n_rows}")
+        if m.probs.ndim != 2 or len(m.probs) != n_rows or m.probs.shape[1] != len(m.levels):
+            raise DataError(f"the membership probabilities of `{m.attribute}` have shape "
+                            f"{m.probs.shape}; expected {n_rows} rows and one column per group "
+                            f"({len(m.levels)})")
+        _checked_probs(m.attribute, m.columns, m.probs, "the design")
     return design

@@ -69,6 +69,10 @@ class Cells:
     effective: bool
     _cells: dict = None  # rate -> CellEffective
 
+    def rate_clusters(self, rate: str) -> np.ndarray:
+        """Per group, the clusters with a row in the base of ``rate`` (with clusters only)."""
+        return self._cells[rate].clusters
+
     def correlation(self, rate: str, ref: int) -> np.ndarray:
         """Per group, the correlation of its ``rate`` estimate with group ``ref``'s: 0 for
         independent groups (a plain design, or groups sharing no unit)."""
@@ -100,8 +104,17 @@ def group_cells(frame: pd.DataFrame, columns, y_true, y_pred, favorable: bool,
     codes = [None if p is None else p[0] for p in parts]
     names = [list(m.levels) if m is not None else list(p[1]) for m, p in zip(members, parts)]
     codes, source, w, prob = expand_rows(codes, members, design.weights)
+    known = np.ones(len(codes[0]), dtype=bool)
+    for c in codes:
+        known &= c >= 0
+    # rows with a missing value (a membership column has none), each counted once, copies or not
+    unknown = int(np.count_nonzero(~known) if source is None else len(np.unique(source[~known])))
+    if w is not None and not np.all(w > 0):  # a row of weight 0 is in no group
+        live = w > 0
+        codes = [c[live] for c in codes]
+        source = (np.arange(len(live)) if source is None else source)[live]
+        w, prob = w[live], None if prob is None else prob[live]
     key, cells = cell_keys(codes, [len(v) for v in names])
-    unknown = int(np.count_nonzero(key < 0))  # a membership column has no unknown rows
     if len(cells) == 0:
         return None
     k = len(cells)

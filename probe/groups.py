@@ -97,6 +97,7 @@ class GroupRow:
     reference_fixed: bool = False
     weight: float | None = None
     clusters: int | None = None
+    rate_clusters: dict = field(default_factory=dict, repr=False, compare=False)
     _basis: tuple = field(default=(), repr=False, compare=False)
     _gap_counts: dict = field(default_factory=dict, repr=False, compare=False)
 
@@ -408,6 +409,8 @@ def _attribute_rows(name, cells, min_share, confidence_level, notes, fixed=None)
                          "reference" if i == ref else "newcombe", n_eff(on, i, ref)),
             weight=float(weight[i]) if eff else None,
             clusters=None if cells.clusters is None else int(cells.clusters[i]),
+            rate_clusters={} if cells.clusters is None else {
+                k: int(cells.rate_clusters(k)[i]) for k in ("selection_rate", *GAP_RATES)},
             **rates,
         ))
     return out

@@ -226,6 +226,7 @@ def _run(plan: Plan, command, clock: _Clock, progress) -> dict:
             found.baseline = ev.model("baseline").describe()
     with clock.step("verdict"):
         measured = measure(groups=found.groups, slices=found.slices, flips=found.flips,
+                           estimated=ev.design.estimated,
                            comparison=found.comparison, confidence_level=cl)
         verdict = judge(measured, plan.policy, confidence_level=cl)
     prov = provenance(plan, command=command, timings=clock.timings,

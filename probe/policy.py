@@ -171,6 +171,8 @@ def _judge_one(name, m: Measure, threshold, *, upper, level, report_level, famil
         return result(est, "inconclusive", "the interval has zero width: no evidence either way")
     low, high = est.low, est.high
     where = "whole interval"
+    if m.no_pass and (high <= threshold if upper else low >= threshold):
+        return result(est, "inconclusive", m.no_pass)
     if upper:
         if high <= threshold:
             return result(est, "pass", f"{where} at or below the bound {threshold:g}")

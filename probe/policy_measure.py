@@ -17,6 +17,10 @@ What each rule is measured on (its family):
 - ``max_slice_gap``: the slices carried to the estimate part (the family the q-values are over); the
   listed ones are judged, each slice's gap to the rest oriented so that larger is worse (for selection,
   the shortfall). Without a split the gaps carry the selection effect and are not judged.
+- A subject whose groups are known only as membership probabilities (``estimated``) can fail but
+  not pass: its probability-weighted estimate is biased toward no disparity when the
+  probabilities come from features that relate to the outcome (:data:`probe.design.
+  MEMBERSHIP_CAUTION`), so an interval inside the bound does not rule a violation out.
 - Under clusters (``[data] cluster``), a subject whose estimate rests on fewer than
   :data:`~probe.design.MIN_CLUSTERS` clusters (the fewer of its two samples) is inconclusive: a
   cluster-robust variance from so few clusters is itself unreliable.
@@ -59,6 +63,9 @@ class Measure:
         The rows behind the estimate (None: not applicable).
     unjudged : str or None
         Why the estimate cannot be judged honestly (it is then inconclusive with this reason).
+    no_pass : str or None
+        Why the estimate can show a violation but not rule one out (a pass is then inconclusive
+        with this reason; a fail stands).
     """
 
     subject: str
@@ -66,6 +73,7 @@ class Measure:
     at: Callable[[float], Estimate] | None = None
     rows: int | None = None
     unjudged: str | None = None
+    no_pass: str | None = None
 
     def interval(self, level: float, report_level: float) -> Estimate | None:
         if self.at is not None:
@@ -106,7 +114,7 @@ _SELECTED = ("no split: the {what} was estimated on the rows that chose the slic
 
 
 def measure(*, groups=None, slices=None, flips=None, comparison=None,
-            confidence_level: float = 0.95) -> dict:
+            confidence_level: float = 0.95, estimated=()) -> dict:
     """The family each rule is judged on, from the typed results of the analyses.
 
     Parameters
@@ -117,6 +125,9 @@ def measure(*, groups=None, slices=None, flips=None, comparison=None,
     comparison : Comparison, optional
     confidence_level : float, default=0.95
         The report's level (the estimates shown beside each judgement).
+    estimated : collection of str, default=()
+        The attributes known only as (fractional) membership probabilities: their subjects can
+        fail but not pass.
 
     Returns
     -------
@@ -129,18 +140,19 @@ def measure(*, groups=None, slices=None, flips=None, comparison=None,
         out["min_impact_ratio"] = None
     else:
         judged = [r for r in groups.rows if r.group != r.reference_group and not r.small]
-        few = _cluster_check(groups)
+        few = _cluster_check(groups, "selection_rate")
         ms = tuple(Measure(f"{r.attribute} = {r.group} (vs {r.reference_group})", r.impact_ratio,
-                           r.impact_ratio_at, r.rows, few(r)) for r in judged)
+                           r.impact_ratio_at, r.rows, few(r), _no_pass(r.attribute, estimated))
+                   for r in judged)
         # an attribute whose reference was chosen from the data has intervals that already hold
         # together (Bonferroni over its pairs, see probe.groups): one hypothesis for all its groups
         chosen = {r.attribute for r in judged if not r.reference_fixed}
         size = len(chosen) + sum(1 for r in judged if r.attribute not in chosen)
         out["min_impact_ratio"] = Family(ms, size, f"{len(ms)} groups of {len({r.attribute for r in judged})} attributes")
     for name, rate in _GAPS.items():
-        out[name] = None if groups is None else _gap_family(groups, rate)
+        out[name] = None if groups is None else _gap_family(groups, rate, estimated)
     flip_ms = tuple(m for f in flips or () for row in f.rows
-                    if (m := _flip_measure(row, confidence_level)) is not None)
+                    if (m := _flip_measure(row, confidence_level, estimated)) is not None)
     out["max_flip_rate"] = Family(flip_ms, len(flip_ms),
                                   f"{len(flip_ms)} flip rows") if flip_ms else None
     if slices is None:
@@ -151,7 +163,8 @@ def measure(*, groups=None, slices=None, flips=None, comparison=None,
         ms = tuple(
             Measure(f"slice {s.rank}: {s.label}" + (" (shortfall in selection rate)" if sign < 0
                                                     else ""),
-                    _worse_up(s.gap, sign), _turned(s.gap_at, sign), s.rows, why)
+                    _worse_up(s.gap, sign), _turned(s.gap_at, sign), s.rows,
+                    why or few_clusters(getattr(s, "clusters", None)))
             for s in slices.found)
         out["max_slice_gap"] = Family(ms, slices.family,
                                       f"{slices.family} slices carried to the estimate part")
@@ -160,9 +173,11 @@ def measure(*, groups=None, slices=None, flips=None, comparison=None,
     else:
         o, found = comparison.overall, comparison.worse_slices
         why = _SELECTED.format(what="shortfall") if found.selected else None
-        ms = (Measure(f"overall {o.metric}", o.shortfall, o.shortfall_at, o.rows),) + tuple(
+        ms = (Measure(f"overall {o.metric}", o.shortfall, o.shortfall_at, o.rows,
+                      few_clusters(getattr(o, "clusters", None))),) + tuple(
             Measure(f"worse slice {s.rank}: {s.label}", s.rate,
-                    lambda level, s=s: comparison.slice_shortfall_at(s, level), s.rows, why)
+                    lambda level, s=s: comparison.slice_shortfall_at(s, level), s.rows,
+                    why or few_clusters(getattr(s, "clusters", None)))
             for s in comparison.worse)
         out["max_regression"] = Family(ms, 1 + found.family,
                                        f"the overall shortfall and {found.family} slices")
@@ -185,14 +200,15 @@ def _absolute(est: Estimate) -> Estimate:
     return Estimate(abs(est.value), 0.0, max(-low, high), est.method, est.n_effective)
 
 
-def _gap_family(groups, rate: str) -> Family:
+def _gap_family(groups, rate: str, estimated=()) -> Family:
     """Every group's absolute gap in ``rate`` to its reference group (the reference left out)."""
     compared = [r for r in groups.rows if r.group != r.reference_group]
-    few = _cluster_check(groups)
+    few = _cluster_check(groups, rate)
     ms = tuple(
         Measure(f"{r.attribute} = {r.group} (vs {r.reference_group}): {_GAP_WORDS[rate]} gap",
                 _absolute(r.gap_at(rate, groups.confidence_level)),
-                lambda level, r=r: _absolute(r.gap_at(rate, level)), r.gap_rows(rate), few(r))
+                lambda level, r=r: _absolute(r.gap_at(rate, level)), r.gap_rows(rate), few(r),
+                _no_pass(r.attribute, estimated))
         for r in compared)
     attributes = len({r.attribute for r in compared})
     return Family(ms, len(ms), f"{len(ms)} groups of {attributes} attributes")
@@ -207,13 +223,25 @@ def few_clusters(*counts) -> str | None:
             "interval from so few is unreliable")
 
 
-def _cluster_check(groups):
-    """``row -> reason or None``: a group and its reference judged on too few clusters."""
-    clusters = {(r.attribute, r.group): r.clusters for r in groups.rows}
-    return lambda r: few_clusters(r.clusters, clusters.get((r.attribute, r.reference_group)))
+def _cluster_check(groups, rate: str):
+    """``row -> reason or None``: a group and its reference judged on too few clusters in the
+    base of ``rate`` (all rows; label-negatives for FPR; label-positives for FNR)."""
+    clusters = {(r.attribute, r.group): r.rate_clusters.get(rate) for r in groups.rows}
+    return lambda r: few_clusters(r.rate_clusters.get(rate),
+                                  clusters.get((r.attribute, r.reference_group)))
 
 
-def _flip_measure(row, confidence_level) -> Measure | None:
+_ESTIMATED = ("groups known only as membership probabilities: the estimate is biased toward no "
+              "disparity when the probabilities come from features that relate to the outcome, "
+              "so it can show a violation but not rule one out")
+
+
+def _no_pass(attribute: str, estimated) -> str | None:
+    """The reason an attribute's (or intersection's) subject cannot pass, or None."""
+    return _ESTIMATED if set(attribute.split(" & ")) & set(estimated) else None
+
+
+def _flip_measure(row, confidence_level, estimated=()) -> Measure | None:
     """The row's judged figure; None when nothing was scored (an impossible target level). A
     scored row whose control (placebo, own-group twins) could not be formed is inconclusive: its
     raw flip rate would count the noise the control removes."""
@@ -227,4 +255,6 @@ def _flip_measure(row, confidence_level) -> Measure | None:
         return Measure(subject, row.flip_rate, None, row.rows,
                        f"not judged: the control for the {row.judged_what} could not be formed (too "
                        "few rows), and the raw flip rate includes what the control removes")
-    return Measure(subject, est, row.judged_at, row.rows)
+    return Measure(subject, est, row.judged_at, row.rows,
+                   few_clusters(getattr(row, "clusters", None)),
+                   _no_pass(row.attribute, estimated))

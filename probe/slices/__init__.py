@@ -74,8 +74,8 @@ How it works
    ``max_share`` the weighted share; the split draws whole clusters (a simple random split of
    clusters, not stratified by the label); the estimate part's rates, gaps and ratios take the
    effective counts of :func:`probe.design.effective_counts` (clusters, or a membership row's
-   copies, as units) and record ``n_effective``; the p-value is the pooled score z test on the
-   effective counts (Fisher's exact test is not exact under weights; its level is measured in
+   copies, as units) and record ``n_effective``; the p-value is the pooled score test on the effective counts
+   (referred to Student's t, the slice's effective rows less one) (Fisher's exact test is not exact under weights; its level is measured in
    ``tests/sim/sim_slices.py``, ``weighted_level``); the bootstrap resamples units. An attribute
    known as membership probabilities is a slice column: its rows are expanded, a copy per group
    with weight ``w * pi``.

@@ -11,8 +11,8 @@ variance), so the Wald rate's variance is the design variance ``s_w^2 / n_eff`` 
 ``v1 + v2`` with Satterthwaite's degrees of freedom on the effective sizes.
 
 Tests. The exact tests of :mod:`.pvalues` condition on integer counts and are not exact under
-weights: the p-value is the pooled two-proportion score z test on the effective counts for a 0/1
-outcome, Welch's t on the pseudo-sums for a real one (the {-1, 0, 1} exact test too is replaced).
+weights: the p-value is the pooled two-proportion score statistic on the effective counts for a
+0/1 outcome, referred to Student's t with the slice's effective rows less one (:func:`design_pvalue`), Welch's t on the pseudo-sums for a real one (the {-1, 0, 1} exact test too is replaced).
 The slice and the rest are treated as independent; with clusters that straddle both, their
 estimates are positively correlated and the test is conservative. The level is measured in
 ``tests/sim/sim_slices.py`` (``weighted_level``).
@@ -27,9 +27,10 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+from scipy import stats as _sps
 
 from ..design import effective_counts
-from ..stats import Estimate, two_proportion_pvalue
+from ..stats import Estimate
 from .counter import SliceCounter
 from .pvalues import welch, welch_pvalue
 
@@ -165,10 +166,21 @@ class Basis:
 
 def design_pvalue(c, binary: bool, alternative: str) -> np.ndarray:
     """The one-sided p-value of the first rows against the second from the pseudo-sums ``c``
-    (:meth:`Basis.pair`): the pooled score z test on the effective counts for a 0/1 outcome,
-    Welch's t for a real one (see the module notes)."""
+    (:meth:`Basis.pair`): for a 0/1 outcome the pooled score statistic on the effective counts,
+    referred to Student's t with the slice's effective rows less one as its degrees of freedom
+    (the slice's variance is estimated from its own few, unequally weighted rows: against the
+    normal, the weighted search's null runs raised a slice at q <= 0.05 in 6-17 % of runs, with
+    the t 3-5 %; ``tests/sim/sim_slices.py``, ``weighted_null``); Welch's t for a real one."""
     if binary:
-        return two_proportion_pvalue(c[1], c[0], c[4], c[3], alternative=alternative)
+        x1, n1, x2, n2 = (np.asarray(v, dtype=float) for v in (c[1], c[0], c[4], c[3]))
+        with np.errstate(invalid="ignore", divide="ignore"):
+            pooled = (x1 + x2) / (n1 + n2)
+            se = np.sqrt(pooled * (1 - pooled) * (1 / n1 + 1 / n2))
+            z = (x1 / n1 - x2 / n2) / se
+            df = np.maximum(n1 - 1.0, 1.0)  # the slice's variance is estimated from its own rows
+            p = _sps.t.sf(z if alternative == "greater" else -z, df)
+        p = np.where(se > 0, p, 1.0)
+        return np.where((n1 <= 0) | (n2 <= 0), np.nan, np.clip(p, 0.0, 1.0))
     return welch_pvalue(*welch(*c[:3], *c[3:]), alternative=alternative)
 
 

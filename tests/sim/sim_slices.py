@@ -50,6 +50,7 @@ from generators import mixed_frame, null_outcome, planted_outcome
 from harness import proportion
 
 from probe.compare import compare_models
+from probe.design import Design
 from probe.slices import find_slices
 from probe.slices.estimate_design import Basis, Weighting, design_pvalue, effective_basis
 from probe.slices.pvalues import ternary_pvalue, welch, welch_pvalue
@@ -78,6 +79,33 @@ def _null_run(rng, n, split):
                           rng=int(rng.integers(1 << 31)))
         out[metric] = any(s.q_value <= ALPHA for s in res.found)
     return out
+
+
+def _weighted_null(runs=300, seed=0, n=20_000, clusters=False):
+    """Null data under a design (log-normal weights, Kish deff about 2.7; with ``clusters``,
+    people of 1-10 rows sharing their error propensity): runs with a listed slice at q <= 0.05."""
+    hits = dict.fromkeys(METRICS, 0)
+    for r in range(seed, seed + runs):
+        rng = np.random.default_rng(r)
+        X = mixed_frame(rng, n, 12)
+        w = rng.lognormal(0.0, 1.0, n)
+        y = rng.random(n) < 0.5
+        cluster = None
+        err = null_outcome(rng, n, 0.15).astype(bool)
+        if clusters:
+            cluster = np.repeat(np.arange(n), rng.integers(1, 11, n))[:n]
+            propensity = rng.beta(0.15 * 2.33, 0.85 * 2.33, n)[cluster]  # ICC 0.3 within people
+            err = rng.random(n) < propensity
+        chosen = null_outcome(rng, n, 0.30).astype(bool)
+        design = Design(weights=w, cluster=cluster)
+        for metric in METRICS:
+            decision = chosen if metric == "selection" else y ^ err
+            res = find_slices(X, y, decision, metric=metric, depth=3, design=design,
+                              rng=int(rng.integers(1 << 31)))
+            hits[metric] += any(s.q_value <= ALPHA for s in res.found)
+    what = "clusters of 1-10 rows (ICC 0.3) and weights" if clusters else "weights (deff ~2.7)"
+    return [proportion(f"null under {what}, {n:,} rows, {m}: runs with a slice at q <= 0.05",
+                       hits[m], runs, "<= 0.05", _seeds(seed, runs)) for m in METRICS]
 
 
 def _null(n, split):
@@ -295,4 +323,6 @@ SIMS = {
     "ternary_level": _ternary_level,
     "welch_level": _welch_level,
     "weighted_level": _weighted_level,
+    "weighted_null": _weighted_null,
+    "weighted_null_clusters": lambda runs=300, seed=0: _weighted_null(runs, seed, clusters=True),
 }

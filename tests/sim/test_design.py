@@ -247,3 +247,71 @@ def test_sample_weight_and_design_are_one_or_the_other():
         resolve_design(np.ones(3), None, 4)
     with pytest.raises(DataError, match="cluster"):
         resolve_design(None, Design(cluster=np.zeros(2)), 3)
+
+
+def _judged(m, estimated, **rules):
+    from probe.options import PolicyOptions
+    from probe.policy import judge
+
+    return judge(measure(groups=m, estimated=estimated), PolicyOptions(**rules))
+
+
+def test_groups_known_as_probabilities_can_fail_but_not_pass():
+    rng = np.random.default_rng(10)
+    n = 20_000
+    pa = rng.uniform(0.1, 0.9, n)
+    probs = np.column_stack([pa, 1 - pa])
+    design = Design(membership={"r": Membership("r", ("a", "b"), ("pa", "pb"), probs)})
+    frame = pd.DataFrame(index=range(n))
+    y = rng.random(n) < 0.5
+    for rate_b, status in ((0.5, "inconclusive"), (0.1, "fail")):
+        sel = rng.random(n) < np.where(rng.random(n) < pa, 0.5, rate_b)  # b's rate planted
+        m = group_metrics(frame, y, sel, attributes=["r"], reference={"r": "a"}, design=design)
+        verdict = _judged(m, design.estimated, min_impact_ratio=0.8)
+        (rule,) = verdict.rules
+        assert rule.status == status, rule
+        if status == "inconclusive":  # the interval is inside the bound: a pass withheld
+            assert rule.value["low"] > 0.8 and "membership probabilities" in rule.message
+        else:  # attenuated (the true ratio is 0.2) but still below the bound: the fail stands
+            assert 0.2 < rule.value["high"] < 0.8
+    # recorded groups (0/1 probabilities) pass as before
+    assert Design(membership={"r": Membership("r", ("a", "b"), ("pa", "pb"),
+                                              np.eye(2)[rng.integers(0, 2, n)])}).estimated == ()
+
+
+def test_few_clusters_are_counted_in_the_rate_s_own_base():
+    # 40 people per group, but the label-negatives sit in 4 people per group: FPR rests on 4
+    rng = np.random.default_rng(11)
+    person = np.repeat(np.arange(80), 10)
+    group = np.where(person < 40, "a", "b")
+    y = ~np.isin(person % 40, [0, 1, 2, 3])
+    d = rng.random(len(person)) < 0.5
+    m = group_metrics(pd.DataFrame({"g": group}), y, d, attributes=["g"],
+                      design=Design(cluster=person))
+    fams = measure(groups=m)
+    (fpr,) = fams["max_fpr_gap"].measures
+    (err,) = fams["max_error_gap"].measures
+    assert fpr.unjudged and "rests on 4 clusters" in fpr.unjudged
+    assert err.unjudged is None  # 40 clusters per group in the base of all rows
+
+
+def test_api_cluster_ids_of_any_kind_and_weight_zero_levels():
+    d = resolve_design(None, Design(cluster=np.array(["h9", "h1", "h9", "h4"])), 4)
+    assert d.n_clusters == 3 and d.cluster.tolist() == [2, 0, 2, 1]
+    assert resolve_design(None, Design(cluster=np.arange(4) * 10**11), 4).n_clusters == 4
+    # a level whose rows all weigh 0 is in no group, so it cannot become the reference
+    f = pd.DataFrame({"g": ["a"] * 50 + ["b"] * 50 + ["c"] * 10})
+    sel = np.r_[np.ones(30), np.zeros(20), np.ones(15), np.zeros(35), np.ones(10)].astype(bool)
+    m = group_metrics(f, sel, sel, attributes=["g"], min_share=0.0,
+                      sample_weight=np.r_[np.ones(100), np.zeros(10)])
+    assert [r.group for r in m.rows] == ["a", "b"] and m.rows[1].four_fifths_flag
+
+
+def test_unknown_rows_are_counted_once_in_an_intersection_with_membership():
+    probs = np.full((6, 3), 1 / 3)
+    design = Design(membership={"m": Membership("m", tuple("xyz"), ("p", "q", "s"), probs)})
+    frame = pd.DataFrame({"r": ["u", None, "v", "u", None, "v"]})
+    flags = np.array([True, False, True, False, True, False])
+    m = group_metrics(frame, flags, flags, attributes=["r"], intersections=[["r", "m"]],
+                      design=design)
+    assert m.unknown == {"r": 2, "r & m": 2}
