@@ -542,3 +542,21 @@ def test_an_object_column_holding_inf_and_a_negative_seed():
     find_slices(X, y, ~y, depth=1, split=False)  # runs to the end
     with pytest.raises(PlanError, match="at least 0"):
         find_slices(X, y, ~y, rng=-3)
+
+
+def test_more_than_63_columns_are_searched():
+    # column sets were bit masks in one 64-bit integer: 64 columns or more overflowed; a slice on
+    # columns 2 and 65 is planted and must come out first, with the counts of a brute-force mask
+    from probe.slices.counter import column_masks
+
+    r = np.random.default_rng(4)
+    n = 4000
+    X = pd.DataFrame({f"c{i}": r.choice(list("ab"), n) for i in range(70)})
+    planted = ((X.c2 == "b") & (X.c65 == "a")).to_numpy()
+    y = np.where(planted, r.random(n) < 0.6, r.random(n) < 0.2).astype(float)
+    res = search_slices(X, y, depth=2, split=False)
+    top = res.found[0]
+    assert top.label == "c2 = b and c65 = a"
+    assert top.rows == planted.sum() and top.rate.value == pytest.approx(y[planted].mean())
+    masks = column_masks([(2, 65), (63,), (0, 64, 69)], 2)
+    assert masks.tolist() == [[4, 2], [1 << 63, 0], [1, 1 | (1 << 5)]]

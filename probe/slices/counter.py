@@ -13,12 +13,22 @@ import numpy as np
 
 from ..counting import weighted_bincount
 
-__all__ = ["SliceCounter", "BLOCK_CELLS"]
+__all__ = ["SliceCounter", "BLOCK_CELLS", "column_masks"]
 
 # joint cells counted in one pass (measured best: the histogram stays in cache and its sums over
 # axes stay cheap)
 BLOCK_CELLS = 1 << 13
 _CHUNK_ROWS = 1 << 16  # rows keyed at a time
+
+
+def column_masks(sets, words: int) -> np.ndarray:
+    """Each column set as a bit mask over the columns, ``words`` 64-bit words per set (any number
+    of columns; one integer would overflow past 63)."""
+    out = np.zeros((len(sets), words), dtype=np.uint64)
+    for i, cols in enumerate(sets):
+        for c in cols:
+            out[i, c >> 6] |= np.uint64(1) << np.uint64(c & 63)
+    return out
 
 
 class SliceCounter:
@@ -89,7 +99,8 @@ class SliceCounter:
         out = {}
         if not sets:
             return out
-        bits = np.array([sum(1 << c for c in cols) for cols in sets], dtype=np.int64)
+        words = (len(self.n_levels) + 63) // 64
+        bits = column_masks(sets, words)
         pending = np.ones(len(sets), dtype=bool)
         log_levels = np.log2(np.asarray(self.n_levels, dtype=float))
         for i, cols in enumerate(sets):
@@ -97,8 +108,8 @@ class SliceCounter:
                 continue
             block = self._grow(cols, bits, pending, log_levels) if self.blocks else cols
             hist = self._histogram(block)
-            mask = sum(1 << c for c in block)
-            inside = np.flatnonzero(pending & ((bits & ~mask) == 0))
+            mask = column_masks([block], words)[0]
+            inside = np.flatnonzero(pending & ~(bits & ~mask).any(axis=1))
             for j in inside:
                 out[sets[j]] = self._marginal(hist, block, sets[j])
             pending[inside] = False
@@ -108,15 +119,18 @@ class SliceCounter:
         """Add columns to ``cols`` while the block stays within ``BLOCK_CELLS``, each time the one
         completing the most pending column sets (fewest levels first on ties)."""
         block = set(cols)
-        mask = sum(1 << c for c in cols)
+        mask = column_masks([cols], bits.shape[1])[0]
         room = math.log2(BLOCK_CELLS / self.cells(cols)) + 1e-9
         todo = bits[pending]
         while True:
             miss = todo & ~mask
-            single = (miss != 0) & ((miss & (miss - 1)) == 0)  # one column short of the block
+            single = np.bitwise_count(miss).sum(axis=1) == 1  # one column short of the block
             if not single.any():
                 break
-            col = np.frexp(miss[single].astype(float))[1] - 1  # the missing column's index
+            short = miss[single]
+            word = np.argmax(short != 0, axis=1)
+            bit = short[np.arange(len(short)), word].astype(float)  # a power of two: exact
+            col = word * 64 + np.frexp(bit)[1] - 1  # the missing column's index
             gain = np.bincount(col, minlength=len(log_levels)).astype(float)
             gain[log_levels > room] = 0
             if gain.max() <= 0:
@@ -124,7 +138,7 @@ class SliceCounter:
             # most sets completed; ties to the fewest levels, then the lowest index
             best = int(np.lexsort((np.arange(len(gain)), log_levels, -gain))[0])
             block.add(best)
-            mask |= 1 << best
+            mask[best >> 6] |= np.uint64(1) << np.uint64(best & 63)
             room -= log_levels[best]
         return tuple(sorted(block))
 
