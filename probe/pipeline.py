@@ -77,13 +77,13 @@ def _load(plan: Plan, spec: str, holdout, *, pin: str | None):
                       allow_unseen=m.allow_unseen)
 
 
-def _never_sliced(plan: Plan, label: str | None, model) -> list[str]:
-    """The label, the plan's exclusions, a ``column:`` model's score column and the design's
-    columns (weights, cluster ids, membership probabilities) are never sliced."""
+def _never_sliced(plan: Plan, label: str | None, models) -> list[str]:
+    """The label, the plan's exclusions, every ``column:`` model's score column (the candidate's
+    and the baseline's) and the design's columns (weights, cluster ids, membership
+    probabilities) are never sliced."""
     exclude = [label, *plan.search.exclude] if label else list(plan.search.exclude)
     exclude += _design_columns(plan)
-    if model.kind == "column":
-        exclude.append(model.spec.split(":", 1)[1])
+    exclude += [m.spec.split(":", 1)[1] for m in models if m.kind == "column"]
     return list(dict.fromkeys(exclude))
 
 
@@ -136,7 +136,9 @@ def prepare(plan: Plan, *, clock: _Clock | None = None, progress: Progress | Non
     s = plan.search
     with clock.step("encode"):
         encoding = encode_columns(frame, columns=s.columns,
-                                  exclude=_never_sliced(plan, holdout.label, model), bins=s.bins)
+                                  exclude=_never_sliced(plan, holdout.label,
+                                                       [r.model for r in runs.values()]),
+                                  bins=s.bins)
     return Evidence(holdout, inputs, runs, encoding, threshold=threshold,
                     favorable=favorable, groups=groups, design=design)
 

@@ -229,3 +229,21 @@ def test_flips_of_fixed_scores_and_proxies_without_a_label_are_refused(tmp_path,
     assert main(["proxies", "--data", str(data), "--protected", "group", "--quiet"],
                 console=_console()) == EXIT_BAD_INPUT
     assert "--label COL" in capsys.readouterr().err
+
+
+def test_no_model_s_score_column_is_sliced_in_a_comparison(tmp_path):
+    # the baseline's scores are a column too: slicing on them would find "old_score >= 0.6", a
+    # region defined by a model's output, not by the people; both score columns are left out
+    data = _holdout(tmp_path, 0.3)
+    frame = pd.read_csv(data)
+    rng = np.random.default_rng(5)
+    wrong = (frame["score"] >= 0.5).astype(int) != frame["y"]  # the candidate's errors
+    frame["old_score"] = (0.5 * wrong + rng.uniform(0, 0.5, len(frame))).round(3)
+    frame.to_csv(data, index=False)
+    plan = _plan(tmp_path, data, policy="", extra='[compare]\nbaseline = "column:old_score"\n'
+                                                  '[slices]\ndepth = 2\n')
+    assert main(["run", str(plan)], console=_console()) == EXIT_OK
+    report = json.loads((tmp_path / "out" / "report.json").read_text())
+    found = report["slices"]["found"] + report["comparison"]["worse_slices"]
+    sliced = {p["column"] for s in found for p in s["predicates"]}
+    assert sliced and not sliced & {"score", "old_score", "y"}
