@@ -65,6 +65,9 @@ from typing import Mapping, Sequence
 
 import numpy as np
 
+from .errors import DataError
+from .values import read_only
+
 
 __all__ = ["CellEffective", "Design", "MEMBERSHIP_CAUTION", "MIN_CLUSTERS", "Membership",
            "UNCERTAIN_TOP", "effective_counts", "expand_rows"]
@@ -82,12 +85,6 @@ MEMBERSHIP_CAUTION = (
     "Svacha & Udell 2019, \"Fairness under unawareness\"): a small gap here does not show a small "
     "gap between the true groups."
 )
-
-
-def _read_only(a):
-    a = np.asarray(a)
-    a.setflags(write=False)
-    return a
 
 
 @dataclass(frozen=True)
@@ -112,7 +109,7 @@ class Membership:
     probs: np.ndarray
 
     def __post_init__(self):
-        object.__setattr__(self, "probs", _read_only(np.asarray(self.probs, dtype=np.float64)))
+        object.__setattr__(self, "probs", read_only(np.asarray(self.probs, dtype=np.float64)))
 
     @property
     def uncertain_share(self) -> float:
@@ -153,13 +150,16 @@ class Design:
 
     def __post_init__(self):
         if self.weights is not None:
-            object.__setattr__(self, "weights",
-                               _read_only(np.asarray(self.weights, dtype=np.float64)))
+            try:
+                w = np.asarray(self.weights, dtype=np.float64).reshape(-1)
+            except (TypeError, ValueError):
+                raise DataError("a Design's weights must be numbers, one per row") from None
+            object.__setattr__(self, "weights", read_only(w))
         if self.cluster is not None:  # any ids, coded 0 .. n_clusters - 1 (-1: missing)
             import pandas as pd
 
             codes = pd.factorize(np.asarray(self.cluster).reshape(-1), sort=True)[0]
-            object.__setattr__(self, "cluster", _read_only(codes.astype(np.int64)))
+            object.__setattr__(self, "cluster", read_only(codes.astype(np.int64)))
 
     @property
     def n_clusters(self) -> int | None:
@@ -290,7 +290,7 @@ def effective_counts(key: np.ndarray, n_cells: int, y: np.ndarray, weights=None,
     T = np.bincount(pair, weights=w * y)
     U = np.bincount(pair, weights=w)
     z = T - p[cell_of] * U
-    S_units = np.bincount(cell_of, weights=z * z, minlength=n_cells)
+    S_units = np.bincount(cell_of, weights=z * z, minlength=n_cells)  # also for correlations
     S = S_units
     live = U > 0
     m = np.bincount(cell_of[live], minlength=n_cells).astype(np.float64)

@@ -26,14 +26,9 @@ from .data import Holdout
 from .design import Design
 from .encode import Encoding
 from .metrics import as_favorable, get_metric
+from .values import read_only
 
 __all__ = ["Evidence", "ModelRun"]
-
-
-def _read_only(a: np.ndarray) -> np.ndarray:
-    a = np.asarray(a)
-    a.setflags(write=False)
-    return a
 
 
 @dataclass(frozen=True)
@@ -56,8 +51,8 @@ class ModelRun:
 
     @classmethod
     def from_scores(cls, model, scores, threshold: float) -> "ModelRun":
-        scores = _read_only(np.asarray(scores, dtype=np.float64))
-        return cls(model, scores, _read_only(scores >= threshold))
+        scores = read_only(np.asarray(scores, dtype=np.float64))
+        return cls(model, scores, read_only(scores >= threshold))
 
 
 @dataclass(frozen=True)
@@ -105,7 +100,7 @@ class Evidence:
     @property
     def weights(self) -> np.ndarray:
         """Row weights (all ones unless given), read-only."""
-        return _read_only(self.design.row_weights(self.n_rows))
+        return read_only(self.design.row_weights(self.n_rows))
 
     @property
     def frame(self) -> pd.DataFrame:
@@ -132,7 +127,7 @@ class Evidence:
         """The metric's per-row 0/1 outcome and its base population (see :mod:`probe.metrics`)."""
         m = get_metric(metric)
         return self._cached(("outcome", m.name, run), lambda: tuple(
-            _read_only(a) for a in m.outcome(self.y_true, self.decision(run),
+            read_only(a) for a in m.outcome(self.y_true, self.decision(run),
                                              favorable=self.favorable)))
 
     def _cached(self, key, make):

@@ -20,7 +20,7 @@ import pandas as pd
 
 from .errors import PlanError
 
-__all__ = ["json_number", "report_level", "as_rng"]
+__all__ = ["json_number", "report_level", "as_rng", "read_only"]
 
 
 def json_number(x) -> float | None:
@@ -59,3 +59,10 @@ def as_rng(rng, name: str = "rng") -> np.random.Generator:
         return np.random.default_rng(int(rng))
     raise PlanError(f"`{name}` must be None, a whole number of at least 0 or a numpy Generator, "
                     f"got {rng!r}")
+
+
+def read_only(a) -> np.ndarray:
+    """``a`` as an array that cannot be written (results and evidence are shared, never copied)."""
+    a = np.asarray(a)
+    a.setflags(write=False)
+    return a

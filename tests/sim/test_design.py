@@ -247,6 +247,8 @@ def test_sample_weight_and_design_are_one_or_the_other():
         resolve_design(np.ones(3), None, 4)
     with pytest.raises(DataError, match="cluster"):
         resolve_design(None, Design(cluster=np.zeros(2)), 3)
+    with pytest.raises(DataError, match="must be numbers"):
+        Design(weights=["heavy", "light"])
 
 
 def _judged(m, estimated, **rules):
